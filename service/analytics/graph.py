@@ -31,6 +31,8 @@ __all__ = [
     "csr",
     "edge_probabilities",
     "check_lt_weights",
+    "DiffusionGraph",
+    "diffusion_graph",
 ]
 
 ProbabilityScheme = Literal[
@@ -322,3 +324,56 @@ def _check_unit(name: str, value: float | None) -> None:
             f"probability.{name} must be a number in [0, 1], got {value!r}",
             field=f"probability.{name}",
         )
+
+
+class DiffusionGraph(NamedTuple):
+    """Arcs with activation probabilities, in both CSR orientations.
+
+    ``out_*`` rows are sources (forward simulation); ``in_*`` rows are targets
+    (reverse-reachable sampling). ``model`` is ``"ic"`` or ``"lt"``; under LT
+    the probabilities are the incoming weights b(u, v), summing to at most 1.
+    """
+
+    n: int
+    model: str
+    out_indptr: NDArray[np.int64]
+    out_indices: NDArray[np.int32]
+    out_prob: NDArray[np.float64]
+    in_indptr: NDArray[np.int64]
+    in_indices: NDArray[np.int32]
+    in_prob: NDArray[np.float64]
+
+
+def diffusion_graph(
+    g: GraphArrays,
+    *,
+    model: str = "ic",
+    scheme: str = "weighted_cascade",
+    p: float | None = None,
+    q: float | None = None,
+    random_seed: int = 0,
+) -> DiffusionGraph:
+    """Build the arrays the diffusion and sampling kernels walk.
+
+    Undirected edges spread both ways. Under Linear Threshold the incoming
+    weights are checked to sum to at most 1 (see :func:`check_lt_weights`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> g = GraphArrays(3, True, np.array([0, 0], np.int32), np.array([1, 2], np.int32), np.ones(2))
+    >>> dg = diffusion_graph(g, scheme="uniform", p=0.5)
+    >>> dg.out_indptr.tolist(), dg.in_indptr.tolist()
+    ([0, 2, 2, 2], [0, 0, 1, 2])
+    """
+    if model not in ("ic", "lt"):
+        raise InvalidParameter(f"unknown model {model!r}; expected 'ic' or 'lt'", field="model")
+    a = arcs(g)
+    probs = edge_probabilities(a, scheme, p=p, q=q, random_seed=random_seed)
+    if model == "lt":
+        check_lt_weights(a, probs)
+    out = csr(a.n, a.src, a.dst, probs)
+    inn = csr(a.n, a.dst, a.src, probs)
+    return DiffusionGraph(
+        a.n, model, out.indptr, out.indices, out.data, inn.indptr, inn.indices, inn.data
+    )
