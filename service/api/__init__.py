@@ -1,1 +1,26 @@
-"""Package."""
+"""The HTTP layer: routers (thin), schemas, dependencies and problem handlers.
+
+May import ``service.jobs``, ``service.intake``, ``service.analytics``
+(through the job and loader modules) and ``storage``. Every router is
+included here, in one list.
+"""
+
+from __future__ import annotations
+
+from fastapi import APIRouter, Depends
+
+from . import graphs, health
+from .auth import authorize
+
+__all__ = ["api_router", "ROUTERS", "OPEN_ROUTERS"]
+
+# Routers under /v1: every one needs a bearer key (see auth.py).
+ROUTERS = [graphs.router]
+# Operations endpoints: no key.
+OPEN_ROUTERS = [health.router]
+
+api_router = APIRouter()
+for _r in OPEN_ROUTERS:
+    api_router.include_router(_r)
+for _r in ROUTERS:
+    api_router.include_router(_r, dependencies=[Depends(authorize)])

@@ -1,0 +1,55 @@
+"""Annotated dependencies shared by the routers."""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from dataclasses import dataclass
+from typing import Annotated
+
+from fastapi import Depends, Request
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.settings import Settings
+
+__all__ = ["DbDep", "SettingsDep", "TenantDep", "Principal", "get_db", "get_settings", "get_principal"]
+
+
+@dataclass(frozen=True)
+class Principal:
+    """Who is calling: their tenant and scopes (from the API key)."""
+
+    tenant_id: str
+    scopes: frozenset[str]
+    key_id: str | None = None
+
+
+def get_settings(request: Request) -> Settings:
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+def get_db(request: Request) -> Iterator[Session]:
+    maker: sessionmaker[Session] = request.app.state.sessionmaker
+    with maker() as db:
+        yield db
+
+
+def get_principal(request: Request) -> Principal:
+    """Set by the auth middleware; a default tenant when auth is off (loopback only)."""
+    principal: Principal | None = getattr(request.state, "principal", None)
+    if principal is None:
+        settings: Settings = request.app.state.settings
+        return Principal(settings.default_tenant, frozenset({"read", "write", "admin"}))
+    return principal
+
+
+DbDep = Annotated[Session, Depends(get_db)]
+SettingsDep = Annotated[Settings, Depends(get_settings)]
+PrincipalDep = Annotated[Principal, Depends(get_principal)]
+
+
+def get_tenant(principal: PrincipalDep) -> str:
+    return principal.tenant_id
+
+
+TenantDep = Annotated[str, Depends(get_tenant)]

@@ -1,0 +1,260 @@
+"""Graphs and their versions: create, list, read, delete, upload."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Annotated, Literal
+
+from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi.concurrency import run_in_threadpool
+from fastapi.responses import JSONResponse
+
+
+from service.loader import load_version
+from storage.repo import graphs as graph_repo
+from storage.repo import idempotency as idem_repo
+
+from .deps import DbDep, SettingsDep, TenantDep
+from .errors import InvalidParams, UnsupportedMediaType
+from .schemas.common import PROBLEM_RESPONSES
+from .schemas.graphs import GraphCreate, GraphPage, GraphRead, VersionList, VersionRead
+from .spool import spool_body
+
+__all__ = ["router"]
+
+router = APIRouter(prefix="/v1/graphs", tags=["graphs"], responses=PROBLEM_RESPONSES)
+
+IdemKey = Annotated[str | None, Header(alias="Idempotency-Key", max_length=200)]
+
+FORMATS = {
+    "text/csv": "csv",
+    "application/csv": "csv",
+    "application/x-ndjson": "ndjson",
+    "application/ndjson": "ndjson",
+    "application/jsonl": "ndjson",
+    "application/json": "json",
+    "application/graphml+xml": "graphml",
+    "application/xml": "graphml",
+    "text/xml": "graphml",
+}
+
+
+def graph_read(g: object) -> GraphRead:
+    data = GraphRead.model_validate(g, from_attributes=True)
+    return data.model_copy(update={"latest_version": getattr(g, "latest_version", 0) or None})
+
+
+def version_read(graph_id: str, v: object) -> VersionRead:
+    return VersionRead(
+        graph_id=graph_id,
+        number=v.number,  # type: ignore[attr-defined]
+        created_at=v.created_at,  # type: ignore[attr-defined]
+        nodes=v.nodes,  # type: ignore[attr-defined]
+        edges=v.edges,  # type: ignore[attr-defined]
+        origin=v.origin,  # type: ignore[attr-defined]
+        summary=v.summary,  # type: ignore[attr-defined]
+    )
+
+
+def _hash(*parts: object) -> str:
+    return hashlib.sha256(json.dumps(parts, sort_keys=True, default=str).encode()).hexdigest()
+
+
+@router.post("", status_code=status.HTTP_201_CREATED, summary="Create a graph")
+def create_graph(
+    body: GraphCreate, db: DbDep, tenant: TenantDep, response: Response, idempotency_key: IdemKey = None
+) -> GraphRead:
+    route, digest = "POST /v1/graphs", _hash(body.model_dump())
+    if idempotency_key:
+        replay = idem_repo.get_replay(db, tenant, idempotency_key, route, digest)
+        if replay is not None:
+            response.headers["Location"] = replay.location or ""
+            return GraphRead.model_validate(replay.body)
+    graph = graph_repo.add_graph(db, tenant_id=tenant, **body.model_dump())
+    out = graph_read(graph)
+    location = f"/v1/graphs/{graph.id}"
+    if idempotency_key:
+        idem_repo.add_record(
+            db,
+            tenant_id=tenant,
+            key=idempotency_key,
+            route=route,
+            request_hash=digest,
+            status_code=201,
+            body=out.model_dump(mode="json"),
+            location=location,
+        )
+    db.commit()
+    response.headers["Location"] = location
+    return out
+
+
+@router.get("", summary="List graphs, newest first")
+def list_graphs(
+    db: DbDep,
+    tenant: TenantDep,
+    settings: SettingsDep,
+    limit: Annotated[int, Query(ge=1)] = 50,
+    cursor: str | None = None,
+) -> GraphPage:
+    limit = min(limit, settings.page_limit_max)
+    try:
+        rows, nxt = graph_repo.list_graphs(db, tenant, limit=limit, cursor=cursor)
+    except ValueError as exc:
+        raise InvalidParams(str(exc), field="cursor") from exc
+    return GraphPage(items=[graph_read(g) for g in rows], next_cursor=nxt)
+
+
+@router.get("/{graph_id}", summary="Read a graph")
+def read_graph(graph_id: str, db: DbDep, tenant: TenantDep) -> GraphRead:
+    return graph_read(graph_repo.get_graph(db, tenant, graph_id))
+
+
+@router.delete("/{graph_id}", status_code=status.HTTP_204_NO_CONTENT, summary="Delete a graph and everything made from it")
+def delete_graph(graph_id: str, db: DbDep, tenant: TenantDep) -> Response:
+    graph = graph_repo.get_graph(db, tenant, graph_id)
+    graph_repo.delete_graph(db, graph)
+    db.commit()
+    return Response(status_code=status.HTTP_204_NO_CONTENT)
+
+
+UPLOAD_BODY = {
+    "requestBody": {
+        "required": True,
+        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML.",
+        "content": {
+            "text/csv": {"schema": {"type": "string"}},
+            "application/x-ndjson": {"schema": {"type": "string"}},
+            "application/json": {"schema": {}},
+            "application/graphml+xml": {"schema": {"type": "string"}},
+        },
+    }
+}
+
+
+@router.post(
+    "/{graph_id}/versions",
+    status_code=status.HTTP_201_CREATED,
+    summary="Upload edges or node attributes as a new version",
+    openapi_extra=UPLOAD_BODY,
+    response_model=VersionRead,
+)
+async def create_version(
+    graph_id: str,
+    request: Request,
+    tenant: TenantDep,
+    settings: SettingsDep,
+    part: Literal["edges", "nodes"] = "edges",
+    mode: Literal["replace", "append", "remove"] = "replace",
+    duplicates: Literal["sum", "max", "last"] = "sum",
+    source: Annotated[str, Query(min_length=1, max_length=200)] = "source",
+    target: Annotated[str, Query(min_length=1, max_length=200)] = "target",
+    weight: Annotated[str | None, Query(max_length=200)] = None,
+    probability: Annotated[str | None, Query(max_length=200)] = None,
+    id: Annotated[str, Query(min_length=1, max_length=200)] = "id",
+    extra_columns: Literal["error", "ignore"] = "error",
+    idempotency_key: IdemKey = None,
+) -> JSONResponse:
+    ctype = (request.headers.get("content-type") or "").split(";")[0].strip().lower()
+    fmt = FORMATS.get(ctype)
+    if fmt is None:
+        raise UnsupportedMediaType(
+            f"Content-Type {ctype or '(none)'!r} is not read here; send one of "
+            + ", ".join(sorted({"text/csv", "application/x-ndjson", "application/json", "application/graphml+xml"})),
+            field="Content-Type",
+        )
+    if fmt == "graphml" and part == "nodes":
+        part = "edges"  # a GraphML file carries both; its nodes are applied with its edges
+    from service import ingest
+
+    maker = request.app.state.sessionmaker
+    # Check the graph exists before reading a large body.
+    with maker() as db:
+        graph = graph_repo.get_graph(db, tenant, graph_id)
+    spool = await spool_body(request, settings.spool_dir(), settings.max_upload_bytes)
+    try:
+        options = ingest.UploadOptions(
+            fmt=fmt,
+            part=part,
+            mode=mode,
+            duplicates=duplicates,
+            source=source,
+            target=target,
+            weight=weight,
+            probability=probability,
+            id=id,
+            extra_columns=extra_columns,
+        )
+        route = f"POST /v1/graphs/{graph_id}/versions"
+        digest = _hash(spool.sha256, options)
+
+        def work() -> tuple[int, dict[str, object], str]:
+            with maker() as db:
+                g = graph_repo.get_graph(db, tenant, graph_id)
+                if idempotency_key:
+                    replay = idem_repo.get_replay(db, tenant, idempotency_key, route, digest)
+                    if replay is not None:
+                        return replay.status_code, replay.body, replay.location or ""
+                based_on = g.latest_version
+                previous = load_version(db, graph_repo.get_version(db, g)) if based_on else None
+                made = ingest.build_version(
+                    spool.path, options, directed=g.directed, allow_self_loops=g.allow_self_loops, previous=previous
+                )
+                version = graph_repo.add_version(
+                    db,
+                    g,
+                    based_on=based_on,
+                    arrays=made.arrays,
+                    manifest_extra=made.manifest,
+                    summary=made.summary,
+                    origin=made.origin,
+                    nodes=made.nodes,
+                    edges=made.edges,
+                )
+                body = version_read(g.id, version).model_dump(mode="json")
+                location = f"/v1/graphs/{g.id}/versions/{version.number}"
+                if idempotency_key:
+                    idem_repo.add_record(
+                        db,
+                        tenant_id=tenant,
+                        key=idempotency_key,
+                        route=route,
+                        request_hash=digest,
+                        status_code=201,
+                        body=body,
+                        location=location,
+                    )
+                db.commit()
+                return 201, body, location
+
+        code, body, location = await run_in_threadpool(work)
+    finally:
+        spool.remove()
+    del graph
+    return JSONResponse(body, status_code=code, headers={"Location": location})
+
+
+@router.get("/{graph_id}/versions", summary="List a graph's versions")
+def list_versions(graph_id: str, db: DbDep, tenant: TenantDep) -> VersionList:
+    graph = graph_repo.get_graph(db, tenant, graph_id)
+    return VersionList(items=[version_read(graph.id, v) for v in graph_repo.list_versions(db, graph)])
+
+
+@router.get("/{graph_id}/versions/{number}", summary="Read a version's stored summary")
+def read_version(graph_id: str, number: str, db: DbDep, tenant: TenantDep) -> VersionRead:
+    graph = graph_repo.get_graph(db, tenant, graph_id)
+    return version_read(graph.id, graph_repo.get_version(db, graph, parse_version(number)))
+
+
+def parse_version(number: str | int | None) -> int | None:
+    """``latest`` (or None) means the newest version; otherwise a positive integer."""
+    if number is None or number == "latest":
+        return None
+    try:
+        n = int(number)
+    except ValueError as exc:
+        raise InvalidParams("version must be a positive integer or 'latest'", field="version") from exc
+    if n < 1:
+        raise InvalidParams("version must be a positive integer or 'latest'", field="version")
+    return n

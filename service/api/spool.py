@@ -1,0 +1,60 @@
+"""Stream a request body to a temporary file, enforcing the size limit.
+
+Memory stays bounded whatever the body's size: chunks go straight to disk,
+and a body cut off half-way (client gone) leaves only a file that is removed.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+from fastapi import Request
+from starlette.requests import ClientDisconnect
+
+from .errors import BadRequest, PayloadTooLarge
+
+__all__ = ["Spooled", "spool_body"]
+
+
+@dataclass
+class Spooled:
+    path: Path
+    size: int
+    sha256: str
+
+    def remove(self) -> None:
+        try:
+            os.unlink(self.path)
+        except FileNotFoundError:
+            pass
+
+
+async def spool_body(request: Request, folder: Path, limit: int) -> Spooled:
+    declared = request.headers.get("content-length")
+    if declared is not None and declared.isdigit() and int(declared) > limit:
+        raise PayloadTooLarge(
+            f"body of {int(declared)} bytes exceeds the limit of {limit} bytes", limit=limit
+        )
+    folder.mkdir(parents=True, exist_ok=True)
+    fd, name = tempfile.mkstemp(prefix="upload-", suffix=".part", dir=folder)
+    size, digest = 0, hashlib.sha256()
+    ok = False
+    try:
+        with os.fdopen(fd, "wb", buffering=1024 * 1024) as fh:
+            async for chunk in request.stream():
+                size += len(chunk)
+                if size > limit:
+                    raise PayloadTooLarge(f"body exceeds the limit of {limit} bytes", limit=limit)
+                digest.update(chunk)
+                fh.write(chunk)
+        ok = True
+    except ClientDisconnect as exc:
+        raise BadRequest("the client closed the connection before the body was complete") from exc
+    finally:
+        if not ok:
+            os.unlink(name)
+    return Spooled(Path(name), size, digest.hexdigest())

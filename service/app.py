@@ -1,0 +1,50 @@
+"""create_app(settings) -> FastAPI: routers, problem handlers, lifespan."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+
+from fastapi import FastAPI
+
+from storage.db import make_engine, make_sessionmaker
+
+from .api import api_router
+from .api.problems import install_problem_handlers
+from .settings import Settings
+
+__all__ = ["create_app"]
+
+DESCRIPTION = """Scores the people in a relationship graph, forecasts how far a message
+travels from chosen seeds, and recommends whom to contact next.
+
+Relationship data is personal data: upload only data you are allowed to process,
+honour consent and opt-outs, and treat forecasts as model estimates, not promises.
+Errors are RFC 9457 problem documents (`application/problem+json`)."""
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    settings = settings or Settings()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        settings.data_dir.mkdir(parents=True, exist_ok=True)
+        engine = make_engine(settings.resolved_database_url())
+        app.state.engine = engine
+        app.state.sessionmaker = make_sessionmaker(engine)
+        try:
+            yield
+        finally:
+            engine.dispose()
+
+    app = FastAPI(
+        title="Bellwether",
+        version="0.1.0",
+        summary="Outreach seeds, reach forecasts and contact recommendations over relationship graphs.",
+        description=DESCRIPTION,
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    install_problem_handlers(app)
+    app.include_router(api_router)
+    return app

@@ -1,0 +1,218 @@
+"""Turn a spooled upload plus the previous version into the next version's arrays.
+
+The HTTP layer spools the body to disk and calls :func:`build_version` in a
+worker thread; this module reads the file with :mod:`service.intake`, applies
+the upload's mode to the previous version (replace, append or remove), and
+summarises the result. Nothing is written here: the caller stores the arrays
+in one transaction, so a rejected upload leaves no trace.
+
+Modes
+-----
+``part=edges``
+    ``replace``: the file is the whole edge set; nodes that only appear in the
+    previous version's attribute data are kept (as isolated people) with their
+    attributes, the others disappear with their edges. ``append``: the file's
+    edges are added; duplicates merged by ``duplicates`` (``sum`` adds new
+    interactions to old ones). ``remove``: the file's edges are deleted; ids the
+    graph does not know are ignored and counted.
+``part=nodes``
+    ``replace``: the file's attributes replace all node attributes; new ids
+    become isolated nodes. ``append``: the file's columns overwrite those
+    nodes' values, other attributes are kept. ``remove``: the listed people
+    are removed with all their edges (erasure).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from service import intake
+from service.analytics.errors import EmptyGraph
+from service.analytics.graph import GraphArrays, NodeAttributes
+from service.analytics.summary import graph_summary
+from service.intake import merge
+from service.loader import LoadedVersion, version_arrays
+
+__all__ = ["UploadOptions", "BuiltVersion", "build_version"]
+
+
+@dataclass(frozen=True)
+class UploadOptions:
+    fmt: str
+    part: str
+    mode: str
+    duplicates: str = "sum"
+    source: str = "source"
+    target: str = "target"
+    weight: str | None = None
+    probability: str | None = None
+    id: str = "id"
+    extra_columns: str = "error"
+
+
+@dataclass
+class BuiltVersion:
+    arrays: dict[str, NDArray[Any]]
+    manifest: dict[str, Any]
+    summary: dict[str, Any]
+    origin: dict[str, Any]
+    nodes: int
+    edges: int
+    stats: dict[str, Any] = field(default_factory=dict)
+
+
+def build_version(
+    path: Path,
+    options: UploadOptions,
+    *,
+    directed: bool,
+    allow_self_loops: bool,
+    previous: LoadedVersion | None,
+) -> BuiltVersion:
+    """Read ``path`` and apply it to ``previous``; raise intake/analytics errors on bad input."""
+    if previous is None and options.mode == "remove":
+        raise intake.UploadError(reason="the graph has no version to remove from yet", column=None, line=None)
+    interner = intake.Interner.from_ids(previous.ids) if previous is not None else intake.Interner()
+    n_before = len(interner.ids)
+    edge_opts = dict(
+        source=options.source,
+        target=options.target,
+        weight=options.weight,
+        probability=options.probability,
+        allow_self_loops=allow_self_loops,
+        extra_columns=options.extra_columns,
+    )
+    edges: intake.EdgeTable | None = None
+    nodes: intake.NodeTable | None = None
+    with open(path, "rb") as fh:
+        if options.fmt == "graphml":
+            edges, nodes = intake.read_graphml(fh, interner, node_id=options.id, **edge_opts)
+        elif options.part == "edges":
+            reader = {
+                "csv": intake.read_edges_csv,
+                "ndjson": intake.read_edges_ndjson,
+                "json": intake.read_edges_json,
+            }[options.fmt]
+            edges = reader(fh, interner, **edge_opts)
+        else:
+            reader_n = {
+                "csv": intake.read_nodes_csv,
+                "ndjson": intake.read_nodes_ndjson,
+                "json": intake.read_nodes_json,
+            }[options.fmt]
+            nodes = reader_n(fh, interner, id=options.id)
+
+    stats: dict[str, Any] = {}
+    prev_graph = previous.graph if previous is not None else _empty_graph(directed)
+    prev_attrs = previous.attrs if previous is not None else NodeAttributes.empty(0)
+    prev_labels: list[str | None] = list(previous.labels) if previous is not None else []
+    ids = interner.ids
+    n = len(ids)
+
+    # 1. Edges.
+    if edges is not None:
+        if options.mode == "replace" or previous is None:
+            src, dst, w, p, merged = merge.merge_duplicates(
+                edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates
+            )
+            stats["duplicates_merged"] = int(merged)
+            graph = GraphArrays(n, directed, src, dst, w, p)
+        else:
+            base = GraphArrays(n, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
+            graph, delta_stats = merge.apply_edge_delta(base, edges, n, mode=options.mode, rule=options.duplicates)
+            stats.update(delta_stats)
+    else:
+        graph = GraphArrays(n, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
+
+    # 2. Node attributes, aligned with the (possibly grown) node set.
+    attrs = _extend_attrs(prev_attrs, n)
+    labels = prev_labels + [None] * (n - len(prev_labels))
+    if nodes is not None and not (options.part == "nodes" and options.mode == "remove"):
+        node_mode = "replace" if (options.part == "nodes" and options.mode == "replace") else "append"
+        attrs, labels = merge.merge_node_table(attrs, labels, nodes, n, mode=node_mode)
+
+    # 3. Nodes that leave the graph.
+    drop = np.zeros(n, dtype=bool)
+    if options.part == "nodes" and options.mode == "remove" and nodes is not None:
+        drop[nodes.index] = True
+        drop[n_before:] = True  # ids the graph never had are not added by a removal
+        stats["nodes_removed"] = int(drop[:n_before].sum())
+    elif edges is not None and options.mode == "remove":
+        drop[n_before:] = True
+    elif edges is not None and options.mode == "replace" and previous is not None:
+        touched = np.zeros(n, dtype=bool)
+        touched[graph.src] = True
+        touched[graph.dst] = True
+        drop = ~touched & ~_has_attributes(attrs, labels)
+    if drop.any():
+        graph, old_to_new = merge.remove_nodes(graph, drop)
+        keep = np.flatnonzero(~drop)
+        attrs = _subset_attrs(attrs, keep)
+        labels = [labels[i] for i in keep]
+        ids = [ids[i] for i in keep]
+    if graph.n == 0:
+        raise EmptyGraph("the upload leaves the graph with no nodes", field="body")
+
+    summary = graph_summary(graph)
+    arrays, manifest = version_arrays(graph, ids, attrs, labels)
+    origin = {
+        "part": options.part,
+        "mode": options.mode,
+        "format": options.fmt,
+        "duplicates": options.duplicates,
+        "records": int((edges.records if edges is not None else 0) + (len(nodes.index) if nodes is not None else 0)),
+        "based_on": previous.number if previous is not None else None,
+        **stats,
+    }
+    return BuiltVersion(arrays, manifest, summary, origin, graph.n, graph.m, stats)
+
+
+def _empty_graph(directed: bool) -> GraphArrays:
+    return GraphArrays(0, directed, np.empty(0, np.int32), np.empty(0, np.int32), np.empty(0), None)
+
+
+def _extend_attrs(a: NodeAttributes, n: int) -> NodeAttributes:
+    extra_n = n - a.n
+    if extra_n <= 0:
+        return a
+    pad = NodeAttributes.empty(extra_n)
+    return NodeAttributes(
+        n=n,
+        segment=np.concatenate((a.segment, pad.segment)),
+        segment_labels=a.segment_labels,
+        region=np.concatenate((a.region, pad.region)),
+        region_labels=a.region_labels,
+        consent=np.concatenate((a.consent, pad.consent)),
+        cost=np.concatenate((a.cost, pad.cost)),
+        value=np.concatenate((a.value, pad.value)),
+        has_consent_data=a.has_consent_data,
+        extra={k: list(v) + [None] * extra_n for k, v in a.extra.items()},
+    )
+
+
+def _subset_attrs(a: NodeAttributes, keep: NDArray[np.int64]) -> NodeAttributes:
+    return NodeAttributes(
+        n=len(keep),
+        segment=a.segment[keep],
+        segment_labels=a.segment_labels,
+        region=a.region[keep],
+        region_labels=a.region_labels,
+        consent=a.consent[keep],
+        cost=a.cost[keep],
+        value=a.value[keep],
+        has_consent_data=a.has_consent_data,
+        extra={k: [v[i] for i in keep] for k, v in a.extra.items()},
+    )
+
+
+def _has_attributes(a: NodeAttributes, labels: list[str | None]) -> NDArray[np.bool_]:
+    has = (a.segment >= 0) | (a.region >= 0) | (a.consent >= 0) | ~np.isnan(a.cost) | ~np.isnan(a.value)
+    has |= np.array([lbl is not None for lbl in labels], dtype=bool) if labels else False
+    for col in a.extra.values():
+        has |= np.array([v is not None for v in col], dtype=bool)
+    return np.asarray(has)

@@ -1,0 +1,137 @@
+"""Stored version arrays <-> analytics types, with a per-process cache.
+
+A version is immutable, so once loaded its :class:`LoadedVersion` can be
+kept and shared by every request and job in the process. The cache is keyed
+by version id and bounded by an approximate byte budget.
+"""
+
+from __future__ import annotations
+
+import json
+import threading
+from collections import OrderedDict
+from dataclasses import dataclass
+from functools import cached_property
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+from sqlalchemy.orm import Session
+
+from service.analytics.graph import GraphArrays, NodeAttributes
+from storage.arrays import decode_strings, encode_strings
+from storage.models import GraphVersion
+from storage.repo import graphs as graph_repo
+
+__all__ = ["LoadedVersion", "load_version", "version_arrays", "clear_cache", "CACHE_BYTES"]
+
+CACHE_BYTES = 2 * 1024**3
+
+
+@dataclass(frozen=True, eq=False)
+class LoadedVersion:
+    """A version ready for analytics: the graph, the caller's ids and node attributes."""
+
+    version_id: str
+    number: int
+    graph: GraphArrays
+    ids: list[str]
+    attrs: NodeAttributes
+    labels: list[str | None]
+
+    @cached_property
+    def index(self) -> dict[str, int]:
+        return {s: i for i, s in enumerate(self.ids)}
+
+    def nbytes(self) -> int:
+        g = self.graph
+        total = g.src.nbytes + g.dst.nbytes + g.weight.nbytes
+        total += 0 if g.probability is None else g.probability.nbytes
+        return total + sum(len(s) + 60 for s in self.ids) + 40 * g.n
+
+
+def version_arrays(
+    graph: GraphArrays, ids: list[str], attrs: NodeAttributes, labels: list[str | None]
+) -> tuple[dict[str, NDArray[Any]], dict[str, Any]]:
+    """Arrays and manifest entries to store a version (inverse of :func:`load_version`)."""
+    arrays: dict[str, NDArray[Any]] = {
+        "src": graph.src.astype(np.int32, copy=False),
+        "dst": graph.dst.astype(np.int32, copy=False),
+        "weight": graph.weight.astype(np.float64, copy=False),
+        "ids": encode_strings(ids),
+        "segment": attrs.segment,
+        "region": attrs.region,
+        "consent": attrs.consent,
+        "cost": attrs.cost,
+        "value": attrs.value,
+    }
+    if graph.probability is not None:
+        arrays["probability"] = graph.probability
+    if any(lbl is not None for lbl in labels):
+        arrays["labels"] = np.frombuffer(json.dumps(labels).encode(), dtype=np.uint8)
+    if attrs.extra:
+        arrays["extra"] = np.frombuffer(json.dumps(attrs.extra).encode(), dtype=np.uint8)
+    extra = {
+        "n": graph.n,
+        "directed": graph.directed,
+        "segment_labels": list(attrs.segment_labels),
+        "region_labels": list(attrs.region_labels),
+        "has_consent_data": attrs.has_consent_data,
+        "extra_columns": sorted(attrs.extra),
+    }
+    return arrays, extra
+
+
+_cache: OrderedDict[str, LoadedVersion] = OrderedDict()
+_cache_lock = threading.Lock()
+
+
+def clear_cache() -> None:
+    with _cache_lock:
+        _cache.clear()
+
+
+def load_version(db: Session, version: GraphVersion) -> LoadedVersion:
+    """The version's graph, ids and attributes (cached per process)."""
+    with _cache_lock:
+        hit = _cache.get(version.id)
+        if hit is not None:
+            _cache.move_to_end(version.id)
+            return hit
+    loaded = _load(db, version)
+    with _cache_lock:
+        _cache[version.id] = loaded
+        total = sum(v.nbytes() for v in _cache.values())
+        while total > CACHE_BYTES and len(_cache) > 1:
+            _, old = _cache.popitem(last=False)
+            total -= old.nbytes()
+    return loaded
+
+
+def _load(db: Session, version: GraphVersion) -> LoadedVersion:
+    man = version.manifest
+    a = graph_repo.get_version_arrays(db, version)
+    n = int(man["n"])
+    g = GraphArrays(
+        n=n,
+        directed=bool(man["directed"]),
+        src=a["src"],
+        dst=a["dst"],
+        weight=a["weight"],
+        probability=a.get("probability"),
+    )
+    extra = json.loads(a["extra"].tobytes()) if "extra" in a else {}
+    attrs = NodeAttributes(
+        n=n,
+        segment=a["segment"],
+        segment_labels=tuple(man["segment_labels"]),
+        region=a["region"],
+        region_labels=tuple(man["region_labels"]),
+        consent=a["consent"],
+        cost=a["cost"],
+        value=a["value"],
+        has_consent_data=bool(man["has_consent_data"]),
+        extra=extra,
+    )
+    labels = json.loads(a["labels"].tobytes()) if "labels" in a else [None] * n
+    return LoadedVersion(version.id, version.number, g, decode_strings(a["ids"], n), attrs, labels)

@@ -1,0 +1,60 @@
+"""Every setting of the service, read once from ``BELLWETHER_*`` environment variables."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from pydantic import Field
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+__all__ = ["Settings"]
+
+GiB = 1024**3
+MiB = 1024**2
+
+
+class Settings(BaseSettings):
+    model_config = SettingsConfigDict(env_prefix="BELLWETHER_", extra="ignore")
+
+    data_dir: Path = Field(default=Path("./bellwether-data"), description="Embedded data folder.")
+    database_url: str | None = Field(
+        default=None, description="SQLAlchemy URL; default sqlite file under data_dir."
+    )
+    host: str = "127.0.0.1"
+    port: int = 8000
+
+    # Limits
+    max_upload_bytes: int = Field(default=2 * GiB, description="Upload body limit (413 past it).")
+    max_body_bytes: int = Field(default=8 * MiB, description="Body limit of non-upload routes.")
+    page_limit_max: int = 1000
+    page_limit_default: int = 50
+
+    # Auth: keys are required unless disabled, which is allowed only on loopback.
+    auth_disabled: bool = False
+    default_tenant: str = "default"
+
+    # Jobs
+    job_lease_seconds: float = 30.0
+    job_heartbeat_seconds: float = 5.0
+    job_poll_seconds: float = 0.2
+    job_max_attempts: int = 3
+    job_max_queued_per_tenant: int = 1000
+    wait_max_seconds: float = 60.0
+    retention_days: float = 30.0
+
+    # Webhooks
+    webhook_allow_loopback: bool = False
+    webhook_timeout_seconds: float = 10.0
+    webhook_max_attempts: int = 6
+
+    # Rate limit (token bucket per key)
+    rate_limit_per_second: float = 50.0
+    rate_limit_burst: int = 200
+
+    def resolved_database_url(self) -> str:
+        if self.database_url:
+            return self.database_url
+        return f"sqlite:///{(self.data_dir / 'bellwether.sqlite3').resolve()}"
+
+    def spool_dir(self) -> Path:
+        return self.data_dir / "spool"

@@ -1,0 +1,87 @@
+"""Layer rules: each package imports only what its layer may (STYLE.md, DEVELOPERS.md)."""
+
+from __future__ import annotations
+
+import ast
+import importlib
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+
+# package -> top-level modules it must never import
+FORBIDDEN = {
+    "service/analytics": {"sqlalchemy", "fastapi", "starlette", "pydantic", "httpx", "storage", "uvicorn", "alembic"},
+    "service/intake": {"sqlalchemy", "fastapi", "starlette", "pydantic", "httpx", "storage", "uvicorn", "alembic"},
+    "storage": {"service", "fastapi", "starlette", "pydantic", "uvicorn", "httpx"},
+    "service/jobs": {"fastapi", "starlette", "uvicorn"},
+}
+# inside service: package -> sibling service packages it must not import
+FORBIDDEN_SERVICE = {
+    "service/analytics": {"service.api", "service.jobs", "service.intake", "service.cli", "service.app", "service.settings", "service.loader", "service.ingest"},
+    "service/intake": {"service.api", "service.jobs", "service.cli", "service.app", "service.settings", "service.loader", "service.ingest"},
+    "service/jobs": {"service.api", "service.cli", "service.app"},
+}
+
+
+def imports_of(path: Path) -> set[str]:
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    names: set[str] = set()
+    pkg = ".".join(path.relative_to(ROOT).with_suffix("").parts[:-1])
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Import):
+            names.update(a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom):
+            if node.level:
+                base = pkg.split(".")
+                base = base[: len(base) - node.level + 1]
+                mod = ".".join(base + ([node.module] if node.module else []))
+            else:
+                mod = node.module or ""
+            names.add(mod)
+    return names
+
+
+def py_files(folder: str) -> list[Path]:
+    return sorted((ROOT / folder).rglob("*.py"))
+
+
+@pytest.mark.parametrize("folder", sorted(FORBIDDEN))
+def test_layers_import_only_what_they_may(folder: str) -> None:
+    bad = []
+    for f in py_files(folder):
+        for name in imports_of(f):
+            top = name.split(".")[0]
+            if top in FORBIDDEN[folder]:
+                bad.append(f"{f.relative_to(ROOT)} imports {name}")
+            for sib in FORBIDDEN_SERVICE.get(folder, ()):
+                if name == sib or name.startswith(sib + "."):
+                    bad.append(f"{f.relative_to(ROOT)} imports {name}")
+    assert not bad, "\n".join(bad)
+
+
+def test_only_app_and_cli_build_settings() -> None:
+    bad = []
+    for f in py_files("service") + py_files("storage"):
+        rel = f.relative_to(ROOT).as_posix()
+        if rel.startswith(("service/cli/", "service/app.py", "service/settings.py")):
+            continue
+        if "Settings()" in f.read_text(encoding="utf-8"):
+            bad.append(rel)
+    assert not bad, bad
+
+
+@pytest.mark.parametrize("package", ["service.analytics", "service.intake", "storage.models"])
+def test_package_reexports_agree_with_modules(package: str) -> None:
+    pkg = importlib.import_module(package)
+    exported = set(getattr(pkg, "__all__", ()))
+    folder = ROOT / package.replace(".", "/")
+    for f in sorted(folder.glob("*.py")):
+        if f.name.startswith("_"):
+            continue
+        mod = importlib.import_module(f"{package}.{f.stem}")
+        names = set(getattr(mod, "__all__", ()))
+        assert hasattr(mod, "__all__"), f"{package}.{f.stem} has no __all__"
+        missing = names - exported
+        assert not missing, f"{package} does not re-export {sorted(missing)} from {f.stem}"
