@@ -24,7 +24,7 @@ Modes
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -76,7 +76,7 @@ def build_version(
 ) -> BuiltVersion:
     """Read ``path`` and apply it to ``previous``; raise intake/analytics errors on bad input."""
     if previous is None and options.mode == "remove":
-        raise intake.UploadError(reason="the graph has no version to remove from yet", column=None, line=None)
+        raise intake.UploadError("the graph has no version to remove from yet")
     interner = intake.Interner.from_ids(previous.ids) if previous is not None else intake.Interner()
     n_before = len(interner.ids)
     edge_opts = dict(
@@ -91,7 +91,14 @@ def build_version(
     nodes: intake.NodeTable | None = None
     with open(path, "rb") as fh:
         if options.fmt == "graphml":
-            edges, nodes = intake.read_graphml(fh, interner, node_id=options.id, **edge_opts)
+            edges, nodes = intake.read_graphml(
+                fh,
+                interner,
+                weight=options.weight,
+                probability=options.probability,
+                allow_self_loops=allow_self_loops,
+                extra_columns=options.extra_columns,  # type: ignore[arg-type]
+            )
         elif options.part == "edges":
             reader = {
                 "csv": intake.read_edges_csv,
@@ -109,63 +116,61 @@ def build_version(
 
     stats: dict[str, Any] = {}
     prev_graph = previous.graph if previous is not None else _empty_graph(directed)
-    prev_attrs = previous.attrs if previous is not None else NodeAttributes.empty(0)
-    prev_labels: list[str | None] = list(previous.labels) if previous is not None else []
-    ids = interner.ids
-    n = len(ids)
+    prev_attrs = previous.attrs if previous is not None else None
+    remove_edges = edges is not None and options.mode == "remove" and previous is not None
+    # A removal never adds people: ids the graph does not know only count as not found.
+    n = n_before if remove_edges or (options.part == "nodes" and options.mode == "remove") else len(interner.ids)
+    ids = interner.ids[:n]
 
     # 1. Edges.
-    if edges is not None:
-        if options.mode == "replace" or previous is None:
-            src, dst, w, p, merged = merge.merge_duplicates(
-                edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates
-            )
-            stats["duplicates_merged"] = int(merged)
-            graph = GraphArrays(n, directed, src, dst, w, p)
-        else:
-            base = GraphArrays(n, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
-            graph, delta_stats = merge.apply_edge_delta(base, edges, n, mode=options.mode, rule=options.duplicates)
-            stats.update(delta_stats)
+    if edges is not None and (options.mode == "replace" or previous is None):
+        src, dst, w, p, merged = merge.merge_duplicates(
+            edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates
+        )
+        stats["duplicates_merged"] = int(merged)
+        graph = GraphArrays(n, directed, src, dst, w, p)
+    elif edges is not None:
+        base = GraphArrays(n_before, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
+        graph, delta = merge.apply_edge_delta(base, edges, n, mode=options.mode, rule=options.duplicates)  # type: ignore[arg-type]
+        stats.update({k: v for k, v in asdict(delta).items() if k in ("added", "merged", "removed", "not_found")})
     else:
         graph = GraphArrays(n, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
 
     # 2. Node attributes, aligned with the (possibly grown) node set.
-    attrs = _extend_attrs(prev_attrs, n)
-    labels = prev_labels + [None] * (n - len(prev_labels))
     if nodes is not None and not (options.part == "nodes" and options.mode == "remove"):
         node_mode = "replace" if (options.part == "nodes" and options.mode == "replace") else "append"
-        attrs, labels = merge.merge_node_table(attrs, labels, nodes, n, mode=node_mode)
+        attrs = merge.merge_node_table(prev_attrs, nodes, n, mode=node_mode)  # type: ignore[arg-type]
+    else:
+        attrs = _extend_attrs(prev_attrs if prev_attrs is not None else NodeAttributes.empty(0), n)
 
     # 3. Nodes that leave the graph.
     drop = np.zeros(n, dtype=bool)
     if options.part == "nodes" and options.mode == "remove" and nodes is not None:
-        drop[nodes.index] = True
-        drop[n_before:] = True  # ids the graph never had are not added by a removal
-        stats["nodes_removed"] = int(drop[:n_before].sum())
-    elif edges is not None and options.mode == "remove":
-        drop[n_before:] = True
+        known = nodes.index[nodes.index < n_before]
+        drop[known] = True
+        stats["nodes_removed"] = int(drop.sum())
+        stats["not_found"] = int(len(nodes.index) - len(known))
     elif edges is not None and options.mode == "replace" and previous is not None:
         touched = np.zeros(n, dtype=bool)
         touched[graph.src] = True
         touched[graph.dst] = True
-        drop = ~touched & ~_has_attributes(attrs, labels)
+        drop = ~touched & ~_has_attributes(attrs)
+        drop[n_before:] = False
     if drop.any():
-        graph, old_to_new = merge.remove_nodes(graph, drop)
-        keep = np.flatnonzero(~drop)
-        attrs = _subset_attrs(attrs, keep)
-        labels = [labels[i] for i in keep]
-        ids = [ids[i] for i in keep]
+        graph, _ = merge.remove_nodes(graph, drop)
+        attrs = merge.select_node_attributes(attrs, ~drop)
+        ids = [ident for ident, gone in zip(ids, drop.tolist()) if not gone]
     if graph.n == 0:
         raise EmptyGraph("the upload leaves the graph with no nodes", field="body")
 
     summary = graph_summary(graph)
-    arrays, manifest = version_arrays(graph, ids, attrs, labels)
+    arrays, manifest = version_arrays(graph, ids, attrs)
     origin = {
         "part": options.part,
         "mode": options.mode,
         "format": options.fmt,
         "duplicates": options.duplicates,
-        "records": int((edges.records if edges is not None else 0) + (len(nodes.index) if nodes is not None else 0)),
+        "records": int((edges.records if edges is not None else 0) + (nodes.records if nodes is not None else 0)),
         "based_on": previous.number if previous is not None else None,
         **stats,
     }
@@ -195,24 +200,8 @@ def _extend_attrs(a: NodeAttributes, n: int) -> NodeAttributes:
     )
 
 
-def _subset_attrs(a: NodeAttributes, keep: NDArray[np.int64]) -> NodeAttributes:
-    return NodeAttributes(
-        n=len(keep),
-        segment=a.segment[keep],
-        segment_labels=a.segment_labels,
-        region=a.region[keep],
-        region_labels=a.region_labels,
-        consent=a.consent[keep],
-        cost=a.cost[keep],
-        value=a.value[keep],
-        has_consent_data=a.has_consent_data,
-        extra={k: [v[i] for i in keep] for k, v in a.extra.items()},
-    )
-
-
-def _has_attributes(a: NodeAttributes, labels: list[str | None]) -> NDArray[np.bool_]:
+def _has_attributes(a: NodeAttributes) -> NDArray[np.bool_]:
     has = (a.segment >= 0) | (a.region >= 0) | (a.consent >= 0) | ~np.isnan(a.cost) | ~np.isnan(a.value)
-    has |= np.array([lbl is not None for lbl in labels], dtype=bool) if labels else False
     for col in a.extra.values():
         has |= np.array([v is not None for v in col], dtype=bool)
     return np.asarray(has)

@@ -37,7 +37,11 @@ class LoadedVersion:
     graph: GraphArrays
     ids: list[str]
     attrs: NodeAttributes
-    labels: list[str | None]
+
+    @property
+    def labels(self) -> list[str | None]:
+        """Display labels (the ``label`` column), None where not given."""
+        return self.attrs.extra.get("label") or [None] * self.graph.n
 
     @cached_property
     def index(self) -> dict[str, int]:
@@ -51,7 +55,7 @@ class LoadedVersion:
 
 
 def version_arrays(
-    graph: GraphArrays, ids: list[str], attrs: NodeAttributes, labels: list[str | None]
+    graph: GraphArrays, ids: list[str], attrs: NodeAttributes
 ) -> tuple[dict[str, NDArray[Any]], dict[str, Any]]:
     """Arrays and manifest entries to store a version (inverse of :func:`load_version`)."""
     arrays: dict[str, NDArray[Any]] = {
@@ -67,8 +71,6 @@ def version_arrays(
     }
     if graph.probability is not None:
         arrays["probability"] = graph.probability
-    if any(lbl is not None for lbl in labels):
-        arrays["labels"] = np.frombuffer(json.dumps(labels).encode(), dtype=np.uint8)
     if attrs.extra:
         arrays["extra"] = np.frombuffer(json.dumps(attrs.extra).encode(), dtype=np.uint8)
     extra = {
@@ -133,5 +135,4 @@ def _load(db: Session, version: GraphVersion) -> LoadedVersion:
         has_consent_data=bool(man["has_consent_data"]),
         extra=extra,
     )
-    labels = json.loads(a["labels"].tobytes()) if "labels" in a else [None] * n
-    return LoadedVersion(version.id, version.number, g, decode_strings(a["ids"], n), attrs, labels)
+    return LoadedVersion(version.id, version.number, g, decode_strings(a["ids"], n), attrs)
