@@ -45,10 +45,11 @@ def snap_graph(name: str, *, directed: bool, drop_self_loops: bool = True):
     from service.analytics.graph import GraphArrays
 
     e = snap_edges(name)
-    if drop_self_loops:
-        e = e[e[:, 0] != e[:, 1]]
+    # Ids first, so that a node whose only edge is a self-loop is kept.
     ids, inv = np.unique(e.ravel(), return_inverse=True)
     inv = inv.reshape(-1, 2).astype(np.int32)
+    if drop_self_loops:
+        inv = inv[inv[:, 0] != inv[:, 1]]
     src, dst = inv[:, 0], inv[:, 1]
     if not directed:
         lo, hi = np.minimum(src, dst), np.maximum(src, dst)

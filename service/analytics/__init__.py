@@ -1,6 +1,181 @@
 """Pure analytics over graphs held as numpy arrays and igraph graphs.
 
+Holds the graph types and probability models (graph), the ingest summary
+(summary), node scores (centrality), communities, the graph profile,
+diffusion and forecasts, seed selection, tie strength, link prediction,
+next contacts and their evaluation. Each function cites its paper.
+
 May import the standard library, numpy, scipy, igraph and numba only: no
-database, HTTP or pydantic code. Public names are re-exported here by the
-lead once each module lands (a test checks ``__all__`` agrees).
+database, HTTP or pydantic code. Every public name of every module is
+re-exported here (tests/test_architecture.py checks the two agree).
 """
+
+from __future__ import annotations
+
+from .centrality import (
+    DEFAULT_MEASURES,
+    MEASURES,
+    ScoreResult,
+    betweenness,
+    constraint,
+    coreness,
+    default_measures,
+    degree,
+    eigenvector_centrality,
+    harmonic_closeness,
+    hits,
+    local_clustering,
+    pagerank,
+    rk_sample_size,
+    scores,
+    strength,
+)
+from .communities import (
+    community_summary,
+    leiden,
+    modularity,
+)
+from .errors import (
+    AnalyticsError,
+    Cancelled,
+    ComputationFailed,
+    EmptyGraph,
+    InfeasibleRequest,
+    InvalidParameter,
+    UnknownNode,
+)
+from .graph import (
+    Arcs,
+    Csr,
+    DiffusionGraph,
+    GraphArrays,
+    NodeAttributes,
+    PROBABILITY_SCHEMES,
+    ProbabilityScheme,
+    arcs,
+    check_lt_weights,
+    csr,
+    diffusion_graph,
+    edge_probabilities,
+    to_igraph,
+)
+from .linkpred_eval import (
+    DEFAULT_EVAL_METHODS,
+    auc,
+    evaluate_link_prediction,
+    precision_at_k,
+)
+from .profile import (
+    graph_profile,
+    log_binned_histogram,
+    powerlaw_alpha,
+    powerlaw_fit,
+    sample_distances,
+)
+from .recommend import (
+    LINK_METHODS,
+    LinkMethod,
+    Recommendation,
+    SharedContact,
+    SparseScores,
+    adamic_adar,
+    common_neighbours,
+    jaccard,
+    personalized_pagerank,
+    preferential_attachment,
+    recommend_all,
+    recommend_for,
+    resource_allocation,
+    weighted_adamic_adar,
+)
+from .referrals import (
+    NextContact,
+    ReferralAsk,
+    next_contacts,
+    referral_asks,
+)
+from .summary import (
+    graph_summary,
+)
+from .ties import (
+    DEFAULT_SHARES,
+    NeighbourIndex,
+    TieStrength,
+    neighbour_index,
+    tie_strength,
+)
+
+__all__ = [
+    "AnalyticsError",
+    "Arcs",
+    "Cancelled",
+    "ComputationFailed",
+    "Csr",
+    "DEFAULT_EVAL_METHODS",
+    "DEFAULT_MEASURES",
+    "DEFAULT_SHARES",
+    "DiffusionGraph",
+    "EmptyGraph",
+    "GraphArrays",
+    "InfeasibleRequest",
+    "InvalidParameter",
+    "LINK_METHODS",
+    "LinkMethod",
+    "MEASURES",
+    "NeighbourIndex",
+    "NextContact",
+    "NodeAttributes",
+    "PROBABILITY_SCHEMES",
+    "ProbabilityScheme",
+    "Recommendation",
+    "ReferralAsk",
+    "ScoreResult",
+    "SharedContact",
+    "SparseScores",
+    "TieStrength",
+    "UnknownNode",
+    "adamic_adar",
+    "arcs",
+    "auc",
+    "betweenness",
+    "check_lt_weights",
+    "common_neighbours",
+    "community_summary",
+    "constraint",
+    "coreness",
+    "csr",
+    "default_measures",
+    "degree",
+    "diffusion_graph",
+    "edge_probabilities",
+    "eigenvector_centrality",
+    "evaluate_link_prediction",
+    "graph_profile",
+    "graph_summary",
+    "harmonic_closeness",
+    "hits",
+    "jaccard",
+    "leiden",
+    "local_clustering",
+    "log_binned_histogram",
+    "modularity",
+    "neighbour_index",
+    "next_contacts",
+    "pagerank",
+    "personalized_pagerank",
+    "powerlaw_alpha",
+    "powerlaw_fit",
+    "precision_at_k",
+    "preferential_attachment",
+    "recommend_all",
+    "recommend_for",
+    "referral_asks",
+    "resource_allocation",
+    "rk_sample_size",
+    "sample_distances",
+    "scores",
+    "strength",
+    "tie_strength",
+    "to_igraph",
+    "weighted_adamic_adar",
+]

@@ -160,7 +160,8 @@ def to_igraph(g: GraphArrays, *, weights: bool = True) -> object:
     """
     import igraph
 
-    edges = np.column_stack((g.src, g.dst)) if g.m else np.empty((0, 2), dtype=np.int32)
+    # igraph converts a zip of Python ints about 3x faster than a numpy array.
+    edges = zip(g.src.tolist(), g.dst.tolist()) if g.m else []
     ig = igraph.Graph(n=g.n, edges=edges, directed=g.directed)
     if weights and g.m:
         ig.es["weight"] = g.weight.tolist()
