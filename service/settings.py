@@ -37,15 +37,34 @@ class Settings(BaseSettings):
     job_lease_seconds: float = 30.0
     job_heartbeat_seconds: float = 5.0
     job_poll_seconds: float = 0.2
+    job_poll_max_seconds: float = Field(default=2.0, description="Idle polling backs off up to this.")
     job_max_attempts: int = 3
     job_max_queued_per_tenant: int = 1000
+    job_progress_interval_seconds: float = Field(default=0.5, description="Progress writes at most this often.")
+    job_housekeeping_seconds: float = Field(
+        default=1.0, description="Workers requeue expired leases, fire schedules, send webhooks this often."
+    )
+    job_shutdown_grace_seconds: float = Field(
+        default=10.0, description="On SIGTERM a running job may finish this long, then it is given back."
+    )
+    job_retry_base_seconds: float = Field(default=5.0, description="First retry delay of a transient failure.")
+    job_retry_max_seconds: float = 600.0
+    job_kind_modules: list[str] = Field(
+        default_factory=list, description="Extra modules that register job kinds on import (JSON list)."
+    )
+    worker_restart_backoff_seconds: float = Field(
+        default=1.0, description="serve --workers waits this long (doubling) before restarting a dead worker."
+    )
     wait_max_seconds: float = 60.0
     retention_days: float = 30.0
+    retention_purge_every_seconds: float = 3600.0
 
     # Webhooks
     webhook_allow_loopback: bool = False
     webhook_timeout_seconds: float = 10.0
     webhook_max_attempts: int = 6
+    webhook_backoff_base_seconds: float = Field(default=10.0, description="First retry delay (doubling).")
+    webhook_backoff_max_seconds: float = 3600.0
 
     # Rate limit (token bucket per key)
     rate_limit_per_second: float = 50.0

@@ -17,6 +17,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from service.analytics import errors as aerr
 from service.intake import errors as ierr
+from service.jobs import errors as jerr
 from storage import errors as serr
 
 from . import errors as apierr
@@ -50,6 +51,11 @@ PROBLEM_TYPES: list[tuple[type[Exception], ProblemType]] = [
     (aerr.InvalidParameter, ProblemType(422, "invalid-parameter", "Invalid parameter")),
     (aerr.Cancelled, ProblemType(409, "cancelled", "Computation cancelled")),
     (aerr.ComputationFailed, ProblemType(500, "computation-failed", "Computation failed")),
+    (jerr.UnknownKind, ProblemType(422, "unknown-kind", "Unknown job kind")),
+    (jerr.InvalidJobParams, ProblemType(422, "invalid-parameter", "Invalid parameter")),
+    (jerr.UnsafeWebhookUrl, ProblemType(422, "unsafe-webhook-url", "Webhook URL refused")),
+    (jerr.InvalidSchedule, ProblemType(422, "invalid-schedule", "Invalid schedule")),
+    (jerr.ResultNotReady, ProblemType(404, "result-not-ready", "Result not available")),
     (apierr.BadRequest, ProblemType(400, "bad-request", "Bad request")),
     (apierr.InvalidParams, ProblemType(422, "invalid-parameter", "Invalid parameter")),
     (apierr.PayloadTooLarge, ProblemType(413, "payload-too-large", "Request body too large")),
@@ -87,7 +93,8 @@ def problem_body(ptype: ProblemType, detail: str, instance: str, **extra: Any) -
         "detail": detail,
         "instance": instance,
     }
-    body.update({k: v for k, v in extra.items() if v is not None})
+    # Extension members never overwrite the standard ones (RFC 9457 section 3.2).
+    body.update({k: v for k, v in extra.items() if v is not None and k not in body})
     return body
 
 

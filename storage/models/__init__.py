@@ -8,7 +8,7 @@ from .graph import Graph, GraphVersion, VersionArray
 from .idempotency import IdempotencyRecord
 from .job import FINISHED_STATUSES, JOB_STATUSES, Job, JobResult, ResultArray
 from .schedule import Schedule
-from .webhook import Webhook, WebhookDelivery
+from .webhook import DELIVERY_STATUSES, Webhook, WebhookDelivery
 
 __all__ = [
     "Base",
@@ -26,6 +26,7 @@ __all__ = [
     "Schedule",
     "Webhook",
     "WebhookDelivery",
+    "DELIVERY_STATUSES",
     "IdempotencyRecord",
     "ApiKey",
 ]

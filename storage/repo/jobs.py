@@ -37,6 +37,7 @@ __all__ = [
     "write_session",
     "add_job",
     "get_job",
+    "get_by_idempotency_key",
     "get_job_any_tenant",
     "list_jobs",
     "count_queued",
@@ -95,7 +96,7 @@ def add_job(
     key are settled by the unique constraint.
     """
     if idempotency_key is not None:
-        existing = _by_key(db, tenant_id, idempotency_key, request_hash)
+        existing = get_by_idempotency_key(db, tenant_id, idempotency_key, request_hash)
         if existing is not None:
             return existing, False
     job = Job(
@@ -125,14 +126,15 @@ def add_job(
     except IntegrityError:
         if idempotency_key is None:
             raise
-        existing = _by_key(db, tenant_id, idempotency_key, request_hash)
+        existing = get_by_idempotency_key(db, tenant_id, idempotency_key, request_hash)
         if existing is None:
             raise
         return existing, False
     return job, True
 
 
-def _by_key(db: Session, tenant_id: str, key: str, request_hash: str | None) -> Job | None:
+def get_by_idempotency_key(db: Session, tenant_id: str, key: str, request_hash: str | None) -> Job | None:
+    """The tenant's job made with ``key``; :class:`Conflict` if it was made from another request."""
     job = db.execute(
         select(Job).where(Job.tenant_id == tenant_id, Job.idempotency_key == key)
     ).scalar_one_or_none()
@@ -186,7 +188,7 @@ def list_jobs(
         when, ident = decode_cursor(cursor)
         q = q.where(tuple_(Job.created_at, Job.id) < tuple_(when, ident))
     q = q.order_by(Job.created_at.desc(), Job.id.desc()).limit(limit + 1)
-    rows = list(db.execute(q).scalars())
+    rows = list(db.execute(q, execution_options={"populate_existing": True}).scalars())
     nxt = encode_cursor(rows[limit - 1].created_at, rows[limit - 1].id) if len(rows) > limit else None
     return rows[:limit], nxt
 
@@ -234,21 +236,22 @@ def claim_next(db: Session, worker_id: str, lease_seconds: float, now: datetime)
     return job
 
 
-def _ours(job: Job, worker_id: str) -> Any:
+def _ours(job: Job, owner: str) -> Any:
     return (
         (Job.id == job.id)
         & (Job.status == "running")
-        & (Job.worker_id == worker_id)
+        & (Job.worker_id == owner)
         & (Job.attempts == job.attempts)
     )
 
 
-def _update_ours(db: Session, job: Job, worker_id: str, **values: Any) -> None:
+def _update_ours(db: Session, job: Job, owner: str, **values: Any) -> None:
+    """Update the run ``(job.id, owner, job.attempts)`` if it is still running; else LeaseLost."""
     res = db.execute(
-        update(Job).where(_ours(job, worker_id)).values(**values).execution_options(synchronize_session=False)
+        update(Job).where(_ours(job, owner)).values(**values).execution_options(synchronize_session=False)
     )
     if res.rowcount != 1:  # type: ignore[attr-defined]
-        raise LeaseLost(job_id=job.id, worker_id=worker_id)
+        raise LeaseLost(job_id=job.id, worker_id=owner)
 
 
 def heartbeat(db: Session, job: Job, worker_id: str, lease_seconds: float, now: datetime) -> bool:
@@ -359,7 +362,15 @@ def finish_success(
     :class:`LeaseLost` (and nothing written) when the run is no longer ours.
     """
     _update_ours(
-        db, job, worker_id, status="succeeded", progress=1.0, finished_at=now, lease_until=None, error=None
+        db,
+        job,
+        worker_id,
+        status="succeeded",
+        progress=1.0,
+        finished_at=now,
+        lease_until=None,
+        error=None,
+        version=job.version,
     )
     return add_result(db, job.id, data, arrays, now)
 
@@ -425,7 +436,7 @@ def cancel(db: Session, tenant_id: str, job_id: str, now: datetime) -> tuple[Job
     )
     db.refresh(job)
     if job.status in ("succeeded", "failed"):
-        raise Conflict(f"job already {job.status}; it cannot be cancelled", job_id=job.id, status=job.status)
+        raise Conflict(f"job already {job.status}; it cannot be cancelled", job_id=job.id, job_status=job.status)
     return job, False
 
 

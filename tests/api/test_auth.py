@@ -72,7 +72,7 @@ def test_keys_are_random_hashed_and_revocable(sqlite_url: str) -> None:
     with make_sessionmaker(engine)() as db:
         k1, p1 = key_repo.add_key(db, tenant_id="t", scopes=["read"])
         k2, p2 = key_repo.add_key(db, tenant_id="t", scopes=["admin"])
-        assert p1 != p2 and len(p1.split("_")[2]) >= 40  # 32 random bytes, base64url
+        assert p1 != p2 and len(p1.split("_", 2)[2]) >= 40  # 32 random bytes, base64url
         assert p1 not in (k1.key_hash, k1.prefix) and k1.key_hash == key_repo.hash_key(p1)
         assert key_repo.get_key_by_secret(db, p1).id == k1.id  # type: ignore[union-attr]
         key_repo.revoke_key(db, k1.prefix)

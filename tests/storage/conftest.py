@@ -2,6 +2,6 @@
 
 from __future__ import annotations
 
-from tests.jobs.dbs import db_url, engine, maker
+from tests.jobs.dbs import engine, jobs_db_url, maker
 
-__all__ = ["db_url", "engine", "maker"]
+__all__ = ["engine", "jobs_db_url", "maker"]

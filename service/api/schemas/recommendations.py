@@ -1,0 +1,148 @@
+"""Introductions, next contacts and referral asks."""
+
+from __future__ import annotations
+
+from typing import Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+__all__ = [
+    "Method",
+    "METHOD_ALIASES",
+    "SharedContactRead",
+    "RecommendationRead",
+    "RecommendationPage",
+    "ProbabilitySpec",
+    "NextContactsRequest",
+    "AskRead",
+    "NextContactRead",
+    "ReferralGroupRead",
+    "UnknownAdopters",
+    "NextContactsPage",
+]
+
+Method = Literal[
+    "adamic_adar",
+    "resource_allocation",
+    "jaccard",
+    "common_neighbours",
+    "preferential_attachment",
+    "personalized_pagerank",
+    "weighted_adamic_adar",
+    "tie_strength",
+]
+#: Accepted spellings -> the analytics method name.
+METHOD_ALIASES = {"tie_strength": "weighted_adamic_adar"}
+
+Scheme = Literal["weighted_cascade", "uniform", "trivalency", "per_interaction", "normalized", "explicit"]
+FollowOn = Literal["degree", "in_degree", "out_degree", "strength", "pagerank", "coreness"]
+
+
+class SharedContactRead(BaseModel):
+    node_id: str
+    tie_to_person: float = Field(description="Tie strength in [0, 1] between the person and this contact.")
+    tie_to_candidate: float = Field(description="Tie strength in [0, 1] between this contact and the candidate.")
+
+
+class RecommendationRead(BaseModel):
+    node_id: str = Field(description="The person suggested for an introduction.")
+    score: float = Field(description="The method's score (higher is better; scales differ between methods).")
+    common: int = Field(description="Number of contacts the two share.")
+    shared_contacts: list[SharedContactRead] = Field(
+        description="The strongest shared contacts (by the weaker of the two ties), strongest first."
+    )
+
+
+class RecommendationPage(BaseModel):
+    graph_id: str
+    version: int
+    node_id: str
+    method: str = Field(description="The method used (aliases resolved).")
+    contactable: bool
+    items: list[RecommendationRead]
+
+
+class ProbabilitySpec(BaseModel):
+    """How edges get activation probabilities (see the diffusion settings)."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    scheme: Scheme = "weighted_cascade"
+    p: float | None = Field(default=None, ge=0, le=1, description="Probability of every edge (uniform).")
+    q: float | None = Field(default=None, ge=0, le=1, description="Per-interaction probability (per_interaction).")
+
+
+class NextContactsRequest(BaseModel):
+    """Who has adopted, and how to rank the people they reach."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    adopters: list[str] = Field(
+        min_length=1, description="Ids of the people who have adopted; duplicates are ignored."
+    )
+    limit: int | None = Field(
+        default=50, ge=1, description="At most this many people (grouped: adopters); null for all."
+    )
+    model: Literal["ic", "lt"] = Field(default="ic", description="Independent Cascade or Linear Threshold.")
+    probability: ProbabilitySpec = Field(default_factory=ProbabilitySpec)
+    random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds the trivalency draw.")
+    version: int | Literal["latest"] | None = Field(default=None, description="Version number; newest by default.")
+    follow_on: FollowOn | None = Field(
+        default=None, description="Blend in this per-node measure of onward reach (scaled to its maximum)."
+    )
+    blend: float | None = Field(
+        default=None, ge=0, le=1,
+        description="Weight of follow_on in the score: (1 - blend) exposure + blend follow_on. "
+        "Default 0.5 with follow_on, else 0.",
+    )
+    group_by: Literal["adopter"] | None = Field(
+        default=None, description="'adopter': for each adopter, whom they should be asked to refer."
+    )
+    per_adopter: int = Field(default=5, ge=1, le=1000, description="Targets per adopter (group_by=adopter).")
+    strict: bool = Field(
+        default=True, description="Unknown adopter ids are an error (true) or skipped and counted (false)."
+    )
+
+
+class AskRead(BaseModel):
+    node_id: str = Field(description="The adopter best placed to ask: the strongest tie among them.")
+    tie_strength: float = Field(description="Strength of that tie, in [0, 1].")
+    probability: float = Field(description="Activation probability of the arc from that adopter.")
+
+
+class NextContactRead(BaseModel):
+    node_id: str
+    exposure: float = Field(description="Probability of being reached in the next round from the adopters.")
+    score: float = Field(description="The ranking value: exposure, or its blend with follow_on.")
+    adopter_contacts: int = Field(description="Adopters with a tie to this person.")
+    ask: AskRead | None = Field(description="Null when none of those adopters may be contacted.")
+    reason: str = Field(description="The numbers above in plain words.")
+
+
+class ReferralGroupRead(BaseModel):
+    adopter: str
+    expected_referrals: float = Field(description="Sum of the targets' exposures.")
+    targets: list[NextContactRead]
+
+
+class UnknownAdopters(BaseModel):
+    count: int
+    examples: list[str] = Field(description="The first few unknown ids, in request order.")
+
+
+class NextContactsPage(BaseModel):
+    graph_id: str
+    version: int
+    model: str
+    probability: ProbabilitySpec
+    follow_on: str | None
+    blend: float
+    adopters: int = Field(description="Distinct adopters found in the graph.")
+    unknown_adopters: UnknownAdopters | None = Field(
+        default=None, description="With strict=false: the adopter ids not in the graph."
+    )
+    group_by: str | None
+    items: list[NextContactRead] | None = Field(default=None, description="Ranked non-adopters (no group_by).")
+    groups: list[ReferralGroupRead] | None = Field(
+        default=None, description="Per adopter, whom to ask them to refer (group_by=adopter)."
+    )
