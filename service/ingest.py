@@ -115,12 +115,15 @@ def build_version(
             nodes = reader_n(fh, interner, id=options.id)
 
     stats: dict[str, Any] = {}
+    had_edges = edges is not None
+    records = (edges.records if edges is not None else 0) + (nodes.records if nodes is not None else 0)
     prev_graph = previous.graph if previous is not None else _empty_graph(directed)
     prev_attrs = previous.attrs if previous is not None else None
     remove_edges = edges is not None and options.mode == "remove" and previous is not None
     # A removal never adds people: ids the graph does not know only count as not found.
     n = n_before if remove_edges or (options.part == "nodes" and options.mode == "remove") else len(interner.ids)
     ids = interner.ids[:n]
+    del interner  # its id -> index dict is not needed past reading
 
     # 1. Edges.
     if edges is not None and (options.mode == "replace" or previous is None):
@@ -128,6 +131,7 @@ def build_version(
             edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates
         )
         stats["duplicates_merged"] = int(merged)
+        edges = None  # the merged arrays replace the table: free it before the summary
         graph = GraphArrays(n, directed, src, dst, w, p)
     elif edges is not None:
         base = GraphArrays(n_before, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
@@ -150,7 +154,7 @@ def build_version(
         drop[known] = True
         stats["nodes_removed"] = int(drop.sum())
         stats["not_found"] = int(len(nodes.index) - len(known))
-    elif edges is not None and options.mode == "replace" and previous is not None:
+    elif had_edges and options.mode == "replace" and previous is not None:
         touched = np.zeros(n, dtype=bool)
         touched[graph.src] = True
         touched[graph.dst] = True
@@ -170,7 +174,7 @@ def build_version(
         "mode": options.mode,
         "format": options.fmt,
         "duplicates": options.duplicates,
-        "records": int((edges.records if edges is not None else 0) + (nodes.records if nodes is not None else 0)),
+        "records": int(records),
         "based_on": previous.number if previous is not None else None,
         **stats,
     }

@@ -1,1 +1,80 @@
-"""Package."""
+"""Upload readers: CSV, NDJSON, JSON and GraphML bodies -> numpy arrays.
+
+This package turns an uploaded file (a binary file object the HTTP layer
+has spooled) into an :class:`EdgeTable` or :class:`NodeTable` over dense node
+indices from an :class:`Interner`, refusing malformed input with an
+:class:`UploadError` that names the line (or record) and column. ``merge``
+folds duplicate edges by the declared rule and applies append/remove deltas
+to a stored version's :class:`~service.analytics.graph.GraphArrays`.
+
+It imports the standard library, numpy, defusedxml and
+``service.analytics.graph`` only: no HTTP, database or pydantic code.
+"""
+
+from __future__ import annotations
+
+from .csvfile import read_edges_csv, read_nodes_csv
+from .errors import (
+    MAX_VALUE_CHARS,
+    EmptyUpload,
+    IntakeError,
+    InvalidOption,
+    MissingColumn,
+    UnknownColumn,
+    UnsafeXml,
+    UploadError,
+)
+from .graphml import GRAPHML_NS, read_graphml
+from .interner import MAX_NODES, Interner
+from .jsonfile import read_edges_json, read_edges_ndjson, read_nodes_json, read_nodes_ndjson
+from .merge import (
+    MERGE_RULES,
+    DeltaStats,
+    MergeRule,
+    apply_edge_delta,
+    merge_duplicates,
+    merge_node_table,
+    removal_mask,
+    remove_nodes,
+    select_node_attributes,
+)
+from .tables import CONSENT_WORDS, NODE_COLUMNS, EdgeOptions, EdgeTable, NodeTable
+
+__all__ = [
+    # errors
+    "IntakeError",
+    "InvalidOption",
+    "UploadError",
+    "EmptyUpload",
+    "MissingColumn",
+    "UnknownColumn",
+    "UnsafeXml",
+    "MAX_VALUE_CHARS",
+    # ids and tables
+    "Interner",
+    "MAX_NODES",
+    "EdgeTable",
+    "NodeTable",
+    "EdgeOptions",
+    "NODE_COLUMNS",
+    "CONSENT_WORDS",
+    # readers
+    "read_edges_csv",
+    "read_nodes_csv",
+    "read_edges_ndjson",
+    "read_edges_json",
+    "read_nodes_ndjson",
+    "read_nodes_json",
+    "read_graphml",
+    "GRAPHML_NS",
+    # merging
+    "MergeRule",
+    "MERGE_RULES",
+    "DeltaStats",
+    "merge_duplicates",
+    "apply_edge_delta",
+    "remove_nodes",
+    "removal_mask",
+    "select_node_attributes",
+    "merge_node_table",
+]

@@ -1,0 +1,125 @@
+"""Errors raised while reading an upload. They carry data, not prose.
+
+``api/problems.py`` turns an :class:`UploadError` into a 422 problem document
+whose extension members are :meth:`UploadError.as_dict`.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+__all__ = [
+    "IntakeError",
+    "InvalidOption",
+    "UploadError",
+    "EmptyUpload",
+    "MissingColumn",
+    "UnknownColumn",
+    "UnsafeXml",
+    "MAX_VALUE_CHARS",
+]
+
+MAX_VALUE_CHARS = 80
+
+Unit = Literal["line", "record"]
+
+
+class IntakeError(Exception):
+    """The upload could not be read."""
+
+    def __init__(self, reason: str | None = None) -> None:
+        self.reason = reason or (self.__class__.__doc__ or "").strip()
+        super().__init__(self.reason)
+
+
+class InvalidOption(IntakeError):
+    """A reader or merge option is not one of its allowed values."""
+
+    def __init__(self, reason: str | None = None, *, field: str | None = None) -> None:
+        self.field = field
+        super().__init__(reason)
+
+
+class UploadError(IntakeError):
+    """The uploaded file is malformed.
+
+    Attributes
+    ----------
+    line : 1-based position of the failing input: the physical line for CSV,
+        NDJSON and GraphML, the record number for a JSON array (``unit`` says
+        which); None when the fault is not tied to one place.
+    column : the column (CSV header name, JSON key, GraphML ``attr.name``).
+    reason : what is wrong, in a few words.
+    value : the offending text, cut to 80 characters.
+    unit : ``"line"`` or ``"record"``.
+    """
+
+    def __init__(
+        self,
+        reason: str | None = None,
+        *,
+        line: int | None = None,
+        column: str | None = None,
+        value: object = None,
+        unit: Unit = "line",
+    ) -> None:
+        self.line = line
+        self.column = column
+        self.value = None if value is None else _cut(value)
+        self.unit: Unit = unit
+        super().__init__(reason)
+
+    def __str__(self) -> str:
+        where = []
+        if self.line is not None:
+            where.append(f"{self.unit} {self.line}")
+        if self.column is not None:
+            where.append(f"column {self.column!r}")
+        text = (", ".join(where) + ": " if where else "") + self.reason
+        if self.value is not None:
+            text += f" (got {self.value!r})"
+        return text
+
+    def as_dict(self) -> dict[str, object]:
+        """The error's data, for a problem document's extension members."""
+        return {
+            "line": self.line,
+            "column": self.column,
+            "reason": self.reason,
+            "value": self.value,
+            "unit": self.unit,
+        }
+
+
+class EmptyUpload(UploadError):
+    """The upload holds no records."""
+
+
+class MissingColumn(UploadError):
+    """A required column is missing."""
+
+    def __init__(
+        self,
+        reason: str | None = None,
+        *,
+        header: tuple[str, ...] = (),
+        **kw: object,
+    ) -> None:
+        self.header = header
+        super().__init__(reason, **kw)  # type: ignore[arg-type]
+
+    def as_dict(self) -> dict[str, object]:
+        return {**super().as_dict(), "header": list(self.header)}
+
+
+class UnknownColumn(UploadError):
+    """The upload has a column this part does not use."""
+
+
+class UnsafeXml(UploadError):
+    """GraphML with a DTD or entity declarations is refused."""
+
+
+def _cut(value: object) -> str:
+    text = value if isinstance(value, str) else repr(value)
+    return text if len(text) <= MAX_VALUE_CHARS else text[: MAX_VALUE_CHARS - 1] + "\u2026"

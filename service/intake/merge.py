@@ -1,0 +1,481 @@
+"""Duplicate-edge merging, append/remove deltas, and node-attribute overlays.
+
+Pure numpy over index arrays. Sorting works on one int64 key per edge
+(``src << 32 | dst``), so merging m edges holds about three int64 arrays of
+length m besides its input and output.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+from numpy.typing import NDArray
+
+from service.analytics.graph import GraphArrays, NodeAttributes
+
+from .errors import InvalidOption, UploadError
+from .tables import EdgeTable, NodeTable
+
+__all__ = [
+    "MergeRule",
+    "MERGE_RULES",
+    "DeltaStats",
+    "merge_duplicates",
+    "apply_edge_delta",
+    "remove_nodes",
+    "removal_mask",
+    "select_node_attributes",
+    "merge_node_table",
+]
+
+MergeRule = Literal["sum", "max", "last"]
+MERGE_RULES: tuple[str, ...] = ("sum", "max", "last")
+
+I32 = NDArray[np.int32]
+F64 = NDArray[np.float64]
+
+
+@dataclass(frozen=True)
+class DeltaStats:
+    """What a delta did.
+
+    ``added``: edges the new version has that the old one had not;
+    ``merged``: records folded into an existing edge (or into each other) by
+    the rule; ``removed``: old edges dropped; ``not_found``: distinct edges a
+    remove delta named that the old version did not have (not an error).
+    """
+
+    mode: str
+    records: int
+    added: int
+    merged: int
+    removed: int
+    not_found: int
+    nodes: int
+    edges: int
+
+
+def merge_duplicates(
+    src: I32,
+    dst: I32,
+    weight: F64,
+    probability: F64 | None,
+    *,
+    directed: bool,
+    rule: MergeRule = "sum",
+) -> tuple[I32, I32, F64, F64 | None, int]:
+    """Merge repeated edges by a declared rule.
+
+    Parameters
+    ----------
+    src, dst, weight, probability : the edge records, in input order.
+    directed : when false, ``(u, v)`` and ``(v, u)`` are the same edge and
+        come out as ``(min, max)``.
+    rule : ``"sum"`` adds the weights (weights are interaction counts, so
+        repeated records are more interactions) and combines probabilities as
+        independent chances, ``1 - prod(1 - p)``; ``"max"`` keeps the largest
+        weight and, separately, the largest probability; ``"last"`` keeps the
+        weight and probability of the last record in input order.
+
+    Returns
+    -------
+    (src, dst, weight, probability, merged)
+        Unique edges sorted by ``(src, dst)``; ``merged`` is how many records
+        were folded into another (input length minus output length).
+
+    Notes
+    -----
+    A stable argsort of the int64 key keeps input order within each group,
+    which is what ``last`` needs; ``sum`` adds in input order. An edge seen
+    once keeps its values bit for bit (``1 - (1 - p)`` is not always ``p``
+    in floating point, so single records skip the product).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> s, d, w, p, k = merge_duplicates(np.array([1, 0, 2], np.int32),
+    ...     np.array([0, 1, 0], np.int32), np.array([1.0, 2.0, 5.0]),
+    ...     np.array([0.5, 0.5, 0.1]), directed=False, rule="sum")
+    >>> s.tolist(), d.tolist(), w.tolist(), p.tolist(), k
+    ([0, 0], [1, 2], [3.0, 5.0], [0.75, 0.1], 1)
+    """
+    if rule not in MERGE_RULES:
+        raise InvalidOption(
+            f"duplicates must be one of {', '.join(MERGE_RULES)}, got {rule!r}",
+            field="duplicates",
+        )
+    m = int(np.shape(src)[0])
+    if m == 0:
+        return (
+            np.zeros(0, np.int32),
+            np.zeros(0, np.int32),
+            np.zeros(0),
+            None if probability is None else np.zeros(0),
+            0,
+        )
+    key = _keys(src, dst, directed)
+    order = np.argsort(key, kind="stable")
+    key = key[order]
+    first = np.empty(m, dtype=bool)
+    first[0] = True
+    np.not_equal(key[1:], key[:-1], out=first[1:])
+    starts = np.flatnonzero(first)
+    del first
+    out_src = (key[starts] >> 32).astype(np.int32)
+    out_dst = (key[starts] & 0xFFFFFFFF).astype(np.int32)
+    del key
+    merged = m - int(starts.size)
+    w_sorted = np.asarray(weight, dtype=np.float64)[order]
+    p_sorted = None if probability is None else np.asarray(probability, np.float64)[order]
+    if merged == 0:
+        return out_src, out_dst, w_sorted, p_sorted, 0
+    if rule == "last":
+        last = np.empty_like(starts)
+        last[:-1] = starts[1:] - 1
+        last[-1] = m - 1
+        w_out = w_sorted[last]
+        p_out = None if p_sorted is None else p_sorted[last]
+    elif rule == "max":
+        w_out = np.maximum.reduceat(w_sorted, starts)
+        p_out = None if p_sorted is None else np.maximum.reduceat(p_sorted, starts)
+    else:
+        w_out = np.add.reduceat(w_sorted, starts)
+        p_out = None
+        if p_sorted is not None:
+            p_out = 1.0 - np.multiply.reduceat(1.0 - p_sorted, starts)
+            single = np.diff(starts, append=m) == 1
+            p_out[single] = p_sorted[starts[single]]
+    return out_src, out_dst, w_out, p_out, merged
+
+
+def apply_edge_delta(
+    base: GraphArrays,
+    delta: EdgeTable,
+    n_nodes: int,
+    *,
+    mode: Literal["append", "remove"],
+    rule: MergeRule = "sum",
+) -> tuple[GraphArrays, DeltaStats]:
+    """Make the next version's edges from the current ones and a delta.
+
+    Parameters
+    ----------
+    base : the current version (its edges unique).
+    delta : edges read with an interner started from the base's ids.
+    n_nodes : node count of the new version (``len(interner)`` after reading
+        the delta and any node part; at least ``base.n``). For a remove delta
+        read with a throwaway copy of the interner, pass ``base.n``: unknown
+        ids then only count as not found.
+    mode : ``"append"`` takes the union and merges repeats by ``rule`` (so
+        ``sum`` adds new interactions to old ones and ``last`` lets the delta
+        win); ``"remove"`` drops every base edge the delta names (both
+        directions when undirected), ignoring the delta's weights.
+    rule : see :func:`merge_duplicates`.
+
+    Returns
+    -------
+    (GraphArrays, DeltaStats)
+        Appended versions come out sorted by ``(src, dst)``; a remove keeps
+        the base order.
+
+    Raises
+    ------
+    UploadError
+        An append whose probabilities do not match the base (the base has
+        explicit probabilities and the delta none, or the other way round).
+    InvalidOption
+        ``mode``/``rule`` unknown, or ``n_nodes`` smaller than the indices used.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([1, 2], np.int32),
+    ...                 np.array([1.0, 1.0]))
+    >>> d = EdgeTable(np.array([0, 2], np.int32), np.array([1, 0], np.int32),
+    ...               np.array([2.0, 1.0]), None, 2)
+    >>> h, st = apply_edge_delta(g, d, 3, mode="append", rule="sum")
+    >>> h.src.tolist(), h.dst.tolist(), h.weight.tolist(), st.added, st.merged
+    ([0, 1, 2], [1, 2, 0], [3.0, 1.0, 1.0], 1, 1)
+    >>> h, st = apply_edge_delta(g, d, 3, mode="remove")
+    >>> h.src.tolist(), st.removed, st.not_found
+    ([1], 1, 1)
+    """
+    if mode not in ("append", "remove"):
+        raise InvalidOption(f"mode must be 'append' or 'remove', got {mode!r}", field="mode")
+    if n_nodes < base.n or (delta.m and mode == "append" and _max_index(delta) >= n_nodes):
+        raise InvalidOption(
+            f"n_nodes={n_nodes} is smaller than the nodes the edges use", field="n_nodes"
+        )
+    if mode == "remove":
+        return _remove_edges(base, delta, n_nodes)
+    prob_base, prob_delta = base.probability, delta.probability
+    if base.m and delta.m and (prob_base is None) != (prob_delta is None):
+        raise UploadError(
+            "this graph has explicit probabilities: the delta must give them too"
+            if prob_base is not None
+            else "this graph has no probability column: the delta may not add one",
+            column="probability",
+        )
+    prob = None
+    if prob_base is not None or prob_delta is not None:
+        prob = np.concatenate(
+            [p for p in (prob_base, prob_delta) if p is not None]
+        )
+    src, dst, w, p, merged = merge_duplicates(
+        np.concatenate((base.src, delta.src)),
+        np.concatenate((base.dst, delta.dst)),
+        np.concatenate((base.weight, delta.weight)),
+        prob,
+        directed=base.directed,
+        rule=rule,
+    )
+    g = GraphArrays(n_nodes, base.directed, src, dst, w, p)
+    added = g.m - base.m  # base edges are unique (GraphArrays' contract)
+    stats = DeltaStats("append", delta.records, added, delta.m - added, 0, 0, g.n, g.m)
+    return g, stats
+
+
+def _remove_edges(base: GraphArrays, delta: EdgeTable, n: int) -> tuple[GraphArrays, DeltaStats]:
+    base_key = _keys(base.src, base.dst, base.directed)
+    gone = np.unique(_keys(delta.src, delta.dst, base.directed))
+    drop = np.isin(base_key, gone)
+    found = int(np.isin(gone, base_key).sum())
+    del base_key
+    keep = ~drop
+    p = None if base.probability is None else base.probability[keep]
+    g = GraphArrays(n, base.directed, base.src[keep], base.dst[keep], base.weight[keep], p)
+    removed = base.m - g.m
+    return g, DeltaStats("remove", delta.records, 0, 0, removed, int(gone.size) - found, n, g.m)
+
+
+def remove_nodes(
+    base: GraphArrays, node_mask_to_remove: NDArray[np.bool_]
+) -> tuple[GraphArrays, NDArray[np.int64]]:
+    """Drop nodes and every edge touching them; renumber the rest in order.
+
+    Returns
+    -------
+    (GraphArrays, old_to_new)
+        ``old_to_new[i]`` is node ``i``'s new index, or -1 when removed. Apply
+        the same compaction to the ids (:meth:`Interner.compact`) and the
+        attributes (:func:`select_node_attributes`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> g = GraphArrays(4, False, np.array([0, 1, 2], np.int32),
+    ...                 np.array([1, 2, 3], np.int32), np.ones(3))
+    >>> h, old_to_new = remove_nodes(g, np.array([False, True, False, False]))
+    >>> h.n, h.src.tolist(), h.dst.tolist(), old_to_new.tolist()
+    (3, [1], [2], [0, -1, 1, 2])
+    """
+    mask = np.asarray(node_mask_to_remove, dtype=bool)
+    if mask.shape != (base.n,):
+        raise InvalidOption(f"the node mask must have length {base.n}", field="nodes")
+    keep = ~mask
+    old_to_new = np.full(base.n, -1, dtype=np.int64)
+    old_to_new[keep] = np.arange(int(keep.sum()), dtype=np.int64)
+    e = keep[base.src] & keep[base.dst]
+    p = None if base.probability is None else base.probability[e]
+    g = GraphArrays(
+        int(keep.sum()),
+        base.directed,
+        old_to_new[base.src[e]].astype(np.int32),
+        old_to_new[base.dst[e]].astype(np.int32),
+        base.weight[e],
+        p,
+    )
+    return g, old_to_new
+
+
+def removal_mask(table: NodeTable, n: int) -> tuple[NDArray[np.bool_], int]:
+    """The nodes a remove delta names, as a mask over the version's ``n`` nodes.
+
+    Read the delta with a copy of the version's interner
+    (:meth:`Interner.copy`): ids it did not know get indices ``>= n`` and
+    are counted as not found (not an error).
+
+    Returns
+    -------
+    (mask, not_found)
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = NodeTable(np.array([1, 3]), [None] * 2, [None] * 2, np.array([-1, -1], np.int8),
+    ...               np.full(2, np.nan), np.full(2, np.nan), [None] * 2)
+    >>> mask, missing = removal_mask(t, 3)
+    >>> mask.tolist(), missing
+    ([False, True, False], 1)
+    """
+    idx = np.asarray(table.index, dtype=np.int64)
+    known = idx[idx < n]
+    mask = np.zeros(n, dtype=bool)
+    mask[known] = True
+    return mask, int(idx.size - known.size)
+
+
+def select_node_attributes(attrs: NodeAttributes, keep: NDArray[np.bool_]) -> NodeAttributes:
+    """The attributes of the nodes where ``keep`` is true, renumbered in order.
+
+    Category labels no longer used are dropped.
+    """
+    keep = np.asarray(keep, dtype=bool)
+    if keep.shape != (attrs.n,):
+        raise InvalidOption(f"the node mask must have length {attrs.n}", field="nodes")
+    seg, seg_labels = _prune(attrs.segment[keep], attrs.segment_labels)
+    reg, reg_labels = _prune(attrs.region[keep], attrs.region_labels)
+    rows = np.flatnonzero(keep).tolist()
+    consent = attrs.consent[keep]
+    return NodeAttributes(
+        n=len(rows),
+        segment=seg,
+        segment_labels=seg_labels,
+        region=reg,
+        region_labels=reg_labels,
+        consent=consent,
+        cost=attrs.cost[keep],
+        value=attrs.value[keep],
+        has_consent_data=bool((consent != -1).any()),
+        extra={k: [v[i] for i in rows] for k, v in attrs.extra.items()},
+    )
+
+
+def merge_node_table(
+    previous: NodeAttributes | None,
+    table: NodeTable,
+    n: int,
+    *,
+    mode: Literal["replace", "append"] = "replace",
+) -> NodeAttributes:
+    """Per-node attribute arrays for a version of ``n`` nodes.
+
+    Parameters
+    ----------
+    previous : the current version's attributes (None for a first upload).
+    table : node records read with the version's interner.
+    n : node count of the new version (``>= previous.n``).
+    mode : ``"replace"`` keeps only ``table``'s attributes (everything else
+        missing); ``"append"`` starts from ``previous`` and overwrites, for
+        the listed nodes, the columns the table has (an empty cell in a given
+        column clears that node's value); other columns and nodes are kept.
+
+    Returns
+    -------
+    NodeAttributes
+        Segment and region become codes into sorted label tuples (unused
+        labels dropped). ``has_consent_data`` is true when any consent is
+        known. ``label`` has no array of its own in NodeAttributes: it is
+        kept in ``extra["label"]``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> t = NodeTable(np.array([2, 0]), ["b", "a"], [None, None], np.array([1, -1], np.int8),
+    ...               np.array([1.0, np.nan]), np.array([np.nan] * 2), [None, None],
+    ...               {}, ("segment", "consent", "cost"), 2)
+    >>> a = merge_node_table(None, t, 3)
+    >>> a.segment.tolist(), a.segment_labels, a.consent.tolist(), a.has_consent_data
+    ([0, -1, 1], ('a', 'b'), [-1, -1, 1], True)
+    """
+    if mode not in ("replace", "append"):
+        raise InvalidOption(f"mode must be 'replace' or 'append', got {mode!r}", field="mode")
+    idx = np.asarray(table.index, dtype=np.int64)
+    if (previous is not None and n < previous.n) or (idx.size and int(idx.max()) >= n):
+        raise InvalidOption(f"n={n} is smaller than the nodes the table uses", field="n")
+    start = previous if mode == "append" and previous is not None else NodeAttributes.empty(n)
+    seg, seg_labels = _pad_codes(start.segment, n), start.segment_labels
+    reg, reg_labels = _pad_codes(start.region, n), start.region_labels
+    consent = _pad(start.consent, n, -1)
+    cost = _pad(start.cost, n, np.nan)
+    value = _pad(start.value, n, np.nan)
+    extra = {k: list(v) + [None] * (n - len(v)) for k, v in start.extra.items()}
+    cols = set(table.columns)
+    if "segment" in cols:
+        seg, seg_labels = _overlay(seg, seg_labels, idx, table.segment)
+    if "region" in cols:
+        reg, reg_labels = _overlay(reg, reg_labels, idx, table.region)
+    if "consent" in cols:
+        consent[idx] = table.consent
+    if "cost" in cols:
+        cost[idx] = table.cost
+    if "value" in cols:
+        value[idx] = table.value
+    columns = dict(table.extra)
+    if "label" in cols:
+        columns["label"] = table.label
+    rows = idx.tolist()
+    for name, cells in columns.items():
+        col = extra.setdefault(name, [None] * n)
+        for i, cell in zip(rows, cells):
+            col[i] = cell
+    return NodeAttributes(
+        n=n,
+        segment=seg,
+        segment_labels=seg_labels,
+        region=reg,
+        region_labels=reg_labels,
+        consent=consent,
+        cost=cost,
+        value=value,
+        has_consent_data=bool((consent != -1).any()),
+        extra=extra,
+    )
+
+
+# ------------------------------------------------------------------ helpers
+
+
+def _keys(src: I32, dst: I32, directed: bool) -> NDArray[np.int64]:
+    """One int64 per edge, ordering edges by (src, dst); (min, max) when undirected."""
+    if directed:
+        key = np.asarray(src).astype(np.int64)
+        key <<= 32
+        key |= np.asarray(dst).astype(np.int64)
+        return key
+    key = np.minimum(src, dst).astype(np.int64)
+    key <<= 32
+    key |= np.maximum(src, dst).astype(np.int64)
+    return key
+
+
+def _max_index(t: EdgeTable) -> int:
+    return max(int(t.src.max()), int(t.dst.max()))
+
+
+def _pad(a: NDArray[np.generic], n: int, fill: float) -> NDArray[np.generic]:
+    out = np.full(n, fill, dtype=a.dtype)
+    out[: a.shape[0]] = a
+    return out
+
+
+def _pad_codes(a: NDArray[np.int32], n: int) -> NDArray[np.int32]:
+    return _pad(a, n, -1).astype(np.int32)  # type: ignore[return-value]
+
+
+def _overlay(
+    codes: NDArray[np.int32],
+    labels: tuple[str, ...],
+    idx: NDArray[np.int64],
+    values: list[str | None],
+) -> tuple[NDArray[np.int32], tuple[str, ...]]:
+    """Set the listed nodes' categories; re-sort the labels and drop unused ones."""
+    merged = sorted(set(labels).union(v for v in values if v is not None))
+    pos = {label: i for i, label in enumerate(merged)}
+    lut = np.array([pos[label] for label in labels] + [-1], dtype=np.int32)
+    out = lut[codes]  # code -1 picks the trailing -1
+    out[idx] = np.array([-1 if v is None else pos[v] for v in values], dtype=np.int32)
+    return _prune(out, tuple(merged))
+
+
+def _prune(
+    codes: NDArray[np.int32], labels: tuple[str, ...]
+) -> tuple[NDArray[np.int32], tuple[str, ...]]:
+    used = np.unique(codes[codes >= 0])
+    if used.size == len(labels):
+        return codes.astype(np.int32), labels
+    lut = np.full(len(labels) + 1, -1, dtype=np.int32)
+    lut[used] = np.arange(used.size, dtype=np.int32)
+    return lut[codes], tuple(labels[i] for i in used.tolist())
