@@ -141,7 +141,7 @@ def build_version(
         graph = GraphArrays(n, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
 
     # 2. Node attributes, aligned with the (possibly grown) node set.
-    if nodes is not None and not (options.part == "nodes" and options.mode == "remove"):
+    if nodes is not None and options.mode != "remove":
         node_mode = "replace" if (options.part == "nodes" and options.mode == "replace") else "append"
         attrs = merge.merge_node_table(prev_attrs, nodes, n, mode=node_mode)  # type: ignore[arg-type]
     else:
