@@ -70,10 +70,11 @@ def graph_summary(g: GraphArrays) -> dict[str, Any]:
     (2, 0.75)
     """
     n, m = int(g.n), g.m
-    src = np.asarray(g.src, dtype=np.int64)
-    dst = np.asarray(g.dst, dtype=np.int64)
-    loop = src == dst
-    self_loops = int(np.count_nonzero(loop))
+    # int32 throughout: the summary runs at ingest, beside the upload's own
+    # arrays, so every temporary of length m counts against the memory goal.
+    src = np.asarray(g.src, dtype=np.int32)
+    dst = np.asarray(g.dst, dtype=np.int32)
+    self_loops = int(np.count_nonzero(src == dst))
     m_simple = m - self_loops
 
     if n < 2:
@@ -87,12 +88,14 @@ def graph_summary(g: GraphArrays) -> dict[str, Any]:
     in_deg = np.bincount(dst, minlength=n)
     total = out_deg + in_deg
 
-    weak_count, weak_share = _components(n, src, dst, directed=g.directed, strong=False)
+    adj = _adjacency(n, src, dst) if n else None
+    weak_count, weak_share = _components(n, src, dst, directed=g.directed, strong=False, adj=adj)
     if g.directed:
-        strong_count, strong_share = _components(n, src, dst, directed=True, strong=True)
-        reciprocity = _reciprocity(n, src[~loop], dst[~loop])
+        strong_count, strong_share = _components(n, src, dst, directed=True, strong=True, adj=adj)
+        reciprocity = _reciprocity(n, src, dst, m_simple)
     else:
         strong_count, strong_share, reciprocity = None, None, None
+    del adj
 
     return {
         "nodes": n,
@@ -114,21 +117,42 @@ def graph_summary(g: GraphArrays) -> dict[str, Any]:
     }
 
 
+def _adjacency(n: int, src: NDArray[np.int32], dst: NDArray[np.int32]) -> object:
+    """A CSR pattern matrix of the arcs, built without COO copies.
+
+    Intake hands over edges sorted by source, so the row pointer is a
+    cumulative count and ``dst`` serves as the column indices as it is; an
+    unsorted input pays one stable argsort.
+    """
+    from scipy.sparse import csr_matrix
+
+    m = src.shape[0]
+    if m > 1 and not bool(np.all(src[1:] >= src[:-1])):
+        order = np.argsort(src, kind="stable")
+        src, dst = src[order], dst[order]
+        del order
+    indptr = np.zeros(n + 1, dtype=np.int64 if m >= 2**31 else np.int32)
+    np.cumsum(np.bincount(src, minlength=n), out=indptr[1:])
+    data = np.ones(m, dtype=np.int8)
+    return csr_matrix((data, dst, indptr), shape=(n, n), copy=False)
+
+
 def _components(
     n: int,
-    src: NDArray[np.int64],
-    dst: NDArray[np.int64],
+    src: NDArray[np.int32],
+    dst: NDArray[np.int32],
     *,
     directed: bool,
     strong: bool,
+    adj: object | None = None,
 ) -> tuple[int, float | None]:
     """Number of (weak or strong) components and the largest one's share of nodes."""
     if n == 0:
         return 0, None
-    from scipy.sparse import csr_matrix
     from scipy.sparse.csgraph import connected_components
 
-    adj = csr_matrix((np.ones(src.shape[0], dtype=np.int8), (src, dst)), shape=(n, n))
+    if adj is None:
+        adj = _adjacency(n, src, dst)
     count, labels = connected_components(
         adj, directed=directed, connection="strong" if strong else "weak"
     )
@@ -136,12 +160,18 @@ def _components(
     return int(count), largest / n
 
 
-def _reciprocity(n: int, src: NDArray[np.int64], dst: NDArray[np.int64]) -> float | None:
-    """Share of the given (non-loop, unique) arcs whose reverse is among them."""
-    if src.shape[0] == 0:
+def _reciprocity(
+    n: int, src: NDArray[np.int32], dst: NDArray[np.int32], m_simple: int
+) -> float | None:
+    """Share of the (unique) non-loop arcs whose reverse is among them."""
+    if m_simple == 0:
         return None
     # Arcs are unique, so an unordered pair's key occurs twice exactly when
-    # both directions exist; one sort counts them.
-    keys = np.sort(np.minimum(src, dst) * n + np.maximum(src, dst))
+    # both directions exist; one in-place sort counts them. A self-loop's key
+    # occurs once, so loops need no masking.
+    keys = np.minimum(src, dst).astype(np.int64)
+    keys *= n
+    keys += np.maximum(src, dst)
+    keys.sort()
     pairs = int(np.count_nonzero(keys[1:] == keys[:-1]))
-    return 2.0 * pairs / src.shape[0]
+    return 2.0 * pairs / m_simple
