@@ -1,0 +1,325 @@
+"""``bellwether demo``: the whole job end to end, over HTTP, on an invented scenario.
+
+It generates the food cooperative of :mod:`service.cli.scenario`, starts the
+embedded server on a free loopback port (or uses ``--url``/``--key``), creates
+an API key, uploads the CSV files it wrote, runs the profile, scores,
+shortlist and forecast jobs with a progress bar each, simulates a first wave
+of adopters and asks for next contacts and referral asks. It prints a
+readable report, writes it as Markdown with the SVG plots into ``--out``, and
+ends with the cautions every user of relationship data should read.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import httpx
+import numpy as np
+
+from service.settings import Settings
+
+from .scenario import STORES, generate, write_csv
+
+__all__ = ["run_demo", "CAUTIONS"]
+
+CAUTIONS = """\
+Cautions
+  * Relationship data is personal data. Use only data you are allowed to process.
+  * Honour consent and opt-outs: Bellwether never proposes people whose contact
+    consent is missing or refused, but it only knows the flags you upload.
+  * Check data-protection and direct-marketing rules with your privacy or legal
+    officer before you contact anyone.
+  * Forecasts are model estimates, not promises: the reach interval describes the
+    model's uncertainty, and real campaigns differ from any diffusion model."""
+
+KITS = 25
+CAP_PER_STORE = 4
+
+
+class Demo:
+    def __init__(self, base: str, key: str | None, out: Path, echo: Callable[[str], None] = print) -> None:
+        headers = {"Authorization": f"Bearer {key}"} if key else {}
+        self.http = httpx.Client(base_url=base, headers=headers, timeout=120)
+        self.out = out
+        self.echo = echo
+        self.md: list[str] = []
+
+    # -- output -------------------------------------------------------------------------
+    def say(self, text: str = "", md: str | None = None) -> None:
+        self.echo(text)
+        self.md.append(text if md is None else md)
+
+    def section(self, title: str) -> None:
+        self.echo("")
+        self.echo(title)
+        self.echo("=" * len(title))
+        self.md.append(f"\n## {title}\n")
+
+    def table(self, header: list[str], rows: list[list[Any]]) -> None:
+        cells = [[str(c) for c in header]] + [[_cell(c) for c in r] for r in rows]
+        widths = [max(len(r[i]) for r in cells) for i in range(len(header))]
+        for j, r in enumerate(cells):
+            self.echo("  " + "  ".join(c.rjust(w) if _numeric(c) else c.ljust(w) for c, w in zip(r, widths)))
+            if j == 0:
+                self.echo("  " + "  ".join("-" * w for w in widths))
+        self.md.append("")
+        self.md.append("| " + " | ".join(cells[0]) + " |")
+        self.md.append("|" + "|".join("---" for _ in header) + "|")
+        self.md += ["| " + " | ".join(c.replace("|", "\\|") for c in r) + " |" for r in cells[1:]]
+        self.md.append("")
+
+    # -- HTTP ----------------------------------------------------------------------------
+    def check(self, r: httpx.Response, expect: tuple[int, ...] = (200, 201, 202)) -> Any:
+        if r.status_code not in expect:
+            raise SystemExit(f"demo: {r.request.method} {r.request.url.path} answered {r.status_code}: {r.text[:500]}")
+        return r.json() if r.headers.get("content-type", "").startswith(("application/json", "application/problem")) else r.text
+
+    def run_job(self, gid: str, kind: str, params: dict[str, Any], label: str) -> dict[str, Any]:
+        job = self.check(self.http.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params}))
+        jid = job["id"]
+        start = time.monotonic()
+        while True:
+            job = self.check(self.http.get(f"/v1/jobs/{jid}", params={"wait": 1}))
+            _bar(label, float(job.get("progress") or 0.0), job.get("progress_message") or job["status"], self.echo)
+            if job["status"] in ("succeeded", "failed", "cancelled"):
+                break
+        self.echo("")
+        if job["status"] != "succeeded":
+            raise SystemExit(f"demo: {kind} job {jid} ended {job['status']}: {job.get('error')}")
+        result = self.check(self.http.get(f"/v1/jobs/{jid}/result"))
+        result["_job_id"] = jid
+        result["_seconds"] = time.monotonic() - start
+        return result
+
+    def save_plot(self, path: str, name: str) -> str | None:
+        r = self.http.get(path)
+        if r.status_code != 200 or "svg" not in r.headers.get("content-type", ""):
+            return None
+        (self.out / name).write_text(r.text, encoding="utf-8")
+        return name
+
+
+def _cell(c: Any) -> str:
+    if isinstance(c, float):
+        return f"{c:,.1f}" if abs(c) >= 10 else f"{c:.3g}"
+    return str(c)
+
+
+def _numeric(s: str) -> bool:
+    return s.replace(",", "").replace(".", "", 1).replace("-", "", 1).isdigit()
+
+
+def _bar(label: str, fraction: float, message: str, echo: Callable[[str], None]) -> None:
+    n = int(round(max(0.0, min(1.0, fraction)) * 30))
+    line = f"\r  {label:<22} [{'#' * n}{'.' * (30 - n)}] {fraction * 100:5.1f}%  {message[:38]:<38}"
+    if echo is print:
+        sys.stdout.write(line)
+        sys.stdout.flush()
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _start_server(data_dir: Path) -> tuple[subprocess.Popen[bytes], str, str]:
+    """Start ``bellwether serve`` on loopback with its own data folder; create a key."""
+    env = dict(os.environ, BELLWETHER_DATA_DIR=str(data_dir))
+    env.pop("BELLWETHER_DATABASE_URL", None)
+    env.pop("BELLWETHER_AUTH_DISABLED", None)
+    cli = [sys.executable, "-m", "service.cli.main"]
+    created = subprocess.run(
+        cli + ["keys", "create", "--tenant", "demo", "--scopes", "read,write,admin", "--name", "demo"],
+        env=env, capture_output=True, text=True, check=True,
+    )
+    key = created.stdout.strip().splitlines()[-1]
+    port = _free_port()
+    log = open(data_dir / "server.log", "wb")
+    proc = subprocess.Popen(
+        cli + ["serve", "--host", "127.0.0.1", "--port", str(port), "--workers", "2"],
+        env=env, stdout=log, stderr=subprocess.STDOUT, start_new_session=True,
+    )
+    base = f"http://127.0.0.1:{port}"
+    deadline = time.monotonic() + 90
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            raise SystemExit(f"demo: the server exited early; see {data_dir / 'server.log'}")
+        try:
+            if httpx.get(base + "/readyz", timeout=1).status_code == 200:
+                return proc, base, key
+        except httpx.HTTPError:
+            pass
+        time.sleep(0.3)
+    raise SystemExit(f"demo: the server did not become ready; see {data_dir / 'server.log'}")
+
+
+def _stop(proc: subprocess.Popen[bytes]) -> None:
+    try:
+        os.killpg(proc.pid, signal.SIGTERM)
+        proc.wait(timeout=30)
+    except (ProcessLookupError, subprocess.TimeoutExpired):
+        try:
+            os.killpg(proc.pid, signal.SIGKILL)
+        except ProcessLookupError:
+            pass
+
+
+def run_demo(settings: Settings, args: argparse.Namespace, echo: Callable[[str], None] = print) -> int:
+    out = Path(args.out).resolve()
+    if out.exists():
+        shutil.rmtree(out)
+    out.mkdir(parents=True)
+    members = args.members or 20_000
+    t0 = time.monotonic()
+    echo(f"Bellwether demo: an invented food cooperative of {members:,} members ({len(STORES)} stores).")
+    echo(f"Everything is written to {out}")
+    sc = generate(members, seed=args.seed)
+    edges_csv, nodes_csv = write_csv(sc, out / "upload")
+    proc = None
+    if args.url:
+        base, key = args.url.rstrip("/"), args.key
+    else:
+        (out / "data").mkdir()
+        echo("Starting the embedded server (SQLite in WAL mode, 2 worker processes) ...")
+        proc, base, key = _start_server(out / "data")
+    try:
+        demo = Demo(base, key, out, echo)
+        _story(demo, sc, edges_csv, nodes_csv)
+    finally:
+        if proc is not None:
+            _stop(proc)
+    demo.section("Cautions")
+    for line in CAUTIONS.splitlines()[1:]:
+        demo.say(line)
+    (out / "report.md").write_text("# Bellwether demo report\n" + "\n".join(demo.md) + "\n", encoding="utf-8")
+    echo("")
+    echo(f"Report: {out / 'report.md'}   Plots: {', '.join(sorted(p.name for p in out.glob('*.svg')))}")
+    echo(f"Done in {time.monotonic() - t0:.0f} s.")
+    return 0
+
+
+def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
+    ids = sc.ids
+    d.section("The scenario")
+    d.say(
+        f"A regional food cooperative ({sc.members:,} members, {len(STORES)} neighbourhood stores) is launching home\n"
+        f"delivery and has {KITS} ambassador kits. Ties come from referrals, shared households and volunteer\n"
+        f"shifts; weights count interactions. The upload files are in {edges_csv.parent}."
+    )
+    g = d.check(d.http.post("/v1/graphs", json={"name": "cooperative members", "directed": False,
+                                               "description": "invented demo data"}))
+    gid = g["id"]
+    with open(edges_csv, "rb") as fh:
+        v1 = d.check(d.http.post(f"/v1/graphs/{gid}/versions", params={"part": "edges"}, content=fh,
+                                 headers={"Content-Type": "text/csv"}))
+    with open(nodes_csv, "rb") as fh:
+        v2 = d.check(d.http.post(f"/v1/graphs/{gid}/versions", params={"part": "nodes", "mode": "append"},
+                                 content=fh, headers={"Content-Type": "text/csv"}))
+    s = v2["summary"]
+    d.say(f"Uploaded: version {v1['number']} (edges) and version {v2['number']} (member attributes): "
+          f"{v2['nodes']:,} people, {v2['edges']:,} ties; largest connected group holds "
+          f"{s['largest_weak_share']:.0%} of people.")
+
+    d.section("Profile (job kind: profile)")
+    prof = d.run_job(gid, "profile", {}, "profile")
+    pdata = prof.get("data", prof)
+    for key, text in (pdata.get("readings") or {}).items():
+        d.say(f"  - {key}: {text}", md=f"- **{key}**: {text}")
+    plot = d.save_plot(f"/v1/jobs/{prof['_job_id']}/plots/degree_distribution.svg", "degree_distribution.svg")
+    if plot:
+        d.md.append(f"\n![degree distribution]({plot})\n")
+
+    d.section("Who is central (job kind: scores)")
+    d.run_job(gid, "scores", {"measures": ["degree", "strength", "pagerank", "betweenness", "coreness", "community"]},
+              "scores")
+    for measure, meaning in (("pagerank", "standing: reached by many well-placed people"),
+                             ("betweenness", "brokerage: sits between groups")):
+        r = d.http.get(f"/v1/graphs/{gid}/rankings", params={"measure": measure, "limit": 5})
+        if r.status_code != 200:
+            continue
+        items = r.json().get("items", [])
+        d.say(f"Top 5 by {measure} ({meaning}):")
+        d.table(["rank", "member", "score", "store", "consent"],
+                [[it.get("rank"), it.get("node_id"), it.get("score"), it.get("segment"), it.get("contactable")]
+                 for it in items])
+
+    d.section(f"Shortlist: {KITS} ambassador kits, at most {CAP_PER_STORE} per store (job kind: shortlist)")
+    caps = {name: CAP_PER_STORE for name, _ in STORES}
+    common = {"model": "ic", "probability": {"scheme": "weighted_cascade"}, "random_seed": 11}
+    sl = d.run_job(gid, "shortlist", {"budget": KITS, "method": "imm", "epsilon": 0.2,
+                                      "max_per_segment": caps, **common}, "shortlist (IMM)")
+    sdata = sl.get("data", sl)
+    seeds = [s["node_id"] for s in sdata.get("seeds", [])]
+    d.table(["#", "member", "gain", "cumulative", "why"],
+            [[i + 1, s["node_id"], s.get("marginal_gain"), s.get("cumulative_reach"), s.get("reason", "")]
+             for i, s in enumerate(sdata.get("seeds", [])[:KITS])])
+    g_ = sdata.get("guarantee", {})
+    if g_:
+        d.say("Guarantee: " + "; ".join(f"{k} {v}" for k, v in g_.items() if not isinstance(v, (dict, list))))
+    exp = sdata.get("expected_reach") or {}
+    if exp:
+        d.say(f"Expected reach of the shortlist (independent simulation): {exp.get('mean', 0):,.0f} people "
+              f"(95% interval of the mean {exp.get('ci_low', 0):,.0f} to {exp.get('ci_high', 0):,.0f}).")
+    for name, b in (sdata.get("baselines") or {}).items():
+        reach = b.get("expected_reach", {}).get("mean") if isinstance(b, dict) else b
+        if reach is not None:
+            d.say(f"  baseline {name}: {reach:,.0f} people")
+    plot = d.save_plot(f"/v1/jobs/{sl['_job_id']}/plots/reach_curve.svg", "reach_curve.svg")
+    if plot:
+        d.md.append(f"\n![reach versus budget]({plot})\n")
+
+    cost = d.run_job(gid, "shortlist", {"cost_budget": 60.0, "method": "imm", "epsilon": 0.2, **common},
+                     "shortlist (cost 60)")
+    cdata = cost.get("data", cost)
+    d.say(f"Cost-budget variant: kits cost more far from a store; with 60 cost units the shortlist has "
+          f"{len(cdata.get('seeds', []))} members and expected reach "
+          f"{(cdata.get('expected_reach') or {}).get('mean', 0):,.0f}.")
+
+    d.section("Forecast: the shortlist against the top-degree baseline (job kind: forecast)")
+    top = d.http.get(f"/v1/graphs/{gid}/rankings", params={"measure": "degree", "limit": KITS, "contactable": "true"})
+    baseline = [it["node_id"] for it in top.json().get("items", [])] if top.status_code == 200 else []
+    seed_sets = {"shortlist": seeds} | ({"top_degree": baseline} if baseline else {})
+    fc = d.run_job(gid, "forecast", {"seed_sets": seed_sets, "simulations": 4000, "relative_precision": 0.01,
+                                     **common}, "forecast")
+    fdata = fc.get("data", fc)
+    rows = []
+    for name, r in (fdata.get("seed_sets") or fdata.get("results") or {}).items():
+        e, p = r["expected_reach"], r.get("percentiles", {})
+        rows.append([name, e["mean"], f"{e['ci_low']:,.0f} to {e['ci_high']:,.0f}",
+                     f"{p.get('p5', p.get('5', 0)):,.0f} to {p.get('p95', p.get('95', 0)):,.0f}", r.get("simulations")])
+    d.table(["seed set", "expected reach", "95% interval of the mean", "90% of campaigns between", "runs"], rows)
+    d.say("The interval says how sure the model is of the average; the spread of outcomes says what one\n"
+          "campaign may actually see.")
+    plot = d.save_plot(f"/v1/jobs/{fc['_job_id']}/plots/adoption.svg", "adoption.svg")
+    if plot:
+        d.md.append(f"\n![adoption by round]({plot})\n")
+
+    d.section("First wave: next contacts and referral asks (POST next-contacts)")
+    rng = np.random.default_rng(3)
+    index = {s: i for i, s in enumerate(ids)}
+    seed_idx = np.array([index[s] for s in seeds if s in index], dtype=np.int64)
+    nbr_mask = np.isin(sc.src, seed_idx) | np.isin(sc.dst, seed_idx)
+    cand = np.unique(np.concatenate((sc.src[nbr_mask], sc.dst[nbr_mask])))
+    wave = np.union1d(seed_idx, cand[rng.random(cand.size) < 0.15])
+    adopters = [ids[i] for i in wave.tolist()]
+    d.say(f"Simulated first wave: {len(adopters)} members adopted (the {len(seeds)} ambassadors and some of their contacts).")
+    nc = d.check(d.http.post(f"/v1/graphs/{gid}/next-contacts", json={"adopters": adopters, "limit": 10, **common}))
+    d.table(["member", "exposure", "ask", "why"],
+            [[it["node_id"], it["exposure"], (it.get("ask") or {}).get("node_id"), it.get("reason", "")]
+             for it in nc.get("items", [])])
+    ra = d.check(d.http.post(f"/v1/graphs/{gid}/next-contacts",
+                             json={"adopters": adopters, "group_by": "adopter", "per_adopter": 3, "limit": 5, **common}))
+    d.table(["adopter", "ask them to refer", "expected referrals"],
+            [[it["adopter"], ", ".join(t["node_id"] if isinstance(t, dict) else str(t) for t in it.get("targets", [])),
+              it.get("expected_referrals")] for it in ra.get("items", [])])
