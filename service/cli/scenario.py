@@ -102,14 +102,14 @@ def generate(members: int = 20_000, *, seed: int = 7, cross_store_share: float =
         vs = volunteers[store[volunteers] == s]
         if len(vs) < 4:
             continue
-        for _ in range(len(vs) * 2):
+        for _ in range(len(vs) // 3):
             crew = rng.choice(vs, size=min(len(vs), int(rng.integers(4, 9))), replace=False)
             a, b = np.triu_indices(len(crew), 1)
             add(crew[a], crew[b], np.ones(len(a)))
 
     # Referrals and acquaintance: Chung-Lu draws weighted by activity.
     offsets = np.searchsorted(store, np.arange(k + 1))
-    draws = int(members * 2.2)
+    draws = int(members * 2.5)
     cross = rng.random(draws) < cross_store_share
     p_all = activity / activity.sum()
     a = rng.choice(members, size=draws, p=p_all)
