@@ -6,13 +6,15 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from service.jobs.tasks.diffusion_settings import ProbabilitySettings
+from service.jobs.tasks.referral_asks import FollowOn
+
 __all__ = [
     "Method",
     "METHOD_ALIASES",
     "SharedContactRead",
     "RecommendationRead",
     "RecommendationPage",
-    "ProbabilitySpec",
     "NextContactsRequest",
     "AskRead",
     "NextContactRead",
@@ -34,8 +36,6 @@ Method = Literal[
 #: Accepted spellings -> the analytics method name.
 METHOD_ALIASES = {"tie_strength": "weighted_adamic_adar"}
 
-Scheme = Literal["weighted_cascade", "uniform", "trivalency", "per_interaction", "normalized", "explicit"]
-FollowOn = Literal["degree", "in_degree", "out_degree", "strength", "pagerank", "coreness"]
 
 
 class SharedContactRead(BaseModel):
@@ -62,16 +62,6 @@ class RecommendationPage(BaseModel):
     items: list[RecommendationRead]
 
 
-class ProbabilitySpec(BaseModel):
-    """How edges get activation probabilities (see the diffusion settings)."""
-
-    model_config = ConfigDict(extra="forbid")
-
-    scheme: Scheme = "weighted_cascade"
-    p: float | None = Field(default=None, ge=0, le=1, description="Probability of every edge (uniform).")
-    q: float | None = Field(default=None, ge=0, le=1, description="Per-interaction probability (per_interaction).")
-
-
 class NextContactsRequest(BaseModel):
     """Who has adopted, and how to rank the people they reach."""
 
@@ -84,7 +74,7 @@ class NextContactsRequest(BaseModel):
         default=50, ge=1, description="At most this many people (grouped: adopters); null for all."
     )
     model: Literal["ic", "lt"] = Field(default="ic", description="Independent Cascade or Linear Threshold.")
-    probability: ProbabilitySpec = Field(default_factory=ProbabilitySpec)
+    probability: ProbabilitySettings = Field(default_factory=ProbabilitySettings)
     random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds the trivalency draw.")
     version: int | Literal["latest"] | None = Field(default=None, description="Version number; newest by default.")
     follow_on: FollowOn | None = Field(
@@ -134,7 +124,7 @@ class NextContactsPage(BaseModel):
     graph_id: str
     version: int
     model: str
-    probability: ProbabilitySpec
+    probability: ProbabilitySettings
     follow_on: str | None
     blend: float
     adopters: int = Field(description="Distinct adopters found in the graph.")

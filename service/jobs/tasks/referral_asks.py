@@ -1,0 +1,144 @@
+"""``referral_asks``: for every adopter of a campaign, whom they should be asked to refer.
+
+The batch form of ``POST /v1/graphs/{id}/next-contacts`` with
+``group_by=adopter`` (``service.analytics.referrals.referral_asks``), for
+nightly exports: each exposed non-adopter is assigned to one adopter only,
+its strongest tie, at most ``per_adopter`` per adopter. Contact consent is
+honoured for targets and askers. Rows are stored as arrays and exported by
+``GET /v1/jobs/{job_id}/result.csv``; :func:`contact_reason` words the
+numbers, here and in the HTTP answer.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+from typing import TYPE_CHECKING, Any, Literal
+
+import numpy as np
+from numpy.typing import NDArray
+from pydantic import BaseModel, ConfigDict, Field
+
+from ..kinds import JobKind, TaskContext, TaskOutput
+from .diffusion_settings import ProbabilitySettings
+from .recommendations import resolve_ids
+
+if TYPE_CHECKING:
+    from service.analytics.referrals import NextContact
+    from service.loader import LoadedVersion
+
+__all__ = ["FollowOn", "ReferralAsksParams", "contact_reason", "run", "csv_table", "KIND"]
+
+FollowOn = Literal["degree", "in_degree", "out_degree", "strength", "pagerank", "coreness"]
+
+
+class ReferralAsksParams(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    adopters: list[str] = Field(min_length=1, description="Ids of the people who have adopted.")
+    per_adopter: int = Field(default=5, ge=1, le=1000, description="Targets per adopter.")
+    model: Literal["ic", "lt"] = Field(default="ic", description="Independent Cascade or Linear Threshold.")
+    probability: ProbabilitySettings = Field(default_factory=ProbabilitySettings)
+    random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds the trivalency draw.")
+    follow_on: FollowOn | None = Field(default=None, description="Blend in this per-node measure.")
+    blend: float | None = Field(default=None, ge=0, le=1, description="Weight of follow_on (default 0.5 with it).")
+    strict: bool = Field(default=True, description="Unknown adopter ids fail the job (true) or are skipped.")
+
+
+def contact_reason(c: NextContact, ids: list[str], model: str, follow_on: str | None, blend: float) -> str:
+    """The numbers of one next contact in plain words."""
+    who = f"{c.adopter_contacts} adopter{'s' if c.adopter_contacts != 1 else ''} in contact"
+    chance = "reached next round" if model == "ic" else "threshold met next round"
+    text = f"{who} (chance {c.exposure:.2f} of being {chance})"
+    if c.ask >= 0:
+        text += f"; strongest tie {ids[c.ask]} ({c.ask_tie:.2f})"
+    else:
+        text += "; none of them may be asked (no contact consent)"
+    if follow_on is not None and blend > 0:
+        # score = (1 - blend) exposure + blend share, share = follow-on / its maximum over the exposed
+        share = (c.score - (1.0 - blend) * c.exposure) / blend
+        text += f"; follow-on {follow_on} at {max(0.0, share):.2f} of the highest among the exposed"
+    return text
+
+
+def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
+    from service.analytics.referrals import referral_asks
+    from service.diffusion_cache import diffusion_graph_for
+    from service.indexes import follow_on_for, neighbour_index_for
+
+    v = ctx.load()
+    known = {s: i for s, i in ((s, v.index.get(s)) for s in params.adopters) if i is not None}
+    skipped = len(set(params.adopters)) - len(known)
+    adopters = (resolve_ids(v.index, params.adopters, "adopters") if params.strict
+                else np.fromiter(known.values(), np.int64, len(known)))
+    pr = params.probability
+    dg = diffusion_graph_for(v.version_id, v.graph, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
+                             random_seed=params.random_seed)
+    ok = v.attrs.contactable()
+    blend = params.blend if params.blend is not None else (0.5 if params.follow_on else 0.0)
+    values = follow_on_for(v.version_id, v.graph, params.follow_on) if params.follow_on else None
+    ctx.progress(0.5, "ranking")
+    groups = referral_asks(dg, np.unique(adopters), index=neighbour_index_for(v.version_id, v.graph),
+                           eligible=ok, askers=ok, per_adopter=params.per_adopter, limit=None,
+                           follow_on=values, blend=blend)
+    targets = [(g.adopter, r, t) for g in groups for r, t in enumerate(g.targets)]
+    arrays: dict[str, NDArray[Any]] = {
+        "adopter": np.fromiter((a for a, _, _ in targets), np.int32, len(targets)),
+        "rank": np.fromiter((r + 1 for _, r, _ in targets), np.int32, len(targets)),
+        "target": np.fromiter((t.node for _, _, t in targets), np.int32, len(targets)),
+        "exposure": np.fromiter((t.exposure for _, _, t in targets), np.float64, len(targets)),
+        "score": np.fromiter((t.score for _, _, t in targets), np.float64, len(targets)),
+        "tie_strength": np.fromiter((t.ask_tie for _, _, t in targets), np.float64, len(targets)),
+        "probability": np.fromiter((t.ask_probability for _, _, t in targets), np.float64, len(targets)),
+        "adopter_contacts": np.fromiter((t.adopter_contacts for _, _, t in targets), np.int32, len(targets)),
+    }
+    return TaskOutput(
+        data={
+            "adopters": int(np.unique(adopters).shape[0]),
+            "unknown_adopters": skipped,
+            "askers": len(groups),
+            "targets": len(targets),
+            "expected_referrals": float(sum(g.expected_referrals for g in groups)),
+            "model": params.model,
+            "blend": blend,
+            "columns": HEADER,
+        },
+        arrays=arrays,
+    )
+
+
+HEADER = ["adopter_id", "rank", "target_id", "exposure", "score", "tie_strength", "probability",
+          "adopter_contacts", "reason"]
+
+
+def csv_table(
+    version: LoadedVersion, data: dict[str, Any], arrays: dict[str, NDArray[Any]]
+) -> tuple[list[str], Iterator[list[Any]]]:
+    """One row per (adopter, target), adopters by expected referrals, targets best first."""
+    from service.analytics.referrals import NextContact
+
+    ids = version.ids
+    params = data.get("params") or {}
+    cols = {k: a.tolist() for k, a in arrays.items()}
+
+    def rows() -> Iterator[list[Any]]:
+        for i in range(len(cols["adopter"])):
+            c = NextContact(cols["target"][i], cols["exposure"][i], cols["score"][i], cols["adopter"][i],
+                            cols["tie_strength"][i], cols["probability"][i], cols["adopter_contacts"][i])
+            reason = contact_reason(c, ids, data["model"], params.get("follow_on"), float(data["blend"]))
+            yield [ids[c.ask], cols["rank"][i], ids[c.node], c.exposure, c.score, c.ask_tie,
+                   c.ask_probability, c.adopter_contacts, reason]
+
+    return HEADER, rows()
+
+
+KIND = JobKind(
+    name="referral_asks",
+    params=ReferralAsksParams,
+    run=run,
+    summary="For every adopter, whom to ask them to refer (each target assigned to one adopter)",
+    result_description=(
+        "Counts (adopters, unknown_adopters, askers, targets, expected_referrals) and the columns of "
+        "the CSV export GET /v1/jobs/{job_id}/result.csv: adopter_id, rank, target_id, exposure, "
+        "score, tie_strength, probability, adopter_contacts, reason. Rows are stored as arrays."
+    ),
+)
