@@ -7,13 +7,15 @@ psycopg 3 (``postgresql+psycopg://``).
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import Any
 
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session, sessionmaker
 
-__all__ = ["make_engine", "make_sessionmaker", "is_sqlite", "normalise_url"]
+__all__ = ["make_engine", "make_sessionmaker", "is_sqlite", "normalise_url", "write_session"]
 
 SQLITE_BUSY_TIMEOUT_MS = 30_000
 
@@ -65,3 +67,20 @@ def _install_sqlite_pragmas(engine: Engine) -> None:
     def _on_begin(conn: Any) -> None:
         mode = conn.info.pop("sqlite_begin", "DEFERRED")
         conn.exec_driver_sql(f"BEGIN {mode}")
+
+
+@contextmanager
+def write_session(maker: sessionmaker[Session]) -> Iterator[Session]:
+    """A session whose first transaction is ``BEGIN IMMEDIATE`` on SQLite (plain elsewhere)."""
+    bind = maker.kw.get("bind")
+    if not isinstance(bind, Engine) or not is_sqlite(bind):
+        with maker() as db:
+            yield db
+        return
+    with bind.connect() as conn:
+        conn.info["sqlite_begin"] = "IMMEDIATE"
+        try:
+            with maker(bind=conn) as db:
+                yield db
+        finally:
+            conn.info.pop("sqlite_begin", None)

@@ -10,8 +10,9 @@ from fastapi import Depends, Request
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.settings import Settings
+from storage.db import write_session
 
-__all__ = ["DbDep", "SettingsDep", "TenantDep", "Principal", "get_db", "get_settings", "get_principal"]
+__all__ = ["DbDep", "WriteDbDep", "get_write_db", "SettingsDep", "TenantDep", "Principal", "get_db", "get_settings", "get_principal"]
 
 
 @dataclass(frozen=True)
@@ -43,7 +44,19 @@ def get_principal(request: Request) -> Principal:
     return principal
 
 
+def get_write_db(request: Request) -> Iterator[Session]:
+    """A session whose transaction starts as a write (BEGIN IMMEDIATE on SQLite).
+
+    Routes that read and then write use it, so SQLite never has to upgrade a
+    read transaction to a write one (which fails at once under contention).
+    """
+    maker: sessionmaker[Session] = request.app.state.sessionmaker
+    with write_session(maker) as db:
+        yield db
+
+
 DbDep = Annotated[Session, Depends(get_db)]
+WriteDbDep = Annotated[Session, Depends(get_write_db)]
 SettingsDep = Annotated[Settings, Depends(get_settings)]
 PrincipalDep = Annotated[Principal, Depends(get_principal)]
 

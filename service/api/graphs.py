@@ -12,10 +12,11 @@ from fastapi.responses import JSONResponse
 
 
 from service.loader import load_version
+from storage.db import write_session
 from storage.repo import graphs as graph_repo
 from storage.repo import idempotency as idem_repo
 
-from .deps import DbDep, SettingsDep, TenantDep
+from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep
 from .errors import InvalidParams, UnsupportedMediaType
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.graphs import GraphCreate, GraphPage, GraphRead, VersionList, VersionRead
@@ -63,7 +64,7 @@ def _hash(*parts: object) -> str:
 
 @router.post("", status_code=status.HTTP_201_CREATED, summary="Create a graph")
 def create_graph(
-    body: GraphCreate, db: DbDep, tenant: TenantDep, response: Response, idempotency_key: IdemKey = None
+    body: GraphCreate, db: WriteDbDep, tenant: TenantDep, response: Response, idempotency_key: IdemKey = None
 ) -> GraphRead:
     route, digest = "POST /v1/graphs", _hash(body.model_dump())
     if idempotency_key:
@@ -112,7 +113,7 @@ def read_graph(graph_id: str, db: DbDep, tenant: TenantDep) -> GraphRead:
 
 
 @router.delete("/{graph_id}", status_code=status.HTTP_204_NO_CONTENT, summary="Delete a graph and everything made from it")
-def delete_graph(graph_id: str, db: DbDep, tenant: TenantDep) -> Response:
+def delete_graph(graph_id: str, db: WriteDbDep, tenant: TenantDep) -> Response:
     graph = graph_repo.get_graph(db, tenant, graph_id)
     graph_repo.delete_graph(db, graph)
     db.commit()
@@ -190,6 +191,11 @@ async def create_version(
         digest = _hash(spool.sha256, options)
 
         def work() -> tuple[int, dict[str, object], str]:
+            # Read (and build the new version) outside any write transaction, then
+            # write in one short BEGIN IMMEDIATE transaction: on SQLite a deferred
+            # transaction that reads first and writes later fails with "database is
+            # locked" when another writer got in between. The compare-and-set in
+            # add_version turns a concurrent upload into a clean 409 instead.
             with maker() as db:
                 g = graph_repo.get_graph(db, tenant, graph_id)
                 if idempotency_key:
@@ -197,10 +203,17 @@ async def create_version(
                     if replay is not None:
                         return replay.status_code, replay.body, replay.location or ""
                 based_on = g.latest_version
+                directed, self_loops = g.directed, g.allow_self_loops
                 previous = load_version(db, graph_repo.get_version(db, g)) if based_on else None
-                made = ingest.build_version(
-                    spool.path, options, directed=g.directed, allow_self_loops=g.allow_self_loops, previous=previous
-                )
+            made = ingest.build_version(
+                spool.path, options, directed=directed, allow_self_loops=self_loops, previous=previous
+            )
+            with write_session(maker) as db:
+                g = graph_repo.get_graph(db, tenant, graph_id)
+                if idempotency_key:
+                    replay = idem_repo.get_replay(db, tenant, idempotency_key, route, digest)
+                    if replay is not None:
+                        return replay.status_code, replay.body, replay.location or ""
                 version = graph_repo.add_version(
                     db,
                     g,

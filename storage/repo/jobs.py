@@ -28,6 +28,7 @@ from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session, sessionmaker
 
 from ..db import is_sqlite
+from ..db import write_session
 from ..errors import Conflict, LeaseLost, NotFound
 from ..models import FINISHED_STATUSES, Job, new_id
 from .graphs import decode_cursor, encode_cursor
@@ -53,23 +54,6 @@ __all__ = [
     "cancel",
     "purge",
 ]
-
-
-@contextmanager
-def write_session(maker: sessionmaker[Session]) -> Iterator[Session]:
-    """A session whose first transaction is ``BEGIN IMMEDIATE`` on SQLite (plain elsewhere)."""
-    bind = maker.kw.get("bind")
-    if not isinstance(bind, Engine) or not is_sqlite(bind):
-        with maker() as db:
-            yield db
-        return
-    with bind.connect() as conn:
-        conn.info["sqlite_begin"] = "IMMEDIATE"
-        try:
-            with maker(bind=conn) as db:
-                yield db
-        finally:
-            conn.info.pop("sqlite_begin", None)
 
 
 def add_job(

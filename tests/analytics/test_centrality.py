@@ -1,4 +1,4 @@
-"""Tests for service.analytics.centrality: every measure against NetworkX, sampled
+"""Tests for service.analytics.centrality and .paths: every measure against NetworkX, sampled
 betweenness against exact betweenness, and the scores() wrapper."""
 
 from __future__ import annotations
@@ -12,6 +12,7 @@ import pytest
 
 from service.analytics import _centrality_kernels as kernels
 from service.analytics import centrality as C
+from service.analytics import paths as P
 from service.analytics.errors import Cancelled, ComputationFailed, InvalidParameter
 from service.analytics.graph import GraphArrays, arcs, csr, to_igraph
 from tests.datasets import snap_graph
@@ -136,12 +137,12 @@ def test_harmonic_in_mode_and_cutoff_match_networkx() -> None:
     n = G.number_of_nodes()
     g = from_nx(G)
     # Source: nx.harmonic_centrality (distances *to* the node) on the same graph.
-    assert C.harmonic_closeness(g, mode="in") == pytest.approx(
+    assert P.harmonic_closeness(g, mode="in") == pytest.approx(
         vec(nx.harmonic_centrality(G), n), abs=TOL)
     # Source: NetworkX single_source_shortest_path_length with cutoff=2, summed here.
     expect = [sum(1.0 / d for d in nx.single_source_shortest_path_length(G, u, cutoff=2)
                   .values() if d > 0) for u in range(n)]
-    assert C.harmonic_closeness(g, cutoff=2) == pytest.approx(expect, abs=TOL)
+    assert P.harmonic_closeness(g, cutoff=2) == pytest.approx(expect, abs=TOL)
 
 
 def test_pagerank_dangling_and_personalised_match_networkx() -> None:
@@ -198,8 +199,8 @@ def test_vertex_diameter_bound_is_an_upper_bound(G) -> None:
     g = from_nx(G)
     a = arcs(g)
     out, inn = csr(g.n, a.src, a.dst, a.weight), csr(g.n, a.dst, a.src, a.weight)
-    from scipy.sparse.csgraph import connected_components
     from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import connected_components
 
     adj = csr_matrix((np.ones(len(a.src)), (a.src, a.dst)), shape=(g.n, g.n))
     k, labels = connected_components(adj, directed=g.directed, connection="strong")
@@ -215,8 +216,8 @@ def test_sampled_betweenness_converges_to_exact(make, wt) -> None:
     G = make()
     g = from_nx(G, wt)
     n = g.n
-    exact, _ = C.betweenness(g, method="exact")
-    est, meta = C.betweenness(g, method="sampled", epsilon=0.01, delta=0.1, random_seed=5)
+    exact, _ = P.betweenness(g, method="exact")
+    est, meta = P.betweenness(g, method="sampled", epsilon=0.01, delta=0.1, random_seed=5)
     r = meta["samples"]
     # RK scale: share of the n(n-1) ordered pairs; each sample is a Bernoulli draw
     # for every node with mean b_rk, so the estimate has standard error
@@ -226,25 +227,25 @@ def test_sampled_betweenness_converges_to_exact(make, wt) -> None:
     se = np.sqrt(b_rk * (1 - b_rk) / r)
     assert np.all(np.abs(e_rk - b_rk) <= 4.5 * se + 1e-12)
     assert meta["method"] == "sampled" and meta["epsilon"] == 0.01
-    assert r == C.rk_sample_size(meta["vertex_diameter_bound"], 0.01, 0.1)
+    assert r == P.rk_sample_size(meta["vertex_diameter_bound"], 0.01, 0.1)
     assert meta["error_bound"] == pytest.approx(0.01 * n / (n - 2))
 
 
 def test_rk_sample_size_formula() -> None:
     # Source: Riondato and Kornaropoulos 2014, r = (c/eps^2)(floor(log2(VD-2)) + 1
     # + ln(1/delta)), c = 0.5 (formula from memory, REFERENCES.md); evaluated by hand.
-    assert C.rk_sample_size(18, 0.01, 0.1) == math.ceil(5000 * (4 + 1 + math.log(10)))
-    assert C.rk_sample_size(2, 0.01, 0.1) == 0
+    assert P.rk_sample_size(18, 0.01, 0.1) == math.ceil(5000 * (4 + 1 + math.log(10)))
+    assert P.rk_sample_size(2, 0.01, 0.1) == 0
 
 
 def test_sampled_betweenness_is_reproducible_and_chunk_independent() -> None:
     g = from_nx(karate(False))
-    a, _ = C.betweenness(g, method="sampled", epsilon=0.05, random_seed=3)
-    b, _ = C.betweenness(g, method="sampled", epsilon=0.05, random_seed=3)
-    c, _ = C.betweenness(g, method="sampled", epsilon=0.05, random_seed=4)
+    a, _ = P.betweenness(g, method="sampled", epsilon=0.05, random_seed=3)
+    b, _ = P.betweenness(g, method="sampled", epsilon=0.05, random_seed=3)
+    c, _ = P.betweenness(g, method="sampled", epsilon=0.05, random_seed=4)
     assert np.array_equal(a, b) and not np.array_equal(a, c)
     seen: list[float] = []
-    C.betweenness(g, method="sampled", epsilon=0.005, progress=lambda f, m: seen.append(f))
+    P.betweenness(g, method="sampled", epsilon=0.005, progress=lambda f, m: seen.append(f))
     assert seen and seen[-1] == 1.0 and seen == sorted(seen)
 
 
@@ -253,8 +254,8 @@ def test_sampled_betweenness_on_ca_grqc_within_eps() -> None:
     g, _ = snap_graph("ca-GrQc", directed=False)
     n = g.n
     eps, delta = 0.01, 0.1
-    exact, _ = C.betweenness(g, method="exact")
-    est, meta = C.betweenness(g, method="sampled", epsilon=eps, delta=delta, random_seed=0)
+    exact, _ = P.betweenness(g, method="exact")
+    est, meta = P.betweenness(g, method="sampled", epsilon=eps, delta=delta, random_seed=0)
     # Normalised as RK do: divide the ordered-pair sum by n(n-1).
     # Source: exact Brandes betweenness (igraph) on ca-GrQc (SNAP, datasets/).
     err = np.abs(est - exact) * (n - 2) / n
