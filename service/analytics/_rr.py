@@ -260,6 +260,7 @@ def greedy_cover(
         gains.append(g)
         total += g
     avail = rules.candidates.copy()
+    _close_full_groups(avail, rules)
     caps_used = np.zeros(0 if rules.caps_left is None else rules.caps_left.shape[0], np.int64)
     budget_left = math.inf if rules.budget_left is None else float(rules.budget_left)
     costs = rules.costs if rules.costs is not None else np.empty(0, dtype=np.float64)
@@ -361,3 +362,11 @@ def _modular_bound(counts: NDArray[np.int64], rules: Rules) -> float:
     if not bounds:
         bounds.append(float(vals.sum()))
     return min(bounds)
+
+
+def _close_full_groups(avail: np.ndarray, rules: Rules) -> None:
+    """Bar every group whose cap is already used up (by must-include people, or a cap of 0)."""
+    if rules.caps_left is not None and rules.group is not None:
+        full = np.flatnonzero(np.asarray(rules.caps_left) <= 0)
+        if full.size:
+            avail[np.isin(rules.group, full)] = False

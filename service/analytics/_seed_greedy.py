@@ -230,6 +230,7 @@ def _pick(scores_at: Callable[[], NDArray[np.float64]], rules: Rules,
         seeds.append(v)
         on_pick(v)
     avail = rules.candidates.copy()
+    _close_full_groups(avail, rules)
     used = None if rules.caps_left is None else np.zeros_like(rules.caps_left)
     room = math.inf if rules.budget_left is None else rules.budget_left
     costs = rules.costs if rules.costs is not None else np.empty(0)
@@ -430,3 +431,11 @@ def top_score_seeds(
         texts.append("; ".join([f"{score_name} {s[v]:.4g}, rank {rank:,} of {n:,}"] + extra))
     return _baseline(f"top_{score_name}", seeds, texts, rules, t0, f"top {score_name}",
                      [float(s[v]) for v in seeds])
+
+
+def _close_full_groups(avail: np.ndarray, rules: Rules) -> None:
+    """Bar every group whose cap is already used up (by must-include people, or a cap of 0)."""
+    if rules.caps_left is not None and rules.group is not None:
+        full = np.flatnonzero(np.asarray(rules.caps_left) <= 0)
+        if full.size:
+            avail[np.isin(rules.group, full)] = False

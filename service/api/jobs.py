@@ -17,6 +17,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.jobs import registry, webhooks
 from service.jobs.clock import Clock, SystemClock
 from service.jobs.errors import ResultNotReady
+from service.loader import load_version
 from storage.errors import NotFound
 from storage.models import FINISHED_STATUSES, Graph, Job, JobResult
 from storage.repo import graphs as graph_repo
@@ -99,6 +100,13 @@ def create_job(
     registry.import_kind_modules(settings.job_kind_modules)
     digest = _request_hash("POST /v1/graphs/{graph_id}/jobs", graph_id, body.model_dump(mode="json"))
     now = clock_of(request).now()
+    kind = registry.get_kind(body.kind) if body.kind in registry.REGISTRY else None
+    if kind is not None and kind.precheck is not None:
+        # Before the write transaction: checking ids may load the version.
+        with maker_of(request)() as db:
+            graph, number, params = resolve_job_spec(db, tenant, graph_id, body)
+            row = graph_repo.get_version(db, graph, number)
+            kind.precheck(kind.params.model_validate(params), lambda: load_version(db, row), edges=row.edges)
     with job_repo.write_session(maker_of(request)) as db:
         if idempotency_key:
             replay = job_repo.get_by_idempotency_key(db, tenant, idempotency_key, digest)
@@ -197,10 +205,10 @@ async def read_job(
 
     job = await run_in_threadpool(fetch)
     deadline = time.monotonic() + min(wait, settings.wait_max_seconds)
-    delay = 0.05
+    delay = 0.02
     while job.status not in FINISHED_STATUSES and time.monotonic() < deadline:
         await asyncio.sleep(min(delay, max(deadline - time.monotonic(), 0)))
-        delay = min(delay * 1.5, 0.5)
+        delay = min(delay * 1.5, 0.1)  # one primary-key read a poll: cheap, and short jobs answer fast
         if await run_in_threadpool(status_of) in FINISHED_STATUSES or time.monotonic() >= deadline:
             job = await run_in_threadpool(fetch)
             break

@@ -71,3 +71,6 @@ class JobKind:
     result_description: str
     needs_graph: bool = True
     result_model: type[BaseModel] | None = None
+    # Checks that need the version, run at job creation in the API process:
+    # ``precheck(params, load, edges=...)`` raises an analytics error (a 422) or returns.
+    precheck: Callable[..., None] | None = None

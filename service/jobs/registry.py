@@ -41,7 +41,7 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import profile
+from .tasks import forecast, link_evaluation, profile, recommendations, referral_asks, scores, shortlist
 
 __all__ = [
     "JobKind",
@@ -55,7 +55,7 @@ __all__ = [
     "validation_errors",
 ]
 
-_BUILTIN = [profile]
+_BUILTIN = [profile, recommendations, link_evaluation, referral_asks, scores, forecast, shortlist]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
 

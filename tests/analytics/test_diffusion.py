@@ -14,6 +14,7 @@ import numpy as np
 import pytest
 
 from service.analytics import diffusion as D
+from service.analytics import forecasts as F
 from service.analytics.errors import Cancelled, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, diffusion_graph
 
@@ -160,7 +161,7 @@ def test_node_probabilities_and_adoption_curve_match_enumeration(model):
     probs = MIXED_P if model == "ic" else [0.4, 0.3, 0.5, 0.7, 0.2, 0.6, 0.9]
     dg = build(5, MIXED_EDGES, model=model, probs=probs)
     p_node, by_round = exact(dg, [0])
-    res = D.forecast(dg, {"s": [0]}, simulations=20_000, min_simulations=20_000,
+    res = F.forecast(dg, {"s": [0]}, simulations=20_000, min_simulations=20_000,
                      top_nodes=5, include_seeds=True, random_seed=2)["s"]
     # Source: exact enumeration of live-edge worlds (IC: 2^7; LT: in-arc choices).
     for nr in res.top_nodes:
@@ -268,23 +269,23 @@ def medium():
 
 
 def test_forecast_stops_early_with_loose_precision(medium):
-    res = D.forecast(medium, {"a": [0, 1, 2]}, simulations=50_000, precision=5.0)["a"]
+    res = F.forecast(medium, {"a": [0, 1, 2]}, simulations=50_000, precision=5.0)["a"]
     assert res.stopped_because == "precision_reached"
     assert 200 <= res.simulations < 50_000
     assert res.half_width <= 5.0
-    rel = D.forecast(medium, {"a": [0, 1, 2]}, simulations=50_000,
+    rel = F.forecast(medium, {"a": [0, 1, 2]}, simulations=50_000,
                      relative_precision=0.2)["a"]
     assert rel.stopped_because == "precision_reached"
     assert rel.half_width <= 0.2 * rel.expected_reach.mean
 
 
 def test_forecast_hits_the_cap_with_tight_precision(medium):
-    res = D.forecast(medium, {"a": [0, 1, 2]}, simulations=1000, precision=1e-6)["a"]
+    res = F.forecast(medium, {"a": [0, 1, 2]}, simulations=1000, precision=1e-6)["a"]
     assert res.stopped_because == "simulation_cap" and res.simulations == 1000
-    both = D.forecast(medium, {"a": [0, 1, 2]}, simulations=1000, precision=1e6,
+    both = F.forecast(medium, {"a": [0, 1, 2]}, simulations=1000, precision=1e6,
                       relative_precision=1e-9)["a"]
     assert both.stopped_because == "simulation_cap"  # both criteria must hold
-    plain = D.forecast(medium, {"a": [0, 1, 2]}, simulations=700)["a"]
+    plain = F.forecast(medium, {"a": [0, 1, 2]}, simulations=700)["a"]
     assert plain.simulations == 700 and plain.stopped_because == "simulation_cap"
 
 
@@ -292,7 +293,7 @@ def test_forecast_statistics_are_consistent(medium):
     labels = ("x", "y")
     segments = (np.arange(2000) % 3 - 1).astype(np.int32)  # -1, 0, 1, -1, ...
     weights = np.where(np.arange(2000) % 2 == 0, 1.0, 0.0)
-    res = D.forecast(medium, {"a": [0, 1, 2], "b": [5]}, simulations=400, min_simulations=400,
+    res = F.forecast(medium, {"a": [0, 1, 2], "b": [5]}, simulations=400, min_simulations=400,
                      segments=segments, segment_labels=labels, weights=weights,
                      confidence=0.9, top_nodes=7)
     assert list(res) == ["a", "b"]
@@ -313,7 +314,7 @@ def test_forecast_statistics_are_consistent(medium):
     assert sum(a.segment_reach.values()) <= e.mean
     assert set(a.segment_reach) == set(labels)
     assert a.stream_key == D.stream_key(0, "a") and res["b"].stream_key == D.stream_key(0, "b")
-    alone = D.forecast(medium, {"b": [5]}, simulations=400, min_simulations=400,
+    alone = F.forecast(medium, {"b": [5]}, simulations=400, min_simulations=400,
                        confidence=0.9)["b"]
     assert alone.expected_reach == res["b"].expected_reach  # a set's stream is its own
     assert a.weighted_percentiles is not None and alone.weighted_reach is None
@@ -323,7 +324,7 @@ def test_forecast_segment_reach_matches_enumeration():
     dg = build(5, MIXED_EDGES, probs=MIXED_P)
     p_node, _ = exact(dg, [0])
     codes = np.array([0, 1, 1, -1, 0], np.int32)
-    res = D.forecast(dg, {"s": [0]}, simulations=20_000, min_simulations=20_000,
+    res = F.forecast(dg, {"s": [0]}, simulations=20_000, min_simulations=20_000,
                      segments=codes, segment_labels=("p", "q"), random_seed=8)["s"]
     # Source: exact enumeration; expected reach in a segment = sum of its nodes' P(reached).
     # Bound: each node's count is binomial, so the sum's standard error is at most the
@@ -336,23 +337,23 @@ def test_forecast_segment_reach_matches_enumeration():
 
 def test_forecast_reproducible_and_batch_independent(medium):
     kw = dict(simulations=2000, precision=2.0, random_seed=11)
-    r1 = D.forecast(medium, {"a": [0, 3]}, **kw)["a"]
-    r2 = D.forecast(medium, {"a": [3, 0]}, **kw)["a"]
+    r1 = F.forecast(medium, {"a": [0, 3]}, **kw)["a"]
+    r2 = F.forecast(medium, {"a": [3, 0]}, **kw)["a"]
     assert r1.expected_reach == r2.expected_reach and r1.by_round == r2.by_round
     assert r1.top_nodes == r2.top_nodes and r1.simulations == r2.simulations
     # The first N runs of a forecast are the N runs of estimate_spread's stream for that key:
     # same numbers whatever the batch schedule.
-    fixed = D.forecast(medium, {"a": [0, 3]}, simulations=r1.simulations,
+    fixed = F.forecast(medium, {"a": [0, 3]}, simulations=r1.simulations,
                        min_simulations=r1.simulations, random_seed=11)["a"]
     assert fixed.expected_reach == r1.expected_reach
-    other = D.forecast(medium, {"a": [0, 3]}, simulations=500, random_seed=12)["a"]
-    assert other.expected_reach != D.forecast(medium, {"a": [0, 3]}, simulations=500,
+    other = F.forecast(medium, {"a": [0, 3]}, simulations=500, random_seed=12)["a"]
+    assert other.expected_reach != F.forecast(medium, {"a": [0, 3]}, simulations=500,
                                               random_seed=11)["a"].expected_reach
 
 
 def test_forecast_progress_and_cancel(medium):
     seen = []
-    D.forecast(medium, {"a": [0], "b": [1]}, simulations=3000, min_simulations=200,
+    F.forecast(medium, {"a": [0], "b": [1]}, simulations=3000, min_simulations=200,
                progress=lambda f, msg: seen.append((f, msg)))
     fractions = [f for f, _ in seen]
     assert fractions == sorted(fractions) and fractions[-1] == 1.0 and len(seen) >= 4
@@ -362,7 +363,7 @@ def test_forecast_progress_and_cancel(medium):
         raise Cancelled(job="x")
 
     with pytest.raises(Cancelled):
-        D.forecast(medium, {"a": [0]}, simulations=3000, progress=cancel)
+        F.forecast(medium, {"a": [0]}, simulations=3000, progress=cancel)
 
 
 def test_stream_key_is_the_documented_hash():
@@ -379,7 +380,7 @@ def test_validation_errors(medium):
         D.estimate_spread(medium, [0, 2000])
     assert err.value.data == {"field": "seeds", "node_index": 2000}
     with pytest.raises(UnknownNode) as err:
-        D.forecast(medium, {"north": [-1]})
+        F.forecast(medium, {"north": [-1]})
     assert err.value.data == {"field": "seed_sets.north", "node_index": -1}
     cases = [
         (lambda: D.estimate_spread(medium, []), "seeds"),
@@ -389,17 +390,17 @@ def test_validation_errors(medium):
         (lambda: D.estimate_spread(medium, [0], weights=-np.ones(2000)), "weights"),
         (lambda: D.independent_cascade(medium, [0], rounds=-1, rng_seed=0), "rounds"),
         (lambda: D.linear_threshold(medium, [0], rng_seed=0), "model"),
-        (lambda: D.forecast(medium, {}), "seed_sets"),
-        (lambda: D.forecast(medium, {"a": []}), "seed_sets.a"),
-        (lambda: D.forecast(medium, {"a": [0]}, confidence=1.0), "confidence"),
-        (lambda: D.forecast(medium, {"a": [0]}, confidence=0.0), "confidence"),
-        (lambda: D.forecast(medium, {"a": [0]}, precision=0.0), "precision"),
-        (lambda: D.forecast(medium, {"a": [0]}, precision=-1.0), "precision"),
-        (lambda: D.forecast(medium, {"a": [0]}, relative_precision=0), "relative_precision"),
-        (lambda: D.forecast(medium, {"a": [0]}, rounds=0), "rounds"),
-        (lambda: D.forecast(medium, {"a": [0]}, segments=np.full(2000, 2, np.int32),
+        (lambda: F.forecast(medium, {}), "seed_sets"),
+        (lambda: F.forecast(medium, {"a": []}), "seed_sets.a"),
+        (lambda: F.forecast(medium, {"a": [0]}, confidence=1.0), "confidence"),
+        (lambda: F.forecast(medium, {"a": [0]}, confidence=0.0), "confidence"),
+        (lambda: F.forecast(medium, {"a": [0]}, precision=0.0), "precision"),
+        (lambda: F.forecast(medium, {"a": [0]}, precision=-1.0), "precision"),
+        (lambda: F.forecast(medium, {"a": [0]}, relative_precision=0), "relative_precision"),
+        (lambda: F.forecast(medium, {"a": [0]}, rounds=0), "rounds"),
+        (lambda: F.forecast(medium, {"a": [0]}, segments=np.full(2000, 2, np.int32),
                             segment_labels=("x",)), "segments"),
-        (lambda: D.forecast(medium, {"a": [0]}, random_seed=1.5), "random_seed"),
+        (lambda: F.forecast(medium, {"a": [0]}, random_seed=1.5), "random_seed"),
     ]
     for call, field in cases:
         with pytest.raises(InvalidParameter) as err:

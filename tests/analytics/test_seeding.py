@@ -551,3 +551,25 @@ def test_imm_against_celf_and_baselines_on_coauthorship(name):
             assert im.mean > o.mean + margin, (other, im, o)
         else:  # at least as much as CELF within Monte Carlo error
             assert im.mean >= o.mean - margin, (other, im, o)
+
+
+def test_caps_already_filled_by_must_include_are_respected() -> None:
+    """A segment whose cap the must-include people use up gets no free pick (every method)."""
+    from service.analytics.graph import GraphArrays, diffusion_graph
+    from service.analytics.seeding import degree_discount_seeds, imm_seeds, opim_seeds, top_score_seeds
+
+    n = 8
+    g = GraphArrays(n, False, np.arange(7, dtype=np.int32), np.arange(1, 8, dtype=np.int32), np.ones(7))
+    dg = diffusion_graph(g, scheme="uniform", p=0.5)
+    seg = np.array([0, 0, 0, 0, 1, 1, 1, 1], np.int32)
+    rules = dict(must_include=[0], segments=seg, max_per_segment=1)
+    picks = [
+        imm_seeds(dg, 2, forecast_runs=50, **rules),
+        opim_seeds(dg, 2, forecast_runs=50, **rules),
+        top_score_seeds(np.arange(8.0)[::-1].copy(), 2, **rules),
+        degree_discount_seeds(dg, 2, p=0.5, **rules),
+    ]
+    for r in picks:
+        nodes = [s.node for s in r.seeds]
+        # Source: the rule itself. Node 0 fills segment 0's cap of 1; the free pick is from segment 1.
+        assert nodes[0] == 0 and seg[nodes[1]] == 1, (r.method, nodes)

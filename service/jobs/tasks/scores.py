@@ -8,6 +8,7 @@ node view and the communities view only slice arrays.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
@@ -160,10 +161,17 @@ def _document(
     return doc
 
 
+def precheck(params: ScoresParams, load: Callable[[], LoadedVersion], *, edges: int) -> None:
+    """Refuse unknown personalization ids at job creation (a 422 before anything is queued)."""
+    if params.personalization is not None:
+        check_params(load(), params)
+
+
 KIND = JobKind(
     name="scores",
     params=ScoresParams,
     run=run,
+    precheck=precheck,
     summary="Node scores: degree, strength, PageRank, eigenvector, hubs/authorities, betweenness, "
     "harmonic closeness, k-core, clustering, constraint, Leiden communities",
     result_description=(

@@ -1,0 +1,393 @@
+"""``forecast``: how far a message travels from given seeds, with honest uncertainty.
+
+One seed set (``seeds``) or several named ones (``seed_sets``, a what-if
+comparison in one request) are simulated under the shared diffusion settings
+(:class:`~service.jobs.tasks.diffusion_settings.DiffusionSettings`) by
+``service.analytics.forecasts.forecast``, until the confidence interval of the
+mean reach is as narrow as asked (``precision`` people, or
+``relative_precision`` of the mean) or ``simulations`` have run.
+
+Checks. What needs no graph is checked when the job is created (pydantic: ranges,
+exactly one of ``seeds``/``seed_sets``, ``p`` with uniform, ``q`` with
+per_interaction). What needs the version is done by :func:`prepare`, in the
+task and, through :func:`precheck`, at creation time in the API process when
+the version has at most :data:`PRECHECK_MAX_EDGES` edges (the version is then
+loaded there too, as the synchronous recommendation routes do; larger
+versions are checked by the worker only, so creating their jobs stays cheap):
+
+- unknown ids: :class:`UnknownNode` naming them (422);
+- duplicated ids: dropped, with a ``duplicate_seeds`` warning;
+- seeds without contact consent: a ``seeds_without_consent`` warning listing
+  them, or, with ``strict: true``, :class:`InfeasibleRequest` (422);
+- an unknown ``target_segment``, ``weights: "value"`` on a version without
+  values, ``explicit`` without a probability column, Linear Threshold whose
+  incoming weights exceed 1: :class:`InvalidParameter` (422).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from statistics import NormalDist
+from typing import TYPE_CHECKING, Any, Literal
+
+import numpy as np
+from numpy.typing import NDArray
+from pydantic import Field, model_validator
+
+from ..kinds import JobKind, TaskContext, TaskOutput
+from .diffusion_settings import DiffusionSettings
+
+if TYPE_CHECKING:
+    from service.analytics.forecasts import ForecastResult, IntervalEstimate
+    from service.loader import LoadedVersion
+
+__all__ = [
+    "ForecastParams",
+    "Prepared",
+    "prepare",
+    "precheck",
+    "run",
+    "warm_kernels",
+    "KIND",
+    "PRECHECK_MAX_EDGES",
+    "SINGLE_SET_NAME",
+]
+
+MAX_SIMULATIONS = 1_000_000
+MAX_SEEDS = 100_000
+MAX_SETS = 20
+PRECHECK_MAX_EDGES = 2_000_000
+SINGLE_SET_NAME = "seeds"
+LISTED = 20  # ids listed in a warning or error; the count says how many there were
+
+NodeId = str
+SetName = str
+
+
+class ForecastParams(DiffusionSettings):
+    seeds: list[NodeId] | None = Field(
+        default=None, min_length=1, max_length=MAX_SEEDS, description="One seed set: node ids."
+    )
+    seed_sets: dict[SetName, list[NodeId]] | None = Field(
+        default=None, min_length=1, max_length=MAX_SETS,
+        description="Several named seed sets, forecast side by side (a what-if comparison).",
+    )
+    simulations: int = Field(
+        default=10_000, ge=2, le=MAX_SIMULATIONS, description="Cap on simulations per seed set."
+    )
+    min_simulations: int = Field(
+        default=200, ge=2, le=MAX_SIMULATIONS,
+        description="Simulations before the stopping rule is first checked (clipped to simulations).",
+    )
+    precision: float | None = Field(
+        default=None, gt=0, description="Stop once the interval's half-width is at most this many people."
+    )
+    relative_precision: float | None = Field(
+        default=None, gt=0, lt=1, description="Stop once the half-width is at most this fraction of the mean."
+    )
+    confidence: float = Field(default=0.95, gt=0, lt=1, description="Level of the intervals.")
+    top_nodes: int = Field(default=20, ge=0, le=1000, description="How many of the most likely reached to list.")
+    top_nodes_include_seeds: bool = Field(default=False, description="Whether seeds may be listed in top_nodes.")
+    target_segment: str | None = Field(
+        default=None, min_length=1, description="Count reach within this segment only (target reach)."
+    )
+    weights: Literal["value"] | None = Field(
+        default=None, description="'value': target reach is the summed node value of those reached."
+    )
+    strict: bool = Field(
+        default=False, description="Seeds without contact consent are an error (true) or a warning (false)."
+    )
+
+    @model_validator(mode="after")
+    def _exactly_one_seed_list(self) -> ForecastParams:
+        if (self.seeds is None) == (self.seed_sets is None):
+            raise ValueError("give exactly one of seeds (a list of ids) or seed_sets (named lists of ids)")
+        for name, ids in (self.seed_sets or {}).items():
+            if not name or len(name) > 100:
+                raise ValueError("seed set names must have 1 to 100 characters")
+            if not 1 <= len(ids) <= MAX_SEEDS:
+                raise ValueError(f"seed set {name!r} must hold 1 to {MAX_SEEDS} ids")
+        return self
+
+    def named_sets(self) -> dict[str, list[str]]:
+        """The seed sets by name (``seeds`` is the set named :data:`SINGLE_SET_NAME`)."""
+        return dict(self.seed_sets) if self.seed_sets is not None else {SINGLE_SET_NAME: list(self.seeds or [])}
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """The parts of a forecast that need the version: indices, target weights, warnings."""
+
+    sets: dict[str, NDArray[np.int64]]
+    unique_ids: dict[str, list[str]]
+    weights: NDArray[np.float64] | None
+    target: dict[str, Any] | None
+    warnings: list[dict[str, Any]]
+
+
+def prepare(params: ForecastParams, version: LoadedVersion, *, check_settings: bool = False) -> Prepared:
+    """Resolve ids, target and contact rules against ``version``; raise the 422 errors.
+
+    ``check_settings`` also checks the diffusion settings against the version
+    (explicit probabilities present, LT weights at most 1) without building
+    the CSR arrays; the task leaves it off because building them checks the same.
+    """
+    from service.analytics.errors import InfeasibleRequest
+
+    if check_settings:
+        params.check_version(version)
+    index = version.index
+    ok = version.attrs.contactable()
+    sets: dict[str, NDArray[np.int64]] = {}
+    unique_ids: dict[str, list[str]] = {}
+    warnings: list[dict[str, Any]] = []
+    single = params.seed_sets is None
+    for name, ids in params.named_sets().items():
+        field = "seeds" if single else f"seed_sets.{name}"
+        where = "" if single else f" in seed set {name!r}"
+        unique = list(dict.fromkeys(ids))
+        idx = _resolve(index, unique, field, where)
+        if len(unique) < len(ids):
+            dupes = _duplicates(ids)
+            warnings.append(_warning("duplicate_seeds", name, dupes,
+                                     f"{len(dupes)} id(s) listed more than once{where}; each counts once"))
+        barred = [s for s, i in zip(unique, idx.tolist()) if not ok[i]]
+        if barred:
+            message = f"{len(barred)} seed(s){where} have no contact consent"
+            if params.strict:
+                raise InfeasibleRequest(
+                    message + " (strict: true); remove them or set strict to false",
+                    field=field, barred=barred[:LISTED], barred_count=len(barred),
+                )
+            warnings.append(_warning("seeds_without_consent", name, barred, message))
+        sets[name] = idx
+        unique_ids[name] = unique
+    weights, target = _target(params, version, warnings)
+    return Prepared(sets, unique_ids, weights, target, warnings)
+
+
+def precheck(params: ForecastParams, load: Callable[[], LoadedVersion], *, edges: int) -> None:
+    """The checks of :func:`prepare`, at job creation, for versions of at most PRECHECK_MAX_EDGES edges."""
+    if edges <= PRECHECK_MAX_EDGES:
+        prepare(params, load(), check_settings=True)
+
+
+def run(ctx: TaskContext, params: ForecastParams) -> TaskOutput:
+    from service.analytics.forecasts import forecast
+
+    v = ctx.load()
+    prep = prepare(params, v)
+    dg = params.diffusion_graph(v)
+    attrs = v.attrs
+    results = forecast(
+        dg,
+        prep.sets,
+        simulations=params.simulations,
+        min_simulations=min(params.min_simulations, params.simulations),
+        precision=params.precision,
+        relative_precision=params.relative_precision,
+        confidence=params.confidence,
+        rounds=params.rounds,
+        random_seed=params.random_seed,
+        segments=attrs.segment if attrs.segment_labels else None,
+        segment_labels=attrs.segment_labels,
+        weights=prep.weights,
+        top_nodes=params.top_nodes,
+        include_seeds=params.top_nodes_include_seeds,
+        progress=ctx.progress,
+    )
+    return TaskOutput(data=result_document(params, v, prep, results))
+
+
+# ------------------------------------------------------------------ the result
+
+
+def result_document(params: ForecastParams, v: LoadedVersion, prep: Prepared,
+                    results: dict[str, ForecastResult]) -> dict[str, Any]:
+    """The job's result (the worker adds graph_id, version, params, random_seed)."""
+    warnings = list(prep.warnings)
+    forecasts = []
+    for name, r in results.items():
+        forecasts.append(_one_set(name, r, v.ids, prep.target is not None, len(prep.unique_ids[name])))
+        asked = params.precision is not None or params.relative_precision is not None
+        if asked and r.stopped_because == "simulation_cap":
+            warnings.append({
+                "code": "precision_not_reached", "seed_set": name,
+                "message": f"the simulation cap ({params.simulations}) was reached before the asked "
+                           f"precision; the interval's half-width is {r.half_width:.4g}",
+            })
+    doc: dict[str, Any] = {
+        **params.describe(),
+        "confidence": params.confidence,
+        "nodes": v.graph.n,
+        "edges": v.graph.m,
+        "target": prep.target,
+        "forecasts": forecasts,
+        "warnings": warnings,
+    }
+    if len(forecasts) == 1:
+        doc.update({k: val for k, val in forecasts[0].items() if k not in ("name",)})
+    else:
+        doc["comparison"] = _comparison(forecasts, params.confidence, prep.target is not None)
+    return doc
+
+
+def _interval_doc(e: IntervalEstimate, confidence: float) -> dict[str, float]:
+    return {"mean": e.mean, "stderr": e.stderr, "ci_low": e.ci_low, "ci_high": e.ci_high,
+            "confidence": confidence}
+
+
+def _percentile_doc(p: dict[int, float]) -> dict[str, float]:
+    return {f"p{k}": v for k, v in p.items()}
+
+
+def _one_set(name: str, r: ForecastResult, ids: Sequence[str], targeted: bool, seed_count: int) -> dict[str, Any]:
+    out: dict[str, Any] = {
+        "name": name,
+        "seed_count": seed_count,
+        "expected_reach": _interval_doc(r.expected_reach, r.confidence),
+        "percentiles": _percentile_doc(r.percentiles),
+        "by_round": [
+            {"round": b.round, "new_mean": b.new_mean, "cumulative_mean": b.cumulative_mean,
+             "ci_low": b.cumulative_ci_low, "ci_high": b.cumulative_ci_high}
+            for b in r.by_round
+        ],
+        "top_nodes": [{"node_id": ids[t.node], "probability": t.probability, "stderr": t.stderr}
+                      for t in r.top_nodes],
+        "segment_reach": sorted(
+            ({"segment": s, "expected": e} for s, e in r.segment_reach.items()),
+            key=lambda d: -d["expected"],
+        ),
+        "simulations": r.simulations,
+        "stopped_because": r.stopped_because,
+        "half_width": r.half_width,
+        "stream_key": f"{r.stream_key:016x}",
+    }
+    if targeted and r.weighted_reach is not None and r.weighted_percentiles is not None:
+        out["target_reach"] = {**_interval_doc(r.weighted_reach, r.confidence),
+                               "percentiles": _percentile_doc(r.weighted_percentiles)}
+    return out
+
+
+def _comparison(forecasts: list[dict[str, Any]], confidence: float, targeted: bool) -> dict[str, Any]:
+    """Every pair's difference of means with a normal interval (the sets' runs are independent)."""
+    measure = "target_reach" if targeted else "expected_reach"
+    z = NormalDist().inv_cdf(0.5 + confidence / 2.0)
+    pairs = []
+    for i, a in enumerate(forecasts):
+        for b in forecasts[i + 1:]:
+            ea, eb = a[measure], b[measure]
+            diff = ea["mean"] - eb["mean"]
+            se = math.sqrt(ea["stderr"] ** 2 + eb["stderr"] ** 2)
+            lo, hi = diff - z * se, diff + z * se
+            pairs.append({"seed_set": a["name"], "versus": b["name"], "difference": diff, "stderr": se,
+                          "ci_low": lo, "ci_high": hi, "clearly_different": bool(lo > 0 or hi < 0)})
+    ranking = [f["name"] for f in sorted(forecasts, key=lambda f: -f[measure]["mean"])]
+    return {"measure": measure, "confidence": confidence, "ranking": ranking, "pairs": pairs}
+
+
+# ------------------------------------------------------------------ helpers
+
+
+def _resolve(index: dict[str, int], ids: list[str], field: str, where: str) -> NDArray[np.int64]:
+    from service.analytics.errors import UnknownNode
+
+    got = [index.get(s, -1) for s in ids]
+    unknown = [s for s, i in zip(ids, got) if i < 0]
+    if unknown:
+        shown = ", ".join(repr(s) for s in unknown[:5])
+        raise UnknownNode(
+            f"{len(unknown)} seed id(s){where} are not in this version: {shown}"
+            + (" ..." if len(unknown) > 5 else ""),
+            field=field, unknown=unknown[:LISTED], unknown_count=len(unknown),
+        )
+    return np.asarray(got, dtype=np.int64)
+
+
+def _duplicates(ids: list[str]) -> list[str]:
+    seen: set[str] = set()
+    dupes: dict[str, None] = {}
+    for s in ids:
+        if s in seen:
+            dupes[s] = None
+        seen.add(s)
+    return list(dupes)
+
+
+def _warning(code: str, name: str, ids: list[str], message: str) -> dict[str, Any]:
+    return {"code": code, "seed_set": name, "message": message, "node_ids": ids[:LISTED], "count": len(ids)}
+
+
+def _target(params: ForecastParams, v: LoadedVersion,
+            warnings: list[dict[str, Any]]) -> tuple[NDArray[np.float64] | None, dict[str, Any] | None]:
+    """Per-node weights of the target reach: segment membership, node value, or their product."""
+    from service.analytics.errors import InvalidParameter
+
+    if params.target_segment is None and params.weights is None:
+        return None, None
+    n = v.graph.n
+    w = np.ones(n, dtype=np.float64)
+    target: dict[str, Any] = {"segment": params.target_segment, "weights": params.weights}
+    if params.target_segment is not None:
+        labels = v.attrs.segment_labels
+        if params.target_segment not in labels:
+            known = ", ".join(repr(s) for s in labels[:10]) or "none"
+            raise InvalidParameter(
+                f"segment {params.target_segment!r} is not in this version (segments: {known})",
+                field="target_segment", known=list(labels[:50]),
+            )
+        code = labels.index(params.target_segment)
+        w *= v.attrs.segment == code
+        target["members"] = int(np.count_nonzero(w))
+    if params.weights == "value":
+        value = v.attrs.value
+        given = np.isfinite(value)
+        if not given.any():
+            raise InvalidParameter("weights 'value' needs node values; this version has none",
+                                   field="weights")
+        bad = np.flatnonzero(given & (value < 0))
+        if bad.size:
+            raise InvalidParameter(f"node {v.ids[int(bad[0])]!r} has a negative value", field="weights",
+                                   node_id=v.ids[int(bad[0])])
+        missing = int(n - np.count_nonzero(given))
+        if missing:
+            warnings.append({"code": "nodes_without_value", "message": f"{missing} node(s) have no value "
+                             "and count 0 in the target reach", "count": missing})
+        w *= np.where(given, value, 0.0)
+    return w, target
+
+
+def warm_kernels() -> None:
+    """Compile or load the simulation kernels now (a worker calls it at start, in a thread).
+
+    A fresh process otherwise pays the numba cache load on its first forecast.
+    """
+    from service.analytics.forecasts import forecast
+    from service.analytics.graph import GraphArrays, diffusion_graph
+
+    g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([1, 2], np.int32), np.ones(2))
+    for model, scheme in (("ic", "weighted_cascade"), ("lt", "normalized")):
+        dg = diffusion_graph(g, model=model, scheme=scheme)
+        forecast(dg, {"w": [0]}, simulations=20, min_simulations=20, weights=np.ones(3))
+        forecast(dg, {"w": [0]}, simulations=20, min_simulations=20)
+
+
+KIND = JobKind(
+    name="forecast",
+    params=ForecastParams,
+    run=run,
+    precheck=precheck,
+    summary="Reach forecast of one or several seed sets: mean with interval, percentiles, adoption curve",
+    result_description=(
+        "forecasts: one entry per seed set (name, seed_count, expected_reach {mean, stderr, ci_low, "
+        "ci_high, confidence}, percentiles {p5, p25, p50, p75, p95}, by_round [{round, new_mean, "
+        "cumulative_mean, ci_low, ci_high}], top_nodes [{node_id, probability, stderr}], segment_reach "
+        "[{segment, expected}], target_reach when asked, simulations, stopped_because "
+        "(precision_reached or simulation_cap), half_width); with one set its fields also at the top "
+        "level; with several, comparison {measure, ranking, pairs [{seed_set, versus, difference, "
+        "stderr, ci_low, ci_high, clearly_different}]}; model, probability, rounds, confidence, target, "
+        "warnings [{code, seed_set, message, node_ids, count}]. Model estimates, not promises."
+    ),
+)
