@@ -128,7 +128,8 @@ def build_version(
     # 1. Edges.
     if edges is not None and (options.mode == "replace" or previous is None):
         src, dst, w, p, merged = merge.merge_duplicates(
-            edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates
+            edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates,
+            overwrite_input=True,  # the table is ours and dropped next: sort its arrays in place
         )
         stats["duplicates_merged"] = int(merged)
         edges = None  # the merged arrays replace the table: free it before the summary

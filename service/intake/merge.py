@@ -1,14 +1,17 @@
 """Duplicate-edge merging, append/remove deltas, and node-attribute overlays.
 
-Pure numpy over index arrays. Sorting works on one int64 key per edge
-(``src << 32 | dst``), so merging m edges holds about three int64 arrays of
-length m besides its input and output.
+Pure numpy over index arrays. The duplicate merge sorts one uint64 key per
+edge that packs both endpoints and the input position, in place, so merging m
+edges holds that one array of length m besides its input (and, for a caller
+that gives its arrays up, nothing else: the sorted ends go back into the
+input and the sorted weights into the keys' memory). Graphs too large to pack
+fall back to an argsort of ``src << 32 | dst`` (about five int64 arrays).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal
+from typing import Any, Literal
 
 import numpy as np
 from numpy.typing import NDArray
@@ -65,6 +68,7 @@ def merge_duplicates(
     *,
     directed: bool,
     rule: MergeRule = "sum",
+    overwrite_input: bool = False,
 ) -> tuple[I32, I32, F64, F64 | None, int]:
     """Merge repeated edges by a declared rule.
 
@@ -78,6 +82,10 @@ def merge_duplicates(
         independent chances, ``1 - prod(1 - p)``; ``"max"`` keeps the largest
         weight and, separately, the largest probability; ``"last"`` keeps the
         weight and probability of the last record in input order.
+    overwrite_input : let the merge reorder the input arrays in place and
+        return views of them, so no second set of edge arrays is held (the
+        inputs hold garbage afterwards). Inputs that are not writable
+        contiguous int32 (ends) and float64 (values) are copied regardless.
 
     Returns
     -------
@@ -87,10 +95,18 @@ def merge_duplicates(
 
     Notes
     -----
-    A stable argsort of the int64 key keeps input order within each group,
-    which is what ``last`` needs; ``sum`` adds in input order. An edge seen
-    once keeps its values bit for bit (``1 - (1 - p)`` is not always ``p``
-    in floating point, so single records skip the product).
+    Each edge becomes one uint64 key, ``first << (b + p) | second << p |
+    position`` with ``b`` bits per node index and ``p`` per input position,
+    sorted in place. Keys are unique, so the order is the stable one: input
+    order is kept within each group, which is what ``last`` needs, and
+    ``sum`` adds in that order. An edge seen once keeps its values bit for
+    bit (``1 - (1 - p)`` is not always ``p`` in floating point, so single
+    records skip the product). Time O(m log m). Memory, besides the input:
+    the keys (8 bytes an edge), whose memory then holds the sorted weights,
+    and new end arrays unless ``overwrite_input``; with duplicates, the
+    merged output too. When ``2 b + p > 64`` (more than about 2**20 nodes
+    with 2**24 edges) or an index is negative, a stable argsort of int64
+    keys is used instead.
 
     Examples
     --------
@@ -115,6 +131,165 @@ def merge_duplicates(
             None if probability is None else np.zeros(0),
             0,
         )
+    s, d = np.asarray(src), np.asarray(dst)
+    w = np.asarray(weight, dtype=np.float64)
+    p = None if probability is None else np.asarray(probability, dtype=np.float64)
+    packed = _pack_keys(s, d, directed)
+    if packed is None:
+        return _merge_by_key(s, d, w, p, directed, rule)
+    key, node_bits, pos_bits = packed
+    key.sort()  # in place; keys are unique (they hold the position), so order is stable
+    # Sorted ends go into the caller's arrays when it gives them up (their
+    # content went into the keys), else into new ones.
+    out_src = _writable(s, overwrite_input)
+    out_dst = _writable(d, overwrite_input)
+    node_mask, pos_mask = np.uint64((1 << node_bits) - 1), np.uint64((1 << pos_bits) - 1)
+    for lo in range(0, m, _CHUNK):
+        k = key[lo : lo + _CHUNK]
+        out_src[lo : lo + _CHUNK] = k >> np.uint64(node_bits + pos_bits)
+        out_dst[lo : lo + _CHUNK] = (k >> np.uint64(pos_bits)) & node_mask
+    p_sorted = None
+    if p is not None:
+        p_sorted = np.empty(m)
+        for lo in range(0, m, _CHUNK):
+            p_sorted[lo : lo + _CHUNK] = p[(key[lo : lo + _CHUNK] & pos_mask).astype(np.intp)]
+    # The weights, read in sorted order, take the keys' place: each chunk of
+    # keys is spent once its positions are read.
+    w_sorted = key.view(np.float64)
+    for lo in range(0, m, _CHUNK):
+        w_sorted[lo : lo + _CHUNK] = w[(key[lo : lo + _CHUNK] & pos_mask).astype(np.intp)]
+    del key
+    same = out_src[1:] == out_src[:-1]
+    same &= out_dst[1:] == out_dst[:-1]
+    merged = int(np.count_nonzero(same))
+    if merged == 0:
+        return out_src, out_dst, w_sorted, p_sorted, 0
+    first = np.empty(m, dtype=bool)
+    first[0] = True
+    np.logical_not(same, out=first[1:])
+    del same
+    groups = _compact(first, out_src, out_dst, w_sorted, p_sorted, rule)
+    del first
+    return (
+        _trim(out_src, groups),
+        _trim(out_dst, groups),
+        _trim(w_sorted, groups),
+        None if p_sorted is None else _trim(p_sorted, groups),
+        merged,
+    )
+
+
+_CHUNK = 1 << 16  # elements per step of the chunked passes (temporaries of ~0.5 MB)
+
+
+def _compact(
+    first: NDArray[np.bool_], src: I32, dst: I32, w: F64, p: F64 | None, rule: str
+) -> int:
+    """Fold each group of sorted records (``first`` marks group starts) into slot ``g``, in place.
+
+    Works chunk by chunk (each chunk ends at a group boundary), so no array
+    of one entry per group is built; returns the number of groups.
+    """
+    m = first.shape[0]
+    g = a = 0
+    while a < m:
+        b = min(a + _CHUNK, m)
+        if b < m and not first[b]:  # extend the chunk to the end of its last group
+            step = int(np.argmax(first[b:]))
+            b = b + step if first[b + step] else m
+        starts = np.flatnonzero(first[a:b])
+        k = int(starts.size)
+        wk, pk = _fold(w[a:b], None if p is None else p[a:b], starts, rule)
+        src[g : g + k] = src[a:b][starts]
+        dst[g : g + k] = dst[a:b][starts]
+        w[g : g + k] = wk
+        if p is not None:
+            p[g : g + k] = pk
+        g, a = g + k, b
+    return g
+
+
+def _trim(a: NDArray[Any], size: int) -> NDArray[Any]:
+    """The first ``size`` entries: a view when that is most of ``a``, else a copy
+    (so the longer buffer can go)."""
+    if size == a.shape[0]:
+        return a
+    return a[:size].copy() if 4 * size < 3 * a.shape[0] else a[:size]
+
+
+def _pack_keys(
+    src: NDArray[np.integer], dst: NDArray[np.integer], directed: bool
+) -> tuple[NDArray[np.uint64], int, int] | None:
+    """One uint64 per edge, ``first << (b + p) | second << p | position``; None when it does not fit.
+
+    ``b`` bits hold a node index and ``p`` bits a position; ``(first,
+    second)`` is ``(min, max)`` when undirected. Built in chunks, so the keys
+    are the only array of length m.
+    """
+    if not (np.issubdtype(src.dtype, np.integer) and np.issubdtype(dst.dtype, np.integer)):
+        return None
+    m = int(src.shape[0])
+    lo = min(int(src.min()), int(dst.min()))
+    hi = max(int(src.max()), int(dst.max()))
+    node_bits, pos_bits = max(hi, 1).bit_length(), max(m - 1, 1).bit_length()
+    if lo < 0 or 2 * node_bits + pos_bits > 64:
+        return None
+    key = np.empty(m, dtype=np.uint64)
+    for a in range(0, m, _CHUNK):
+        b = min(a + _CHUNK, m)
+        u = src[a:b].astype(np.uint64)
+        v = dst[a:b].astype(np.uint64)
+        if not directed:
+            u, v = np.minimum(u, v), np.maximum(u, v)
+        u <<= np.uint64(node_bits + pos_bits)
+        v <<= np.uint64(pos_bits)
+        u |= v
+        u |= np.arange(a, b, dtype=np.uint64)
+        key[a:b] = u
+    return key, node_bits, pos_bits
+
+
+def _writable(a: NDArray[Any], overwrite: bool) -> NDArray[np.int32]:
+    """``a`` itself when it may be overwritten (a writable contiguous int32 array), else a new one."""
+    if overwrite and a.dtype == np.int32 and a.flags.c_contiguous and a.flags.writeable:
+        return a
+    return np.empty(a.shape[0], dtype=np.int32)
+
+
+def _fold(
+    w_sorted: F64, p_sorted: F64 | None, starts: NDArray[np.intp], rule: str
+) -> tuple[F64, F64 | None]:
+    """Fold each group (from ``starts[i]`` to the next start) of sorted records by ``rule``."""
+    m = w_sorted.shape[0]
+    if rule == "last":
+        last = np.empty_like(starts)
+        last[:-1] = starts[1:] - 1
+        last[-1] = m - 1
+        return w_sorted[last], None if p_sorted is None else p_sorted[last]
+    if rule == "max":
+        return (
+            np.maximum.reduceat(w_sorted, starts),
+            None if p_sorted is None else np.maximum.reduceat(p_sorted, starts),
+        )
+    w_out = np.add.reduceat(w_sorted, starts)
+    p_out = None
+    if p_sorted is not None:
+        p_out = 1.0 - np.multiply.reduceat(1.0 - p_sorted, starts)
+        single = np.diff(starts, append=m) == 1
+        p_out[single] = p_sorted[starts[single]]
+    return w_out, p_out
+
+
+def _merge_by_key(
+    src: NDArray[np.integer], dst: NDArray[np.integer], weight: F64, probability: F64 | None,
+    directed: bool, rule: str,
+) -> tuple[I32, I32, F64, F64 | None, int]:
+    """:func:`merge_duplicates` by a stable argsort of int64 keys.
+
+    For edges whose ends and position do not pack into 64 bits, or negative
+    indices; about five int64 arrays of length m besides input and output.
+    """
+    m = int(src.shape[0])
     key = _keys(src, dst, directed)
     order = np.argsort(key, kind="stable")
     key = key[order]
@@ -127,26 +302,11 @@ def merge_duplicates(
     out_dst = (key[starts] & 0xFFFFFFFF).astype(np.int32)
     del key
     merged = m - int(starts.size)
-    w_sorted = np.asarray(weight, dtype=np.float64)[order]
-    p_sorted = None if probability is None else np.asarray(probability, np.float64)[order]
+    w_sorted = weight[order]
+    p_sorted = None if probability is None else probability[order]
     if merged == 0:
         return out_src, out_dst, w_sorted, p_sorted, 0
-    if rule == "last":
-        last = np.empty_like(starts)
-        last[:-1] = starts[1:] - 1
-        last[-1] = m - 1
-        w_out = w_sorted[last]
-        p_out = None if p_sorted is None else p_sorted[last]
-    elif rule == "max":
-        w_out = np.maximum.reduceat(w_sorted, starts)
-        p_out = None if p_sorted is None else np.maximum.reduceat(p_sorted, starts)
-    else:
-        w_out = np.add.reduceat(w_sorted, starts)
-        p_out = None
-        if p_sorted is not None:
-            p_out = 1.0 - np.multiply.reduceat(1.0 - p_sorted, starts)
-            single = np.diff(starts, append=m) == 1
-            p_out[single] = p_sorted[starts[single]]
+    w_out, p_out = _fold(w_sorted, p_sorted, starts, rule)
     return out_src, out_dst, w_out, p_out, merged
 
 
@@ -230,6 +390,7 @@ def apply_edge_delta(
         prob,
         directed=base.directed,
         rule=rule,
+        overwrite_input=True,  # the concatenations are ours
     )
     g = GraphArrays(n_nodes, base.directed, src, dst, w, p)
     added = g.m - base.m  # base edges are unique (GraphArrays' contract)
@@ -428,7 +589,7 @@ def merge_node_table(
 # ------------------------------------------------------------------ helpers
 
 
-def _keys(src: I32, dst: I32, directed: bool) -> NDArray[np.int64]:
+def _keys(src: NDArray[np.integer], dst: NDArray[np.integer], directed: bool) -> NDArray[np.int64]:
     """One int64 per edge, ordering edges by (src, dst); (min, max) when undirected."""
     if directed:
         key = np.asarray(src).astype(np.int64)

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import json
 import math
-from array import array
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from typing import Literal
@@ -28,9 +27,6 @@ __all__ = [
     "NODE_COLUMNS",
     "CONSENT_WORDS",
 ]
-
-if array("i").itemsize != 4 or array("d").itemsize != 8:  # pragma: no cover
-    raise ImportError("service.intake needs 4-byte array('i') and 8-byte array('d')")
 
 ExtraColumns = Literal["error", "ignore"]
 Unit = Literal["line", "record"]
@@ -164,17 +160,48 @@ class EdgeSink:
 
     Each block reports its first bad record; checks run on whole blocks with
     numpy, and when several records are bad the earliest one is reported.
+
+    The buffers are numpy arrays with spare room at the end: they grow in
+    place (``realloc``) by a sixteenth, or at once to a size the reader
+    expects (:meth:`reserve`, whose untouched room costs no resident memory),
+    and :meth:`table` trims them, so the table holds the edges without a copy.
     """
 
     def __init__(self, interner: Interner, opts: EdgeOptions, *, unit: Unit = "line") -> None:
         self.interner = interner
         self.opts = opts
         self.unit: Unit = unit
-        self.src = array("i")
-        self.dst = array("i")
-        self.weight: array[float] | None = None
-        self.probability: array[float] | None = None
+        self.src: NDArray[np.int32] = np.empty(0, np.int32)
+        self.dst: NDArray[np.int32] = np.empty(0, np.int32)
+        self.weight: NDArray[np.float64] | None = None
+        self.probability: NDArray[np.float64] | None = None
         self.records = 0
+
+    def _columns(self) -> list[str]:
+        return [c for c in ("src", "dst", "weight", "probability") if getattr(self, c) is not None]
+
+    def reserve(self, rows: int) -> None:
+        """Make room for ``rows`` edges in all (a hint, e.g. from the body's size).
+
+        Fresh arrays of that size take address space only: their pages become
+        resident as edges are written into them.
+        """
+        if rows <= self.src.shape[0]:
+            return
+        for c in self._columns():
+            old = getattr(self, c)
+            new = np.empty(rows, dtype=old.dtype)
+            new[: self.records] = old[: self.records]
+            setattr(self, c, new)
+
+    def _room(self, rows: int) -> None:
+        """Grow the buffers in place to hold ``rows`` edges (new room is zeroed)."""
+        cap = self.src.shape[0]
+        if rows <= cap:
+            return
+        cap = max(rows, cap + (cap >> 4) + 1024)
+        for c in self._columns():
+            getattr(self, c).resize(cap, refcheck=False)  # no view of a buffer outlives a call
 
     def add(
         self,
@@ -228,9 +255,11 @@ class EdgeSink:
                 value=None if value is None else str(value),
                 unit=self.unit,
             )
+        r0, r1 = self.records, self.records + rows
         if w is not None and self.weight is None:
             # JSON records may leave the weight out: earlier edges weigh 1.
-            self.weight = array("d", [1.0]) * self.records
+            self.weight = np.empty(self.src.shape[0])
+            self.weight[:r0] = 1.0
         if w is None and self.weight is not None:
             w = np.ones(rows)
         if p is not None and self.probability is None:
@@ -241,7 +270,7 @@ class EdgeSink:
                     column=opts.probability_column,
                     unit=self.unit,
                 )
-            self.probability = array("d")
+            self.probability = np.empty(self.src.shape[0])
         if p is None and self.probability is not None:
             raise UploadError(
                 "probability missing (earlier edges have one)",
@@ -249,39 +278,33 @@ class EdgeSink:
                 column=opts.probability_column,
                 unit=self.unit,
             )
-        self.src.frombytes(_bytes(s))
-        self.dst.frombytes(_bytes(d))
+        self._room(r1)
+        self.src[r0:r1] = s
+        self.dst[r0:r1] = d
         if w is not None:
-            self.weight.frombytes(_bytes(w))  # type: ignore[union-attr]
+            self.weight[r0:r1] = w  # type: ignore[index]
         if p is not None:
-            self.probability.frombytes(_bytes(p))  # type: ignore[union-attr]
-        self.records += rows
+            self.probability[r0:r1] = p  # type: ignore[index]
+        self.records = r1
 
     def table(self) -> EdgeTable:
-        """The collected edges; :class:`EmptyUpload` when there are none."""
+        """The collected edges; :class:`EmptyUpload` when there are none.
+
+        The table takes the buffers (trimmed in place); the sink is spent.
+        """
         if not self.records:
             raise EmptyUpload("the upload holds no edges", unit=self.unit)
-        weight = (
-            np.ones(self.records)
-            if self.weight is None
-            else np.frombuffer(self.weight, dtype=np.float64)
-        )
-        prob = (
-            None
-            if self.probability is None
-            else np.frombuffer(self.probability, dtype=np.float64)
-        )
+        n = self.records
+        for c in self._columns():
+            getattr(self, c).resize(n, refcheck=False)  # shrinking realloc: no copy
+        weight = np.ones(n) if self.weight is None else self.weight
         return EdgeTable(
-            src=np.frombuffer(self.src, dtype=np.int32),
-            dst=np.frombuffer(self.dst, dtype=np.int32),
+            src=self.src,
+            dst=self.dst,
             weight=weight,
-            probability=prob,
-            records=self.records,
+            probability=self.probability,
+            records=n,
         )
-
-
-def _bytes(a: NDArray[np.generic]) -> memoryview:
-    return memoryview(np.ascontiguousarray(a)).cast("B")
 
 
 def json_id(v: object) -> str:

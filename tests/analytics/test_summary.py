@@ -140,3 +140,103 @@ def test_ca_grqc_matches_published_counts_and_networkx() -> None:
     H = G.copy()
     H.remove_edges_from(nx.selfloop_edges(H))
     assert s["density"] == pytest.approx(nx.density(H))
+
+
+# ------------------------------------------------------------------ compiled kernels
+
+
+def random_arrays(rng: np.random.Generator, n: int, m: int, *, loops: bool) -> tuple:
+    """Unique random arcs over n nodes (some isolated), optionally with self-loops."""
+    src = rng.integers(0, n, m)
+    dst = rng.integers(0, n, m)
+    if not loops:
+        keep = src != dst
+        src, dst = src[keep], dst[keep]
+    pairs = np.unique(np.column_stack((src, dst)), axis=0)  # sorted by (source, target)
+    return pairs[:, 0].astype(np.int32), pairs[:, 1].astype(np.int32)
+
+
+@pytest.mark.parametrize("seed", range(8))
+def test_kernels_match_networkx_on_random_graphs(seed: int) -> None:
+    from service.analytics import _summary_kernels as k
+
+    rng = np.random.default_rng(seed)
+    n = int(rng.integers(1, 120))
+    # From nearly empty (mostly isolated nodes) to dense enough for a giant component.
+    m = int(rng.integers(0, 3 * n))
+    src, dst = random_arrays(rng, n, m, loops=seed % 2 == 0)
+    D = nx.DiGraph()
+    D.add_nodes_from(range(n))
+    D.add_edges_from(zip(src.tolist(), dst.tolist()))
+    U = D.to_undirected()
+    out_deg, in_deg, loops = k.degrees(n, src, dst)
+    indptr = k.row_pointer(out_deg)
+
+    # Source: NetworkX degrees, self-loop count, weakly/strongly connected
+    # components and overall_reciprocity, computed in this test on the same arcs.
+    assert out_deg.tolist() == [D.out_degree(v) for v in range(n)]
+    assert in_deg.tolist() == [D.in_degree(v) for v in range(n)]
+    assert loops == nx.number_of_selfloops(D)
+    weak = list(nx.weakly_connected_components(D))
+    assert k.weak_components(n, src, dst) == (len(weak), max(map(len, weak)))
+    conn = list(nx.connected_components(U))
+    assert k.weak_components(n, dst, src) == (len(conn), max(map(len, conn)))
+    strong = list(nx.strongly_connected_components(D))
+    assert k.strong_components(n, indptr, dst) == (len(strong), max(map(len, strong)))
+    H = D.copy()
+    H.remove_edges_from(nx.selfloop_edges(H))
+    if H.number_of_edges():
+        rec = k.reciprocal_arcs(indptr, src, dst) / H.number_of_edges()
+        assert rec == pytest.approx(nx.overall_reciprocity(H))
+
+
+@pytest.mark.parametrize("directed", [True, False])
+def test_summary_of_unsorted_arcs_matches_networkx(directed: bool) -> None:
+    rng = np.random.default_rng(11)
+    n = 200
+    src, dst = random_arrays(rng, n, 500, loops=True)
+    if not directed:  # one edge per unordered pair
+        keep = src <= dst
+        src, dst = src[keep], dst[keep]
+    shuffle = rng.permutation(src.size)
+    g = GraphArrays(n, directed, src[shuffle], dst[shuffle], np.ones(src.size))
+    G = nx.DiGraph() if directed else nx.Graph()
+    G.add_nodes_from(range(n))
+    G.add_edges_from(zip(src.tolist(), dst.tolist()))
+    s = graph_summary(g)
+    # Source: NetworkX on the same graph, computed in this test.
+    for key, value in nx_reference(G).items():
+        assert s[key] == pytest.approx(value), key
+    if directed:
+        H = G.copy()
+        H.remove_edges_from(nx.selfloop_edges(H))
+        assert s["reciprocity"] == pytest.approx(nx.overall_reciprocity(H))
+    assert graph_summary(GraphArrays(n, directed, src, dst, np.ones(src.size))) == s
+
+
+def test_strong_components_survive_a_long_path() -> None:
+    from service.analytics import _summary_kernels as k
+
+    # A directed cycle of 200,000 nodes: recursion this deep would overflow a stack.
+    n = 200_000
+    src = np.arange(n, dtype=np.int32)
+    dst = np.roll(src, -1)
+    # Source: closed form. A cycle is one strong component; cut one arc and
+    # every node is its own component, all in one weak component.
+    assert k.strong_components(n, k.row_pointer(k.degrees(n, src, dst)[0]), dst) == (1, n)
+    cut_src, cut_dst = src[:-1], dst[:-1]
+    assert k.strong_components(n, k.row_pointer(k.degrees(n, cut_src, cut_dst)[0]), cut_dst) == (n, 1)
+    assert k.weak_components(n, cut_src, cut_dst) == (1, n)
+
+
+def test_kernels_on_graphs_without_arcs() -> None:
+    from service.analytics import _summary_kernels as k
+
+    none = np.zeros(0, np.int32)
+    # Source: closed form. Five isolated nodes are five components of one node.
+    assert k.weak_components(5, none, none) == (5, 1)
+    assert k.strong_components(5, k.row_pointer(np.zeros(5, np.int64)), none) == (5, 1)
+    assert k.reciprocal_arcs(k.row_pointer(np.zeros(5, np.int64)), none, none) == 0
+    assert k.is_sorted_by_source(none, none, True)
+    assert not k.is_sorted_by_source(np.array([1, 0], np.int32), np.array([0, 1], np.int32), False)
+    assert not k.is_sorted_by_source(np.array([0, 0], np.int32), np.array([1, 1], np.int32), True)
