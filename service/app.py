@@ -10,6 +10,8 @@ from fastapi import FastAPI
 from storage.db import make_engine, make_sessionmaker
 
 from .api import api_router
+from .api import metrics as metrics_api
+from .api.middleware import OperationsMiddleware, configure_logging
 from .api.problems import install_problem_handlers
 from .settings import Settings
 
@@ -28,6 +30,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        configure_logging(settings.log_level, settings.log_format)
         settings.data_dir.mkdir(parents=True, exist_ok=True)
         engine = make_engine(settings.resolved_database_url())
         app.state.engine = engine
@@ -47,4 +50,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     install_problem_handlers(app)
     app.include_router(api_router)
+    app.include_router(metrics_api.router)
+    # Request ids, access log, metrics, body and rate limits (service/api/middleware.py).
+    app.add_middleware(OperationsMiddleware, settings=settings, routes=lambda: app.routes)
     return app

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Literal
 
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
@@ -36,8 +37,10 @@ class Settings(BaseSettings):
     # Jobs
     job_lease_seconds: float = 30.0
     job_heartbeat_seconds: float = 5.0
-    job_poll_seconds: float = 0.2
-    job_poll_max_seconds: float = Field(default=2.0, description="Idle polling backs off up to this.")
+    job_poll_seconds: float = Field(default=0.05, description="Idle polling starts at this interval.")
+    job_poll_max_seconds: float = Field(
+        default=0.25, description="Idle polling backs off up to this: the longest a new job waits for an idle worker."
+    )
     job_max_attempts: int = 3
     job_max_queued_per_tenant: int = 1000
     job_progress_interval_seconds: float = Field(default=0.5, description="Progress writes at most this often.")
@@ -69,6 +72,27 @@ class Settings(BaseSettings):
     # Rate limit (token bucket per key)
     rate_limit_per_second: float = 50.0
     rate_limit_burst: int = 200
+
+    # -- Operations (issue 8): logs, metrics, job time limits -------------------------
+    # See service/api/middleware.py and service/metrics.py. The rate limit above is
+    # per API process; 0 turns it off.
+    log_level: str = Field(default="INFO", description="Level of the bellwether.* loggers.")
+    log_format: Literal["json", "text"] = Field(
+        default="json", description="json: one JSON object per line with the request id; text: plain lines."
+    )
+    metrics_open_on_loopback: bool = Field(
+        default=True, description="GET /metrics needs no key from 127.0.0.1/::1 (else an admin key)."
+    )
+    worker_metrics_port: int | None = Field(
+        default=None, description="A `bellwether worker` serves its own /metrics on this port (other hosts)."
+    )
+    worker_metrics_host: str = Field(default="127.0.0.1", description="Bind address of the worker's /metrics.")
+    job_timeout_seconds: float = Field(
+        default=6 * 3600.0, description="Longest run of one job attempt; past it the job fails (job-timeout)."
+    )
+    job_kind_timeouts: dict[str, float] = Field(
+        default_factory=dict, description='Per-kind run time limits in seconds (JSON, e.g. {"profile": 600}).'
+    )
 
     def resolved_database_url(self) -> str:
         if self.database_url:

@@ -9,13 +9,13 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Depends
 
-from . import graphs, health, jobs, schedules, webhooks
+from . import graphs, health, jobs, plots, recommendations, schedules, scores, webhooks
 from .auth import authorize
 
 __all__ = ["api_router", "ROUTERS", "OPEN_ROUTERS"]
 
 # Routers under /v1: every one needs a bearer key (see auth.py).
-ROUTERS = [graphs.router, jobs.router, schedules.router, webhooks.router]
+ROUTERS = [graphs.router, jobs.router, schedules.router, webhooks.router, recommendations.router, plots.router, scores.router]
 # Operations endpoints: no key.
 OPEN_ROUTERS = [health.router]
 

@@ -71,13 +71,13 @@ def render_plot(name: str, data: dict[str, Any]) -> str:
         }
         return plots.reach_curve_svg(curve, baselines)
     if name == "adoption":
-        sets = data.get("seed_sets") or {}
+        sets = data.get("forecasts") or []
         if not sets:
             raise InvalidParams("the forecast has no seed sets to plot", field="name")
         series = {}
-        for set_name, r in sets.items():
+        for r in sets:
             br = r["by_round"]
-            series[set_name] = (
+            series[r["name"]] = (
                 [x["round"] for x in br],
                 [x["cumulative_mean"] for x in br],
                 [x["ci_low"] for x in br],

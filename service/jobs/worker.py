@@ -38,6 +38,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.analytics.errors import Cancelled
 from service.loader import LoadedVersion, load_version
+from service.metrics import service_metrics, start_worker_metrics_server
 from storage.errors import LeaseLost, NotFound
 from storage.models import Graph, Job
 from storage.repo import graphs as graph_repo
@@ -59,8 +60,8 @@ log = logging.getLogger("bellwether.worker")
 class WorkerConfig:
     lease_seconds: float = 30.0
     heartbeat_seconds: float = 5.0
-    poll_seconds: float = 0.2
-    poll_max_seconds: float = 2.0
+    poll_seconds: float = 0.05
+    poll_max_seconds: float = 0.25
     max_attempts: int = 3
     progress_interval_seconds: float = 0.5
     housekeeping_seconds: float = 1.0
@@ -70,6 +71,14 @@ class WorkerConfig:
     retry: RetryPolicy = field(default_factory=RetryPolicy)
     delivery: webhooks.DeliveryPolicy = field(default_factory=webhooks.DeliveryPolicy)
     kind_modules: tuple[str, ...] = ()
+    # Operations (issue 8): run time limits, and a /metrics port of the worker's own.
+    timeout_seconds: float = 6 * 3600.0
+    kind_timeouts: dict[str, float] = field(default_factory=dict)
+    metrics_port: int | None = None
+    metrics_host: str = "127.0.0.1"
+
+    def timeout_for(self, kind: str) -> float:
+        return float(self.kind_timeouts.get(kind, self.timeout_seconds))
 
     @classmethod
     def from_settings(cls, s: Any) -> WorkerConfig:
@@ -96,6 +105,10 @@ class WorkerConfig:
                 allow_loopback=s.webhook_allow_loopback,
             ),
             kind_modules=tuple(s.job_kind_modules),
+            timeout_seconds=s.job_timeout_seconds,
+            kind_timeouts=dict(s.job_kind_timeouts),
+            metrics_port=s.worker_metrics_port,
+            metrics_host=s.worker_metrics_host,
         )
 
 
@@ -140,6 +153,8 @@ class _Run:
         self.lost = threading.Event()
         self.done = threading.Event()
         self.last_write = -math.inf
+        self.started = time.monotonic()
+        self.timed_out: dict[str, Any] | None = None
 
 
 class Worker:
@@ -179,10 +194,13 @@ class Worker:
         """Claim and run jobs until :meth:`request_stop`; housekeeping in a second thread."""
         keeper = threading.Thread(target=self._housekeeping_loop, name="bw-housekeeping", daemon=True)
         keeper.start()
+        if self.config.metrics_port:
+            start_worker_metrics_server(self.config.metrics_port, self.config.metrics_host)
         idle = self.config.poll_seconds
         log.info("worker started", extra={"worker_id": self.worker_id})
         try:
             while not self._stop.is_set():
+                service_metrics().worker_alive()
                 try:
                     outcome = self.run_once()
                 except Exception:  # database unreachable and the like: wait, then try again
@@ -223,7 +241,11 @@ class Worker:
             beat = threading.Thread(target=self._heartbeat_loop, args=(run,), name="bw-heartbeat", daemon=True)
             beat.start()
         try:
-            return self._execute(run)
+            outcome = self._execute(run)
+            if run.timed_out is not None:
+                outcome = RunOutcome(job.id, "failed", run.timed_out)
+            service_metrics().observe_job(job.kind, outcome.status, time.monotonic() - run.started)
+            return outcome
         finally:
             run.done.set()
             if beat is not None:
@@ -310,13 +332,18 @@ class Worker:
             raise Cancelled(job_id=run.job.id)
 
     def _heartbeat_loop(self, run: _Run) -> None:
-        while not run.done.wait(self.config.heartbeat_seconds):
+        limit = self.config.timeout_for(run.job.kind)
+        while not run.done.wait(min(self.config.heartbeat_seconds, limit)):
             try:
+                if time.monotonic() - run.started > limit:
+                    self._time_out(run, limit)
+                    return
                 with job_repo.write_session(self.maker) as db:
                     cancel = job_repo.heartbeat(
                         db, run.job, self.worker_id, self.config.lease_seconds, self.clock.now()
                     )
                     db.commit()
+                service_metrics().heartbeat()
                 if cancel:
                     run.cancel.set()
             except LeaseLost:
@@ -324,6 +351,26 @@ class Worker:
                 return
             except Exception:  # a missed beat is not fatal; the lease has slack
                 log.exception("heartbeat failed", extra={"job_id": run.job.id})
+
+    def _time_out(self, run: _Run, limit: float) -> None:
+        """Fail a job that ran past its kind's limit; the task's next progress call (or its finish) is refused."""
+        job = run.job
+        error = {
+            "type": "/problems/job-timeout",
+            "title": "Job timed out",
+            "detail": f"the {job.kind} job ran longer than its limit of {limit:g} s and was stopped; "
+            "it is not retried (raise the kind's limit or make the job smaller)",
+            "limit_seconds": limit,
+            "attempts": job.attempts,
+        }
+        now = self.clock.now()
+        with job_repo.write_session(self.maker) as db:
+            job_repo.finish_failure(db, job, self.worker_id, error, now, None)
+            webhooks.queue_job_event(db, job_repo.get_job_any_tenant(db, job.id), now)
+            db.commit()
+        run.timed_out = error
+        run.lost.set()
+        log.warning("job timed out", extra={"job_id": job.id, "kind": job.kind, "limit_seconds": limit})
 
     # -- finishing -------------------------------------------------------------
 
