@@ -9,6 +9,7 @@ from __future__ import annotations
 import hashlib
 import os
 import tempfile
+import time
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -17,7 +18,10 @@ from starlette.requests import ClientDisconnect
 
 from .errors import BadRequest, PayloadTooLarge
 
-__all__ = ["Spooled", "spool_body"]
+__all__ = ["Spooled", "spool_body", "remove_stale_spool", "STALE_SPOOL_SECONDS"]
+
+# A spool file this old belongs to no live upload (a killed process left it).
+STALE_SPOOL_SECONDS = 6 * 3600
 
 
 @dataclass
@@ -58,3 +62,23 @@ async def spool_body(request: Request, folder: Path, limit: int) -> Spooled:
         if not ok:
             os.unlink(name)
     return Spooled(Path(name), size, digest.hexdigest())
+
+
+def remove_stale_spool(folder: Path, *, older_than: float = STALE_SPOOL_SECONDS) -> int:
+    """Delete upload spool files left by killed processes; return how many went.
+
+    Only old files go: another API process sharing the data folder may be
+    receiving an upload right now.
+    """
+    if not folder.is_dir():
+        return 0
+    cutoff = time.time() - older_than
+    removed = 0
+    for f in folder.glob("upload-*.part"):
+        try:
+            if f.stat().st_mtime < cutoff:
+                f.unlink()
+                removed += 1
+        except FileNotFoundError:
+            continue
+    return removed

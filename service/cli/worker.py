@@ -38,6 +38,9 @@ PARENT_ENV = "BELLWETHER_WORKER_PARENT_PID"
 
 def run_worker(settings: Settings, *, install_signals: bool = True) -> None:
     """Run one worker until SIGTERM/SIGINT (or, when started by a supervisor, its exit)."""
+    from service.api.middleware import configure_logging
+
+    configure_logging(settings.log_level, settings.log_format)
     settings.data_dir.mkdir(parents=True, exist_ok=True)
     engine = make_engine(settings.resolved_database_url())
     worker = Worker(make_sessionmaker(engine), WorkerConfig.from_settings(settings))

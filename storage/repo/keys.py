@@ -41,7 +41,11 @@ def add_key(
     if bad or not scopes:
         raise ValueError(f"scopes must be among {', '.join(SCOPES)}; got {', '.join(bad) or 'none'}")
     now = now or utcnow()
-    prefix = secrets.token_hex(4)
+    # The visible prefix must be unique; with 32 bits a collision is rare but possible.
+    for _ in range(8):
+        prefix = secrets.token_hex(4)
+        if db.execute(select(ApiKey.id).where(ApiKey.prefix == prefix)).first() is None:
+            break
     plain = f"{KEY_PREFIX}_{prefix}_{secrets.token_urlsafe(32)}"
     key = ApiKey(
         id=new_id("key"),

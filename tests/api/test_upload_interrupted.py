@@ -35,3 +35,16 @@ def test_cut_off_upload_leaves_no_trace(tmp_path: Path) -> None:
         # The server still takes a complete upload afterwards.
         r = httpx.post(f"{base}/v1/graphs/{gid}/versions", content=rows, headers={"Content-Type": "text/csv"})
         assert r.status_code == 201 and r.json()["edges"] == 200_000
+
+
+def test_stale_spool_files_are_removed_at_start(tmp_path: Path) -> None:
+    import os
+
+    from service.api.spool import remove_stale_spool
+
+    old, fresh = tmp_path / "upload-a.part", tmp_path / "upload-b.part"
+    old.write_bytes(b"x")
+    fresh.write_bytes(b"y")
+    os.utime(old, (time.time() - 7 * 3600,) * 2)
+    assert remove_stale_spool(tmp_path) == 1
+    assert not old.exists() and fresh.exists()
