@@ -35,6 +35,7 @@ from service.jobs.tasks import recommendations as recommendations_task
 from service.jobs.tasks import referral_asks as referral_asks_task
 from service.jobs.tasks.referral_asks import contact_reason
 from service.loader import LoadedVersion, load_version
+from service.rankings import safe_cell
 from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
@@ -63,7 +64,6 @@ T = TypeVar("T")
 # Bumped whenever the ranking or the answer's shape changes, so old ETags stop matching.
 ETAG_SALT = "recommendations/1"
 NODE_SEGMENT = 5  # /v1/graphs/{graph_id}/nodes/{node_id}/...: index of {node_id} in the raw path
-FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 
 #: Job kinds whose result can be exported as CSV, and how.
 CSV_EXPORTS: dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]] = {
@@ -424,8 +424,7 @@ def csv_cell(value: object) -> str:
         return repr(value) if np.isfinite(value) else ""
     if isinstance(value, int):
         return str(value)
-    text = str(value)
-    return "'" + text if text.startswith(FORMULA_STARTS) else text
+    return safe_cell(str(value)) or ""
 
 
 def _csv_stream(header: list[str], rows: Iterator[list[Any]], batch: int = 2000) -> Iterator[str]:

@@ -16,18 +16,15 @@ while an immediate one waits for the lock (busy timeout).
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
 
 from numpy.typing import NDArray
-from sqlalchemy import Engine, delete, func, select, tuple_, update
+from sqlalchemy import delete, func, select, tuple_, update
 from sqlalchemy.exc import IntegrityError
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session
 
-from ..db import is_sqlite
 from ..db import write_session
 from ..errors import Conflict, LeaseLost, NotFound
 from ..models import FINISHED_STATUSES, Job, new_id
