@@ -227,7 +227,7 @@ def sample_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count
     with its probability; nodes at depth ``horizon`` (if >= 0) are kept but
     not expanded. Set ``first + j`` ends at ``out_ends[j]`` (exclusive) in
     ``out_nodes``. Stops early, before starting a set, when fewer than ``n``
-    slots remain. ``stamp`` is an int64 scratch array of length n; its
+    slots remain. ``stamp`` is an int32 or int64 scratch array of length n; its
     entries must all be below ``first``'s mark range (pass it back as is).
     Returns (sets done, new pos, in-arcs examined).
     """
