@@ -62,3 +62,26 @@ def test_unknown_plot_name_is_rejected() -> None:
 
     with pytest.raises(InvalidParams):
         render_plot("pie", {})
+
+
+@pytest.mark.anyio
+async def test_plot_endpoint_over_http_and_its_problems(client) -> None:  # type: ignore[no-untyped-def]
+    from tests.jobs.api_helpers import assert_problem, make_graph, run_worker_once, worker_for
+
+    G = nx.karate_club_graph()
+    gid = await make_graph(client, "source,target\n" + "".join(f"k{u},k{v}\n" for u, v in G.edges()))
+    job = (await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile", "params": {}})).json()
+    # Not succeeded yet: a problem, not an empty picture.
+    assert_problem(await client.get(f"/v1/jobs/{job['id']}/plots/degree_distribution.svg"), 422, "invalid-parameter")
+    await run_worker_once(worker_for(client))
+    r = await client.get(f"/v1/jobs/{job['id']}/plots/degree_distribution.svg")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
+    root, data = parse(r.text)
+    # Source: NetworkX degrees of karate: plotted bins lie between the smallest and largest degree.
+    xs = data["series"][0]["x"]
+    degrees = [d for _, d in G.degree()]
+    assert data["series"][0]["name"] == "observed" and min(degrees) <= min(xs) and max(xs) <= max(degrees)
+    # A profile job has no reach curve; unknown plot names and jobs are problems too.
+    assert_problem(await client.get(f"/v1/jobs/{job['id']}/plots/reach_curve.svg"), 422, "invalid-parameter")
+    assert_problem(await client.get(f"/v1/jobs/{job['id']}/plots/pie.svg"), 422, "validation-error")
+    assert_problem(await client.get("/v1/jobs/j_missing/plots/adoption.svg"), 404, "not-found")
