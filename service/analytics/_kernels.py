@@ -53,12 +53,21 @@ from typing import Any, NamedTuple
 
 import numba
 import numpy as np
-from llvmlite import ir
-from numba import njit, types
-from numba.core import cgutils
-from numba.extending import intrinsic
+from numba import njit
 from numpy.typing import NDArray
 
+from ._rng import GAMMA as _GAMMA
+from ._rng import LO32 as _LO32
+from ._rng import M1 as _M1
+from ._rng import M2 as _M2
+from ._rng import S11 as _S11
+from ._rng import S27 as _S27
+from ._rng import S30 as _S30
+from ._rng import S31 as _S31
+from ._rng import S32 as _S32
+from ._rng import TWO_M53 as _TWO_M53
+from ._rng import mix64 as _mix64
+from ._rng import prefetch as _prefetch
 from .errors import InvalidParameter
 from .graph import DiffusionGraph
 
@@ -82,16 +91,6 @@ __all__ = [
 SKIP_MIN_DEGREE = 4
 SKIP_MAX_P = 0.2
 
-_GAMMA = np.uint64(0x9E3779B97F4A7C15)
-_M1 = np.uint64(0xBF58476D1CE4E5B9)
-_M2 = np.uint64(0x94D049BB133111EB)
-_S11 = np.uint64(11)
-_S27 = np.uint64(27)
-_S30 = np.uint64(30)
-_S31 = np.uint64(31)
-_S32 = np.uint64(32)
-_LO32 = np.uint64(0xFFFFFFFF)
-_TWO_M53 = 2.0**-53
 # Rows with at least this many arcs draw their coins in one vectorised pass (measured on
 # soc-Slashdot0902, weighted cascade: about 10% faster from 32 on, slower below 8).
 _VEC_MIN_DEGREE = 32
@@ -198,34 +197,6 @@ def prepare(
         n, int(indices.shape[0]), model == "lt", indptr, indices, thr, prob, skip,
         bool(np.any(skip != 0.0)), order, rank, renumbered,
     )
-
-
-@intrinsic
-def _prefetch(typingctx, arr, idx):  # type: ignore[no-untyped-def]
-    """Hint the CPU to load ``arr[idx]`` into cache (``llvm.prefetch``; no effect on results)."""
-    sig = types.void(arr, idx)
-
-    def codegen(context, builder, signature, args):  # type: ignore[no-untyped-def]
-        aty = signature.args[0]
-        ary = context.make_array(aty)(context, builder, args[0])
-        ptr = cgutils.get_item_pointer(context, builder, aty, ary, [args[1]],
-                                       wraparound=False, boundscheck=False)
-        i32 = ir.IntType(32)
-        ptr = builder.bitcast(ptr, ir.IntType(8).as_pointer())
-        fnty = ir.FunctionType(ir.VoidType(), [ptr.type, i32, i32, i32])
-        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.prefetch.p0")
-        # read access, high temporal locality, data cache
-        builder.call(fn, [ptr, ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)])
-        return context.get_dummy_value()
-
-    return sig, codegen
-
-
-@njit(cache=True, nogil=True, inline="always")
-def _mix64(z: np.uint64) -> np.uint64:
-    z = (z ^ (z >> _S30)) * _M1
-    z = (z ^ (z >> _S27)) * _M2
-    return z ^ (z >> _S31)
 
 
 @njit(cache=True, nogil=True)

@@ -15,7 +15,8 @@ Per-node sampling modes (prepared once by :func:`prepare_ic` /
 
 IC  0 no live in-arc possible, 1 every in-arc live (p = 1),
     2 all in-arcs share one p in (0, 1): geometric skipping, drawing one
-      number per live arc plus one, instead of one per arc,
+      number per live arc plus one, instead of one per arc (the gap is
+      log(U) times the stored 1 / log(1 - p): a multiply, not a divide),
     3 mixed probabilities: one 53-bit draw per arc against a threshold.
 LT  0 no in-arc, 1 all incoming weights equal (pick index floor(U / w)),
     2 general: inverse-CDF search over the row's cumulative weights.
@@ -27,6 +28,8 @@ import math
 
 import numpy as np
 from numba import njit
+
+from ._rng import GAMMA, M2, S11, TWO_53, mix64, unit, unit_open0
 
 __all__ = [
     "IC_NONE",
@@ -51,39 +54,9 @@ __all__ = [
 IC_NONE, IC_ALL, IC_SKIP, IC_COIN = 0, 1, 2, 3
 LT_NONE, LT_EQUAL, LT_CDF = 0, 1, 2
 
-_GOLD = np.uint64(0x9E3779B97F4A7C15)
-_M1 = np.uint64(0xBF58476D1CE4E5B9)
-_M2 = np.uint64(0x94D049BB133111EB)
-_S11 = np.uint64(11)
-_S27 = np.uint64(27)
-_S30 = np.uint64(30)
-_S31 = np.uint64(31)
-_TWO53 = 9007199254740992.0
-_INV53 = 1.0 / 9007199254740992.0
-
-
-@njit(inline="always")
-def _mix(z: np.uint64) -> np.uint64:  # SplitMix64 output function
-    z = (z ^ (z >> _S30)) * _M1
-    z = (z ^ (z >> _S27)) * _M2
-    return z ^ (z >> _S31)
-
-
 @njit(inline="always")
 def _set_state(key: np.uint64, j: np.int64) -> np.uint64:
-    return _mix(key ^ _mix(np.uint64(j) * _GOLD + _M2))
-
-
-@njit(inline="always")
-def _unit_open0(x: np.uint64) -> float:
-    """A uniform number in (0, 1] from the top 53 bits (log-safe)."""
-    return (float(x >> _S11) + 1.0) * _INV53
-
-
-@njit(inline="always")
-def _unit(x: np.uint64) -> float:
-    """A uniform number in [0, 1) from the top 53 bits."""
-    return float(x >> _S11) * _INV53
+    return mix64(key ^ mix64(np.uint64(j) * GAMMA + M2))
 
 
 def stream_key(random_seed: int, tag: int) -> np.uint64:
@@ -99,7 +72,7 @@ def stream_key(random_seed: int, tag: int) -> np.uint64:
 
 @njit(cache=True)
 def prepare_ic(indptr, prob):  # pragma: no cover - compiled
-    """Per-node mode, log(1 - p) for skipping rows, and 53-bit per-arc thresholds."""
+    """Per-node mode, 1 / log(1 - p) for skipping rows, and 53-bit per-arc thresholds."""
     n = indptr.shape[0] - 1
     mode = np.zeros(n, dtype=np.int8)
     logq = np.zeros(n, dtype=np.float64)
@@ -111,7 +84,7 @@ def prepare_ic(indptr, prob):  # pragma: no cover - compiled
         elif p <= 0.0:
             thr[e] = 0
         else:
-            thr[e] = np.int64(math.ceil(p * _TWO53))
+            thr[e] = np.int64(math.ceil(p * TWO_53))
     for v in range(n):
         a = indptr[v]
         b = indptr[v + 1]
@@ -132,7 +105,7 @@ def prepare_ic(indptr, prob):  # pragma: no cover - compiled
             mode[v] = IC_ALL
         elif same:
             mode[v] = IC_SKIP
-            logq[v] = math.log1p(-p0)
+            logq[v] = 1.0 / math.log1p(-p0)
         else:
             mode[v] = IC_COIN
     return mode, logq, thr
@@ -204,16 +177,16 @@ def build_alias(weights):  # pragma: no cover - compiled
 
 @njit(inline="always")
 def _root(state, n, accept, alias):
-    state += _GOLD
-    x = _mix(state)
+    state += GAMMA
+    x = mix64(state)
     if accept.shape[0] == 0:
-        r = np.int64(_unit(x) * n)
+        r = np.int64(unit(x) * n)
         return state, (r if r < n else n - 1)
-    i = np.int64(_unit(x) * n)
+    i = np.int64(unit(x) * n)
     if i >= n:
         i = n - 1
-    state += _GOLD
-    if _unit(_mix(state)) < accept[i]:
+    state += GAMMA
+    if unit(mix64(state)) < accept[i]:
         return state, i
     return state, np.int64(alias[i])
 
@@ -265,8 +238,8 @@ def sample_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count
                 lq = logq[v]
                 i = np.int64(-1)
                 while True:
-                    state += _GOLD
-                    g = math.log(_unit_open0(_mix(state))) / lq
+                    state += GAMMA
+                    g = math.log(unit_open0(mix64(state))) * lq
                     if g >= d - 1 - i:
                         break
                     i += 1 + np.int64(g)
@@ -277,8 +250,8 @@ def sample_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count
                         pos += 1
             elif md == IC_COIN:
                 for e in range(a, b):
-                    state += _GOLD
-                    if np.int64(_mix(state) >> _S11) < thr[e]:
+                    state += GAMMA
+                    if np.int64(mix64(state) >> S11) < thr[e]:
                         u = indices[e]
                         if stamp[u] != mark:
                             stamp[u] = mark
@@ -304,8 +277,8 @@ def _lt_pick(state, v, indptr, mode, w, cum):
     md = mode[v]
     if md == LT_NONE:
         return state, np.int64(-1)
-    state += _GOLD
-    x = _unit(_mix(state))
+    state += GAMMA
+    x = unit(mix64(state))
     if md == LT_EQUAL:
         q = x / w[v]
         if q >= b - a:
@@ -407,8 +380,8 @@ def hits_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count, 
                 lq = logq[v]
                 i = np.int64(-1)
                 while True:
-                    state += _GOLD
-                    g = math.log(_unit_open0(_mix(state))) / lq
+                    state += GAMMA
+                    g = math.log(unit_open0(mix64(state))) * lq
                     if g >= d - 1 - i:
                         break
                     i += 1 + np.int64(g)
@@ -424,8 +397,8 @@ def hits_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count, 
                 for e in range(a, b):
                     live = True
                     if md == IC_COIN:
-                        state += _GOLD
-                        live = np.int64(_mix(state) >> _S11) < thr[e]
+                        state += GAMMA
+                        live = np.int64(mix64(state) >> S11) < thr[e]
                     if live:
                         u = indices[e]
                         if stamp[u] != mark:

@@ -55,10 +55,10 @@ def test_modes_are_chosen_per_node():
     # node 1 p = 1 (all), node 0 none.
     dg = digraph(4, [(0, 1), (0, 2), (1, 2), (0, 3), (1, 3), (2, 3)],
                  [1.0, 0.2, 0.3, 0.4, 0.4, 0.4])
-    mode, logq, _ = K.prepare_ic(dg.in_indptr, dg.in_prob)
+    mode, inv_logq, _ = K.prepare_ic(dg.in_indptr, dg.in_prob)
     assert mode.tolist() == [K.IC_NONE, K.IC_ALL, K.IC_COIN, K.IC_SKIP]
-    # Source: closed form, log(1 - 0.4).
-    assert logq[3] == pytest.approx(math.log(0.6))
+    # Source: closed form, 1 / log(1 - 0.4) (the skipping kernels multiply by it).
+    assert inv_logq[3] == pytest.approx(1.0 / math.log(0.6))
 
 
 @pytest.mark.parametrize("probs", [[0.3] * 5, [0.3, 0.3, 0.3, 0.3, 0.3000001]],

@@ -1,0 +1,141 @@
+"""Tests for the interleaved IC RR sampler (service.analytics._rr_lanes).
+
+The lanes must give exactly the sets of the one-at-a-time kernel
+(:func:`service.analytics._rr_kernels.sample_ic`, itself checked against closed
+forms in test_rr_kernels.py), in the same order, for every sampling mode, with
+and without a horizon and weighted roots; and, checked directly against a
+closed form, the live in-arcs of a star are Binomial (Kempe et al. 2003: each
+in-arc is live independently with its probability).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from service.analytics import _rr, _rr_lanes
+from service.analytics import _rr_kernels as K
+from service.analytics._rr import RRCollection, RRSampler
+from service.analytics.graph import GraphArrays, diffusion_graph
+
+
+@pytest.fixture
+def lanes_always(monkeypatch):
+    """Make every IC sampler use the lanes, whatever the graph's size."""
+    monkeypatch.setattr(_rr, "LANES_MIN_BYTES", -1)
+
+
+def random_graph(n, m, seed, *, mixed):
+    rng = np.random.default_rng(seed)
+    src = rng.integers(0, n, m).astype(np.int32)
+    dst = rng.integers(0, n, m).astype(np.int32)
+    keep = src != dst
+    src, dst = src[keep], dst[keep]
+    key = np.unique(src.astype(np.int64) * n + dst)
+    src, dst = (key // n).astype(np.int32), (key % n).astype(np.int32)
+    if mixed:
+        # Mixed probabilities give coin rows; p = 1 rows and p = 0 rows too.
+        prob = rng.choice([0.0, 0.05, 0.3, 1.0], size=src.size, p=[0.1, 0.5, 0.3, 0.1])
+        heavy = dst % 7 == 0  # every in-arc of these nodes live
+        prob[heavy] = 1.0
+        none = dst % 11 == 0  # no in-arc of these nodes can be live
+        prob[none] = 0.0
+        g = GraphArrays(n, True, src, dst, np.ones(src.size), prob)
+        return diffusion_graph(g, scheme="explicit")
+    g = GraphArrays(n, True, src, dst, np.ones(src.size))
+    return diffusion_graph(g, scheme="weighted_cascade")
+
+
+def one_at_a_time(sampler, key, count):
+    n = sampler.n
+    nodes = np.empty(count * n + n + 16, np.int32)
+    ends = np.empty(count, np.int64)
+    done, pos, examined = K.sample_ic(
+        *sampler._args(), key, 0, count, sampler.horizon, nodes, 0, ends, np.zeros(n, np.int32)
+    )
+    assert done == count
+    return nodes[:pos], ends[:done], examined
+
+
+@pytest.mark.parametrize("mixed", [False, True], ids=["weighted-cascade", "mixed"])
+@pytest.mark.parametrize("rounds", [None, 0, 1, 3])
+@pytest.mark.parametrize("weighted", [False, True], ids=["uniform-roots", "weighted-roots"])
+def test_lanes_give_the_same_sets(lanes_always, mixed, rounds, weighted):
+    n = 400
+    dg = random_graph(n, 3000, seed=21, mixed=mixed)
+    w = np.random.default_rng(5).random(n) if weighted else None
+    sampler = RRSampler(dg, weights=w, rounds=rounds)
+    assert sampler.lanes
+    key = K.stream_key(9, 1)
+    coll = RRCollection(sampler, key)
+    for target in (1, 5, 333, 3000):  # batches of every size, first set included
+        coll.extend_to(target)
+    nodes, ends, examined = one_at_a_time(sampler, key, 3000)
+    assert np.array_equal(coll.nodes, nodes)
+    assert np.array_equal(coll.offsets[1:], ends)
+    assert coll.examined == examined
+    assert not coll._vis.any()  # marks are left cleared between calls
+
+
+def test_lanes_survive_a_full_store():
+    # A graph whose RR sets are large (p = 1 on a long path, reverse reach up
+    # to n): a store with room for few sets forces the kernel to stop and drop
+    # late sets, yet every call stores at least the first.
+    n = 300
+    src = np.arange(n - 1, dtype=np.int32)
+    g = GraphArrays(n, True, src, src + 1, np.ones(n - 1))
+    dg = diffusion_graph(g, scheme="uniform", p=1.0)
+    sampler = RRSampler(dg)
+    sampler.lanes = True
+    sampler.rec, sampler.recf = _rr_lanes.lane_records(sampler.indptr, sampler.mode, sampler.aux)
+    sampler.pend = np.empty(_rr_lanes.LANES * 2, np.int64)
+    key = K.stream_key(4, 0)
+    ref_nodes, ref_ends, _ = one_at_a_time(sampler, key, 200)
+    for room in (n, 3 * n, 50 * n):
+        out = np.empty(room, np.int32)
+        ends = np.empty(200, np.int64)
+        vis = np.zeros(n, np.uint16)
+        queues = np.empty(_rr_lanes.LANES * n, np.int32)
+        done, pos, _ = _rr_lanes.sample_ic_lanes(
+            sampler.rec, sampler.recf, sampler.indices, sampler.arc, sampler.accept,
+            sampler.alias, key, 0, 200, -1, out, 0, ends, vis, queues, sampler.pend,
+        )
+        assert 1 <= done <= 200
+        assert np.array_equal(ends[:done], ref_ends[:done])
+        assert np.array_equal(out[:pos], ref_nodes[:pos])
+        assert not vis.any()
+    # Through the collection the store grows until every set fits.
+    coll = RRCollection(sampler, key)
+    coll._vis = np.zeros(n, np.uint16)
+    coll._queues = np.empty(_rr_lanes.LANES * n, np.int32)
+    coll.extend_to(200)
+    assert np.array_equal(coll.nodes, ref_nodes)
+
+
+def test_lanes_live_in_arcs_are_binomial(lanes_always):
+    # Star 1..5 -> 0 with p = 0.3, roots drawn at node 0 only. Source: closed
+    # form: the RR set size - 1 is Binomial(5, 0.3).
+    src = np.arange(1, 6, dtype=np.int32)
+    g = GraphArrays(6, True, src, np.zeros(5, np.int32), np.ones(5))
+    dg = diffusion_graph(g, scheme="uniform", p=0.3)
+    w = np.zeros(6)
+    w[0] = 1.0
+    coll = RRCollection(RRSampler(dg, weights=w), K.stream_key(3, 0))
+    coll.extend_to(40_000)
+    sizes = np.bincount(np.diff(coll.offsets) - 1, minlength=6)
+    pmf = np.array([math.comb(5, j) * 0.3**j * 0.7 ** (5 - j) for j in range(6)])
+    expected = coll.count * pmf
+    stat = float(((sizes - expected) ** 2 / expected).sum())
+    assert stat <= 5 + 4 * math.sqrt(10)  # chi-square, 5 dof: mean + 4 sd
+
+
+def test_large_graphs_choose_the_lanes():
+    # The choice follows the in-CSR footprint (see LANES_MIN_BYTES).
+    small = random_graph(100, 400, seed=1, mixed=False)
+    big = random_graph(40_000, 300_000, seed=2, mixed=False)
+    assert not RRSampler(small).lanes
+    assert RRSampler(big).lanes
+    assert not RRSampler(diffusion_graph(GraphArrays(
+        40_000, True, big.in_indices[:0], big.in_indices[:0], np.ones(0)), model="lt")).lanes
