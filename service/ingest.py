@@ -26,7 +26,7 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal, TypedDict
 
 import numpy as np
 from numpy.typing import NDArray
@@ -36,6 +36,7 @@ from service.analytics.errors import EmptyGraph
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.analytics.summary import graph_summary
 from service.intake import merge
+from service.intake.tables import ExtraColumns
 from service.loader import LoadedVersion, version_arrays
 
 __all__ = ["UploadOptions", "BuiltVersion", "build_version"]
@@ -45,14 +46,25 @@ __all__ = ["UploadOptions", "BuiltVersion", "build_version"]
 class UploadOptions:
     fmt: str
     part: str
-    mode: str
-    duplicates: str = "sum"
+    mode: Literal["replace", "append", "remove"]
+    duplicates: merge.MergeRule = "sum"
     source: str = "source"
     target: str = "target"
     weight: str | None = None
     probability: str | None = None
     id: str = "id"
-    extra_columns: str = "error"
+    extra_columns: ExtraColumns = "error"
+
+
+class _EdgeReadOptions(TypedDict):
+    """The keyword arguments every edge reader takes."""
+
+    source: str
+    target: str
+    weight: str | None
+    probability: str | None
+    allow_self_loops: bool
+    extra_columns: ExtraColumns
 
 
 @dataclass
@@ -79,7 +91,7 @@ def build_version(
         raise intake.UploadError("the graph has no version to remove from yet")
     interner = intake.Interner.from_ids(previous.ids) if previous is not None else intake.Interner()
     n_before = len(interner.ids)
-    edge_opts = dict(
+    edge_opts = _EdgeReadOptions(
         source=options.source,
         target=options.target,
         weight=options.weight,
@@ -97,7 +109,7 @@ def build_version(
                 weight=options.weight,
                 probability=options.probability,
                 allow_self_loops=allow_self_loops,
-                extra_columns=options.extra_columns,  # type: ignore[arg-type]
+                extra_columns=options.extra_columns,
             )
         elif options.part == "edges":
             reader = {
@@ -134,17 +146,19 @@ def build_version(
         stats["duplicates_merged"] = int(merged)
         edges = None  # the merged arrays replace the table: free it before the summary
         graph = GraphArrays(n, directed, src, dst, w, p)
-    elif edges is not None:
+    elif edges is not None and options.mode != "replace":  # always true here; narrows the mode
         base = GraphArrays(n_before, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
-        graph, delta = merge.apply_edge_delta(base, edges, n, mode=options.mode, rule=options.duplicates)  # type: ignore[arg-type]
+        graph, delta = merge.apply_edge_delta(base, edges, n, mode=options.mode, rule=options.duplicates)
         stats.update({k: v for k, v in asdict(delta).items() if k in ("added", "merged", "removed", "not_found")})
     else:
         graph = GraphArrays(n, directed, prev_graph.src, prev_graph.dst, prev_graph.weight, prev_graph.probability)
 
     # 2. Node attributes, aligned with the (possibly grown) node set.
     if nodes is not None and options.mode != "remove":
-        node_mode = "replace" if (options.part == "nodes" and options.mode == "replace") else "append"
-        attrs = merge.merge_node_table(prev_attrs, nodes, n, mode=node_mode)  # type: ignore[arg-type]
+        node_mode: Literal["replace", "append"] = (
+            "replace" if (options.part == "nodes" and options.mode == "replace") else "append"
+        )
+        attrs = merge.merge_node_table(prev_attrs, nodes, n, mode=node_mode)
     else:
         attrs = _extend_attrs(prev_attrs if prev_attrs is not None else NodeAttributes.empty(0), n)
 

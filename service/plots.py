@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import json
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from html import escape
 
@@ -42,7 +42,7 @@ def _nice_step(span: float, target: int = 6) -> float:
     if span <= 0 or not math.isfinite(span):
         return 1.0
     raw = span / target
-    mag = 10 ** math.floor(math.log10(raw))
+    mag = 10.0 ** math.floor(math.log10(raw))
     for m in (1, 2, 2.5, 5, 10):
         if raw <= m * mag:
             return m * mag
@@ -63,6 +63,8 @@ def _fmt(v: float) -> str:
 class _Axis:
     def __init__(self, lo: float, hi: float, log: bool, pixels: tuple[float, float]) -> None:
         self.log = log
+        self.lo: float
+        self.hi: float
         if log:
             lo, hi = max(lo, 1e-12), max(hi, 1e-12)
             self.lo, self.hi = math.floor(math.log10(lo)), math.ceil(math.log10(hi))
@@ -85,7 +87,8 @@ class _Axis:
     def ticks(self) -> list[tuple[float, str]]:
         if self.log:
             return [(10.0**e, _fmt(10.0**e)) for e in range(int(self.lo), int(self.hi) + 1)]
-        out, v = [], self.lo
+        out: list[tuple[float, str]] = []
+        v = self.lo
         while v <= self.hi + self.step / 2:
             out.append((v, _fmt(round(v, 12))))
             v += self.step
@@ -174,7 +177,7 @@ def line_chart(
     return "\n".join(out)
 
 
-def reach_curve_svg(curve: Sequence[float], baselines: dict[str, Sequence[float]], *, title: str | None = None) -> str:
+def reach_curve_svg(curve: Sequence[float], baselines: Mapping[str, Sequence[float]], *, title: str | None = None) -> str:
     """Expected reach against the number of seeds, with baseline methods dashed."""
     series = [Series("optimised", list(range(1, len(curve) + 1)), list(curve), markers=len(curve) <= 40)]
     for name, ys in baselines.items():
@@ -189,7 +192,7 @@ def reach_curve_svg(curve: Sequence[float], baselines: dict[str, Sequence[float]
 
 def adoption_svg(
     rounds: Sequence[int], mean: Sequence[float], low: Sequence[float], high: Sequence[float], *, label: str = "forecast",
-    others: dict[str, tuple[Sequence[int], Sequence[float], Sequence[float], Sequence[float]]] | None = None,
+    others: Mapping[str, tuple[Sequence[int], Sequence[float], Sequence[float], Sequence[float]]] | None = None,
 ) -> str:
     """Cumulative adoption by round: the mean with its confidence band."""
     series = [Series(label, list(rounds), list(mean), band_low=list(low), band_high=list(high))]

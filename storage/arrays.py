@@ -43,7 +43,7 @@ def write_arrays(
     for name, arr in arrays.items():
         a = np.ascontiguousarray(arr)
         dt = a.dtype.newbyteorder("<") if a.dtype.byteorder == ">" else a.dtype
-        raw = memoryview(a.astype(dt, copy=False)).cast("B")
+        raw = a.astype(dt, copy=False).data.cast("B")
         for i, off in enumerate(range(0, max(len(raw), 1), CHUNK_BYTES)):
             db.execute(
                 insert(table), {key: owner, "name": name, "seq": i, "data": raw[off : off + CHUNK_BYTES]}

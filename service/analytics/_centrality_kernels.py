@@ -38,7 +38,7 @@ def seed_state(seed: int) -> np.ndarray:
 @njit(cache=True, inline="always")
 def _next_u64(state: np.ndarray) -> np.uint64:
     state[0] += _GOLDEN
-    z = state[0]
+    z: np.uint64 = state[0]
     z = (z ^ (z >> _S30)) * _MIX1
     z = (z ^ (z >> _S27)) * _MIX2
     return z ^ (z >> _S31)

@@ -202,8 +202,10 @@ def community_summary(
     if g.n == 0:
         return []
     if score is None:
-        score = np.bincount(g.src, minlength=g.n) + np.bincount(g.dst, minlength=g.n)
-    sc = np.asarray(score, dtype=np.float64)
+        degree = np.bincount(g.src, minlength=g.n) + np.bincount(g.dst, minlength=g.n)
+        sc = degree.astype(np.float64)
+    else:
+        sc = np.asarray(score, dtype=np.float64)
     if sc.shape != (g.n,):
         raise InvalidParameter("score must hold one value per node", field="score")
     k = int(mem.max()) + 1

@@ -12,12 +12,15 @@ string ids live one layer up and never enter this package.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Literal, NamedTuple
+from typing import TYPE_CHECKING, Literal, NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
 
 from .errors import InvalidParameter
+
+if TYPE_CHECKING:
+    import igraph  # no type hints: mypy sees igraph.Graph as Any (pyproject override)
 
 __all__ = [
     "GraphArrays",
@@ -46,7 +49,7 @@ PROBABILITY_SCHEMES: tuple[str, ...] = (
     "normalized",
     "explicit",
 )
-TRIVALENCY_VALUES = np.array([0.1, 0.01, 0.001])
+TRIVALENCY_VALUES: NDArray[np.float64] = np.array([0.1, 0.01, 0.001])
 
 
 @dataclass(frozen=True, eq=False)
@@ -147,7 +150,7 @@ class Csr(NamedTuple):
     order: NDArray[np.int64]  # position of each CSR entry in the arc arrays
 
 
-def to_igraph(g: GraphArrays, *, weights: bool = True) -> object:
+def to_igraph(g: GraphArrays, *, weights: bool = True) -> igraph.Graph:
     """Build an ``igraph.Graph`` with the edge attribute ``weight``.
 
     Examples
@@ -269,19 +272,17 @@ def edge_probabilities(
     >>> edge_probabilities(arcs(g), "normalized").tolist()
     [0.25, 0.75]
     """
-    m = a.src.shape[0]
+    m = int(a.src.shape[0])
     if scheme == "weighted_cascade":
         indeg = np.bincount(a.dst, minlength=a.n).astype(np.float64)
         return 1.0 / indeg[a.dst] if m else np.zeros(0)
     if scheme == "uniform":
-        _check_unit("p", p)
-        return np.full(m, float(p))  # type: ignore[arg-type]
+        return np.full(m, _check_unit("p", p))
     if scheme == "trivalency":
         rng = np.random.default_rng(random_seed)
         return TRIVALENCY_VALUES[rng.integers(0, 3, size=m)]
     if scheme == "per_interaction":
-        _check_unit("q", q)
-        return 1.0 - np.power(1.0 - float(q), a.weight)  # type: ignore[arg-type]
+        return 1.0 - np.power(1.0 - _check_unit("q", q), a.weight)
     if scheme == "normalized":
         instr = np.bincount(a.dst, weights=a.weight, minlength=a.n)
         return a.weight / instr[a.dst] if m else np.zeros(0)
@@ -319,12 +320,14 @@ def check_lt_weights(a: Arcs, probs: NDArray[np.float64], *, tol: float = 1e-9) 
         )
 
 
-def _check_unit(name: str, value: float | None) -> None:
+def _check_unit(name: str, value: float | None) -> float:
+    """``value`` as a float; InvalidParameter unless it is a number in [0, 1]."""
     if value is None or not np.isfinite(value) or not 0.0 <= float(value) <= 1.0:
         raise InvalidParameter(
             f"probability.{name} must be a number in [0, 1], got {value!r}",
             field=f"probability.{name}",
         )
+    return float(value)
 
 
 class DiffusionGraph(NamedTuple):

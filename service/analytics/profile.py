@@ -126,7 +126,7 @@ def _ks(tail: NDArray[np.float64], x_min: float, alpha: float, discrete: bool) -
 
 
 def _candidates(x: NDArray[np.float64], min_tail: int, cap: int) -> NDArray[np.float64]:
-    vals = np.unique(x)
+    vals: NDArray[np.float64] = np.unique(x)
     # Keep x_min values leaving at least min_tail observations in the tail.
     above = x.shape[0] - np.searchsorted(np.sort(x), vals)
     vals = vals[above >= min_tail]

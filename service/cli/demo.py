@@ -98,7 +98,7 @@ class Demo:
         self.echo("")
         if job["status"] != "succeeded":
             raise SystemExit(f"demo: {kind} job {jid} ended {job['status']}: {job.get('error')}")
-        result = self.check(self.http.get(f"/v1/jobs/{jid}/result"))
+        result: dict[str, Any] = self.check(self.http.get(f"/v1/jobs/{jid}/result"))
         result["_job_id"] = jid
         result["_seconds"] = time.monotonic() - start
         self.say(f"  ({kind} job {jid} took {result['_seconds']:.1f} s)")

@@ -68,7 +68,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     if args.command == "worker":
         from .worker import run_worker
 
-        return run_worker(settings) or 0
+        run_worker(settings)
+        return 0
     if args.command == "keys":
         from .keys import run_keys
 

@@ -4,10 +4,14 @@ from __future__ import annotations
 
 import logging
 import os
+from typing import TYPE_CHECKING
 
 import uvicorn
 
 from service.settings import Settings
+
+if TYPE_CHECKING:
+    from fastapi import FastAPI
 
 __all__ = ["serve"]
 
@@ -27,8 +31,8 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
         try:
             from .worker import start_workers
         except ImportError:  # job runner not installed in this build
-            start_workers = None
-        if start_workers is not None:
+            pass
+        else:
             supervisor = start_workers(settings, workers)
     os.environ.setdefault("BELLWETHER_HOST", settings.host)
     try:
@@ -47,7 +51,7 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
     return 0
 
 
-def app_factory():  # type: ignore[no-untyped-def]
+def app_factory() -> FastAPI:
     from service.app import create_app
 
     return create_app(Settings())

@@ -171,10 +171,9 @@ def _json_records(fh: BinaryIO, member: str) -> list[Any]:
         raise UploadError(
             f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno
         ) from None
-    if isinstance(doc, dict) and isinstance(doc.get(member), list):
-        return doc[member]
-    if isinstance(doc, list):
-        return doc
+    records = doc.get(member) if isinstance(doc, dict) else doc
+    if isinstance(records, list):
+        return records
     raise UploadError(f'expected a JSON array, or an object with a "{member}" array')
 
 

@@ -12,7 +12,7 @@ import json
 import math
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Literal
+from typing import Literal, TypeVar
 
 import numpy as np
 from numpy.typing import NDArray
@@ -466,14 +466,13 @@ def parse_extra(v: object) -> str | None:
     return json.dumps(v, ensure_ascii=False)
 
 
-_PARSERS: dict[str, Callable[[object], object]] = {
-    "segment": parse_label,
-    "region": parse_label,
-    "label": parse_label,
-    "consent": parse_consent,
-    "cost": parse_amount,
-    "value": parse_amount,
-}
+_T = TypeVar("_T")
+
+
+def _put(col: list[_T | None], n: int, cell: _T | None) -> None:
+    """Set record ``n`` of a column, filling earlier records that left it out with None."""
+    col.extend([None] * (n - len(col)))
+    col.append(cell)
 
 
 class NodeSink:
@@ -486,7 +485,11 @@ class NodeSink:
         self.id_column = id_column
         self.unit: Unit = unit
         self.index: list[int] = []
-        self.cols: dict[str, list[object]] = {c: [] for c in NODE_COLUMNS}
+        # One typed list per known column (a record that leaves a column out
+        # is None there), and the other columns as text.
+        self.text: dict[str, list[str | None]] = {"segment": [], "region": [], "label": []}
+        self.amounts: dict[str, list[float | None]] = {"cost": [], "value": []}
+        self.consent: list[int | None] = []
         self.extra: dict[str, list[str | None]] = {}
         self.present: set[str] = set()
         self.records = 0
@@ -497,20 +500,21 @@ class NodeSink:
             raise UploadError("empty node id", line=where, column=self.id_column, unit=self.unit)
         n = self.records
         for col, raw in values.items():
-            parse = _PARSERS.get(col)
             try:
-                cell = parse(raw) if parse is not None else parse_extra(raw)
+                if col in self.text:
+                    _put(self.text[col], n, parse_label(raw))
+                elif col in self.amounts:
+                    _put(self.amounts[col], n, parse_amount(raw))
+                elif col == "consent":
+                    _put(self.consent, n, parse_consent(raw))
+                else:
+                    _put(self.extra.setdefault(col, [None] * n), n, parse_extra(raw))
+                    continue
             except ValueError as exc:
                 raise UploadError(
                     str(exc), line=where, column=col, value=str(raw), unit=self.unit
                 ) from None
-            if parse is not None:
-                self.present.add(col)
-                target = self.cols[col]
-            else:
-                target = self.extra.setdefault(col, [None] * n)  # type: ignore[arg-type]
-            target.extend([None] * (n - len(target)))
-            target.append(cell)
+            self.present.add(col)
         self.index.append(self.interner.intern(node_id))
         self.records = n + 1
 
@@ -526,25 +530,25 @@ class NodeSink:
         whole = keep.size == n
         pick = keep.tolist()
 
-        def column(col: list[object]) -> list[object]:
+        def column(col: list[_T | None]) -> list[_T | None]:
             col = col + [None] * (n - len(col))
             return col if whole else [col[i] for i in pick]
 
-        def floats(col: list[object]) -> NDArray[np.float64]:
+        def floats(col: list[float | None]) -> NDArray[np.float64]:
             return np.array([math.nan if x is None else x for x in column(col)], np.float64)
 
         consent = np.array(
-            [-1 if x is None else x for x in column(self.cols["consent"])], dtype=np.int8
+            [-1 if x is None else x for x in column(self.consent)], dtype=np.int8
         )
         return NodeTable(
             index=index[keep],
-            segment=column(self.cols["segment"]),  # type: ignore[arg-type]
-            region=column(self.cols["region"]),  # type: ignore[arg-type]
+            segment=column(self.text["segment"]),
+            region=column(self.text["region"]),
             consent=consent,
-            cost=floats(self.cols["cost"]),
-            value=floats(self.cols["value"]),
-            label=column(self.cols["label"]),  # type: ignore[arg-type]
-            extra={k: column(v) for k, v in self.extra.items()},  # type: ignore[misc]
+            cost=floats(self.amounts["cost"]),
+            value=floats(self.amounts["value"]),
+            label=column(self.text["label"]),
+            extra={k: column(v) for k, v in self.extra.items()},
             columns=tuple(c for c in NODE_COLUMNS if c in self.present),
             records=n,
         )

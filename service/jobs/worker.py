@@ -253,6 +253,10 @@ class Worker:
 
     def _execute(self, run: _Run) -> RunOutcome:
         job = run.job
+
+        def progress(fraction: float, message: str | None = None) -> None:
+            self._progress(run, fraction, message)
+
         try:
             kind = registry.get_kind(job.kind)
             params = registry.parse_params(kind, job.params)
@@ -263,7 +267,7 @@ class Worker:
                 graph_id=job.graph_id,
                 version=job.version,
                 random_seed=seed,
-                progress=lambda fraction, message=None: self._progress(run, fraction, message),
+                progress=progress,
                 _load=self._loader(run),
             )
             output = kind.run(ctx, params)

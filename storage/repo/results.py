@@ -32,7 +32,7 @@ def result_etag(data: dict[str, Any], arrays: dict[str, NDArray[Any]]) -> str:
     for name in sorted(arrays):
         a = np.ascontiguousarray(arrays[name])
         h.update(f"\x00{name}\x00{a.dtype.str}\x00{a.shape[0]}\x00".encode())
-        h.update(memoryview(a).cast("B"))
+        h.update(a.data.cast("B"))
     return h.hexdigest()
 
 
