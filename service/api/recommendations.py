@@ -15,7 +15,6 @@ import io
 import json
 from collections.abc import Callable, Iterator
 from typing import Annotated, Any, TypeVar
-from urllib.parse import unquote
 
 import numpy as np
 from fastapi import APIRouter, Header, HTTPException, Query, Request, Response, status
@@ -45,6 +44,7 @@ from .deps import SettingsDep, TenantDep
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
 from .jobs import etag_matches
+from .node_ids import node_route
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.recommendations import (
     METHOD_ALIASES,
@@ -54,7 +54,7 @@ from .schemas.recommendations import (
     RecommendationPage,
 )
 
-__all__ = ["router", "node_id_segment", "csv_cell", "CSV_EXPORTS"]
+__all__ = ["CSV_EXPORTS", "csv_cell", "router"]
 
 router = APIRouter(tags=["recommendations"], responses=PROBLEM_RESPONSES)
 
@@ -63,7 +63,6 @@ T = TypeVar("T")
 
 # Bumped whenever the ranking or the answer's shape changes, so old ETags stop matching.
 ETAG_SALT = "recommendations/1"
-NODE_SEGMENT = 5  # /v1/graphs/{graph_id}/nodes/{node_id}/...: index of {node_id} in the raw path
 
 #: Job kinds whose result can be exported as CSV, and how.
 CSV_EXPORTS: dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]] = {
@@ -81,29 +80,6 @@ def _maker(request: Request) -> sessionmaker[Session]:
 async def _compute(fn: Callable[[], T]) -> T:
     """Run ``fn`` on the bounded compute pool (see service.indexes), off the event loop."""
     return await asyncio.get_running_loop().run_in_executor(compute_pool(), fn)
-
-
-def node_id_segment(request: Request, position: int = NODE_SEGMENT, segments: int = NODE_SEGMENT + 2) -> str:
-    """The node id as exactly one percent-decoded segment of the raw request path.
-
-    The routing path is decoded before matching, so an id holding ``/``
-    (sent as ``%2F``) would otherwise split into two segments; the route
-    matches with a ``path`` parameter and the id is read back from the raw
-    path, which must have exactly ``segments`` parts.
-    """
-    raw = request.scope.get("raw_path")
-    if not raw:
-        return str(request.path_params["node_id"])
-    parts = raw.decode("latin-1").split("?", 1)[0].split("/")
-    if len(parts) != segments:
-        raise NotFound(
-            "node not found: a node id holding '/' must be sent percent-encoded as %2F",
-            resource="node", id=str(request.path_params["node_id"]),
-        )
-    try:
-        return unquote(parts[position], encoding="utf-8", errors="strict")
-    except UnicodeDecodeError as exc:
-        raise InvalidParams("the node id is not percent-encoded UTF-8", field="node_id") from exc
 
 
 def _etag(*parts: object) -> str:
@@ -135,8 +111,9 @@ def _recommendation_items(v: LoadedVersion, recs: list[Recommendation]) -> list[
     ]
 
 
-@router.get(
-    "/v1/graphs/{graph_id}/nodes/{node_id:path}/recommendations",
+@node_route(
+    router,
+    "/v1/graphs/{graph_id}/nodes/{node_id}/recommendations",
     summary="Whom to introduce a person to, with the shared contacts that explain it",
     description=(
         "People the node is not yet tied to, best first. `node_id` is one path segment, "
@@ -161,7 +138,8 @@ async def list_recommendations(
     explain: Annotated[int, Query(ge=0, le=20, description="Shared contacts per recommendation.")] = 3,
     if_none_match: IfNoneMatch = None,
 ) -> Response:
-    node_id = node_id_segment(request)
+    # Read here, not declared as a parameter, so the OpenAPI document stays as it was.
+    node_id = str(request.path_params["node_id"])
     maker = _maker(request)
     name = METHOD_ALIASES.get(method, method)
 

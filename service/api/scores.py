@@ -17,7 +17,6 @@ from dataclasses import dataclass
 from datetime import datetime
 from functools import partial
 from typing import Annotated, Any, Literal
-from urllib.parse import unquote
 
 import numpy as np
 from fastapi import APIRouter, Header, Query, Request, Response, status
@@ -26,7 +25,6 @@ from fastapi.responses import JSONResponse, StreamingResponse
 from numpy.typing import NDArray
 from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session, sessionmaker
-from starlette.convertors import Convertor, register_url_convertor
 
 from service import rankings as R
 from service.analytics.centrality import MEASURES
@@ -42,6 +40,7 @@ from .deps import get_principal
 from .errors import InvalidParams
 from .graphs import parse_version
 from .jobs import etag_matches
+from .node_ids import node_route
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.scores import CommunityPage, NodeRead, ScorePage
 
@@ -54,21 +53,6 @@ VersionQ = Annotated[str | None, Query(description="Version number or 'latest' (
 NOT_MODIFIED: dict[int | str, dict[str, Any]] = {304: {"description": "Not modified (If-None-Match matched the ETag)."}}
 COMPOSITE = "sum_m w_m p_m / sum_m w_m over percentile ranks p_m (0..100; undefined counts 0)"
 
-
-class _NodeIdConvertor(Convertor[str]):
-    """One node id: any text (``/`` arrives decoded from ``%2F``) not ending in a sub-resource,
-    so ``.../nodes/{id}/recommendations`` is left to its own route."""
-
-    regex = r"(?:[^/]|/(?!recommendations$))+"
-
-    def convert(self, value: str) -> str:
-        return value
-
-    def to_string(self, value: str) -> str:
-        return value
-
-
-register_url_convertor("node_id", _NodeIdConvertor())
 
 router = APIRouter(prefix="/v1/graphs", tags=["scores"], responses=PROBLEM_RESPONSES)
 
@@ -352,21 +336,6 @@ async def list_rankings(
 # -- one person -----------------------------------------------------------------------
 
 
-def _raw_node_id(request: Request, node_id: str) -> str:
-    """The id from the raw path: exactly one percent-encoded segment (``/`` as ``%2F``)."""
-    raw = request.scope.get("raw_path")
-    if not raw:
-        return node_id
-    parts = raw.decode("latin-1").split("?", 1)[0].split("/")
-    if len(parts) != 6:
-        raise NotFound("node not found: a node id holding '/' must be sent percent-encoded as %2F",
-                       resource="node", id=node_id)
-    try:
-        return unquote(parts[5], encoding="utf-8", errors="strict")
-    except UnicodeDecodeError as exc:
-        raise InvalidParams("the node id is not percent-encoded UTF-8", field="node_id") from exc
-
-
 def _inverse(order: NDArray[np.int32]) -> NDArray[np.int32]:
     rank_of = np.empty(order.shape[0], dtype=np.int32)
     rank_of[order] = np.arange(1, order.shape[0] + 1, dtype=np.int32)
@@ -416,21 +385,21 @@ def _read_node(db: Session, tenant: str, graph_id: str, nid: str, version: int |
     })
 
 
-@router.get(
-    "/{graph_id}/nodes/{node_id:node_id}",
+@node_route(
+    router,
+    "/{graph_id}/nodes/{node_id}",
     summary="Read a person: attributes, degree, every score with its percentile and rank, community",
     description="`node_id` is one percent-encoded path segment (`/` as `%2F`). Scores come from the "
     "newest succeeded `scores` job of the version; `scores` is empty and `job_id` null when none has run.",
     response_model=NodeRead,
 )
 async def read_node(graph_id: str, node_id: str, request: Request, version: VersionQ = None) -> NodeRead:
-    nid = _raw_node_id(request, node_id)
     tenant, _, maker = _caller(request)
     number = parse_version(version)
 
     def work() -> NodeRead:
         with maker() as db:
-            return _read_node(db, tenant, graph_id, nid, number)
+            return _read_node(db, tenant, graph_id, node_id, number)
 
     return await run_in_threadpool(work)
 

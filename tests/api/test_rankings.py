@@ -316,16 +316,6 @@ async def test_node_endpoint(client) -> None:  # type: ignore[no-untyped-def]
     assert_problem(await client.get("/v1/graphs/g_none/nodes/m5"), 404, "not-found")
 
 
-def test_node_route_leaves_recommendations_alone() -> None:
-    from service.api.scores import router
-
-    route = next(r for r in router.routes if getattr(r, "name", "") == "read_node")
-    regex = route.path_regex  # type: ignore[attr-defined]
-    assert regex.match("/v1/graphs/g1/nodes/a/b")  # a decoded %2F
-    assert not regex.match("/v1/graphs/g1/nodes/a/recommendations")
-    assert not regex.match("/v1/graphs/g1/nodes/a%2Fb/recommendations".replace("%2F", "/"))
-
-
 async def test_problems(sq_client) -> None:  # type: ignore[no-untyped-def]
     client = sq_client
     gid = await upload_karate(client)
