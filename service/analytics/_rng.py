@@ -44,6 +44,7 @@ __all__ = [
     "unit_open0",
     "unit",
     "prefetch",
+    "ctz",
 ]
 
 GAMMA = np.uint64(0x9E3779B97F4A7C15)
@@ -96,5 +97,19 @@ def prefetch(typingctx, arr, idx):  # type: ignore[no-untyped-def]
         # read access, high temporal locality, data cache
         builder.call(fn, [ptr, ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)])
         return context.get_dummy_value()
+
+    return sig, codegen
+
+
+@intrinsic
+def ctz(typingctx, x):  # type: ignore[no-untyped-def]
+    """The index of the lowest set bit of a non-zero int64 (``llvm.cttz``)."""
+    sig = types.int64(types.int64)
+
+    def codegen(context, builder, signature, args):  # type: ignore[no-untyped-def]
+        i64 = ir.IntType(64)
+        fnty = ir.FunctionType(i64, [i64, ir.IntType(1)])
+        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.cttz.i64")
+        return builder.call(fn, [args[0], ir.Constant(ir.IntType(1), 1)])
 
     return sig, codegen

@@ -31,8 +31,8 @@ mark array is all zero between calls.
 Node records. Row ``v`` is described by ``rec[2v]`` (first in-arc) and
 ``rec[2v + 2]`` (one past its last), and ``recf[2v + 1]`` (the same memory seen as
 float64) encodes the row's mode: ``1 / log(1 - p) < 0`` for geometric skipping,
-``0`` when every in-arc is live, ``1`` for per-arc coins, ``2`` when none can be
-live. One prefetch brings a node's whole description.
+``8 + t`` for a block row with 32-bit coin threshold ``t``, ``0`` when every
+in-arc is live, ``1`` for per-arc coins, ``2`` when none can be live. One prefetch brings a node's whole description.
 """
 
 from __future__ import annotations
@@ -44,14 +44,14 @@ from numba import njit
 from numpy.typing import NDArray
 
 from . import _rr_kernels as K
-from ._rng import GAMMA, S11, mix64, prefetch, unit_open0
+from ._rng import GAMMA, S11, ctz, mix64, prefetch, unit_open0
 
 __all__ = ["LANES", "lane_records", "sample_ic_lanes"]
 
 # 8 lanes: measured on soc-Slashdot0902 and com-DBLP (weighted cascade) against 4, 16
 # and 32: 16 was no faster and 32 slower (more queues compete for the L1 cache).
 LANES = 8
-_REC_ALL, _REC_COIN, _REC_NONE = 0.0, 1.0, 2.0
+_REC_ALL, _REC_COIN, _REC_NONE, _REC_BLOCK = 0.0, 1.0, 2.0, 8.0
 
 
 def lane_records(
@@ -68,6 +68,8 @@ def lane_records(
     code[mode == K.IC_COIN] = _REC_COIN
     skip = mode == K.IC_SKIP
     code[skip] = inv_logq[skip]
+    block = mode == K.IC_BLOCK
+    code[block] = _REC_BLOCK + inv_logq[block]  # inv_logq holds the coin threshold there
     recf[1:-1:2] = code
     return rec, recf
 
@@ -148,7 +150,14 @@ def sample_ic_lanes(rec, recf, indices, thr, accept, alias, key, first, count, h
                     d = b - a
                     examined += d
                     c = recf[2 * v + 1]
-                    if c < 0.0:
+                    if c >= _REC_BLOCK:
+                        s, live = K.block_coins(s, np.uint32(c - _REC_BLOCK), d)
+                        while live != 0:
+                            pend[pb + m] = a + ctz(live)
+                            live &= live - 1
+                            m += 1
+                        prefetch(indices, a)
+                    elif c < 0.0:
                         i = np.int64(-1)
                         while True:
                             s += GAMMA

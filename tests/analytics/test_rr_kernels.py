@@ -51,33 +51,49 @@ def chi2_ok(observed, probs, *, z=4.0):
 
 
 def test_modes_are_chosen_per_node():
-    # Node 3 has three in-arcs of one probability (skip), node 2 mixed (coin),
-    # node 1 p = 1 (all), node 0 none.
-    dg = digraph(4, [(0, 1), (0, 2), (1, 2), (0, 3), (1, 3), (2, 3)],
-                 [1.0, 0.2, 0.3, 0.4, 0.4, 0.4])
-    mode, inv_logq, _ = K.prepare_ic(dg.in_indptr, dg.in_prob)
-    assert mode.tolist() == [K.IC_NONE, K.IC_ALL, K.IC_COIN, K.IC_SKIP]
-    # Source: closed form, 1 / log(1 - 0.4) (the skipping kernels multiply by it).
-    assert inv_logq[3] == pytest.approx(1.0 / math.log(0.6))
+    # Node 3 has three in-arcs of one probability (block coins), node 4 has
+    # BLOCK_MAX + 1 of one probability (skip), node 2 mixed (coin), node 1
+    # p = 1 (all), node 0 none.
+    many = K.BLOCK_MAX + 1
+    arcs = [(0, 1), (0, 2), (1, 2), (0, 3), (1, 3), (2, 3)] + [(5 + i, 4) for i in range(many)]
+    dg = digraph(5 + many, arcs, [1.0, 0.2, 0.3, 0.4, 0.4, 0.4] + [0.25] * many)
+    mode, param, _ = K.prepare_ic(dg.in_indptr, dg.in_prob)
+    assert mode.tolist()[:5] == [K.IC_NONE, K.IC_ALL, K.IC_COIN, K.IC_BLOCK, K.IC_SKIP]
+    # Source: closed forms. Block rows keep ceil(0.4 * 2**32) - 1; skipping rows
+    # 1 / log(1 - 0.25) (the kernels multiply by it).
+    assert param[3] == math.ceil(0.4 * 2**32) - 1
+    assert param[4] == pytest.approx(1.0 / math.log(0.75))
 
 
-@pytest.mark.parametrize("probs", [[0.3] * 5, [0.3, 0.3, 0.3, 0.3, 0.3000001]],
-                         ids=["skip", "coin"])
+@pytest.mark.parametrize("probs", [[0.3] * 5, [0.3] * 16, [0.3] * 17, [0.3] * 4 + [0.3000001]],
+                         ids=["block", "block-full", "skip", "coin"])
 def test_live_in_arcs_are_binomial(probs):
-    # Star 1..5 -> 0; roots drawn only at node 0 (audience weight on 0 alone).
+    # Star 1..d -> 0; roots drawn only at node 0 (audience weight on 0 alone).
     # Source: closed form. Each in-arc kept independently with p = 0.3, so the
-    # RR set size - 1 is Binomial(5, 0.3), and each leaf appears w.p. 0.3.
-    dg = digraph(6, [(i, 0) for i in range(1, 6)], probs)
-    w = np.zeros(6)
+    # RR set size - 1 is Binomial(d, 0.3), and each leaf appears w.p. 0.3.
+    d = len(probs)
+    dg = digraph(d + 1, [(i, 0) for i in range(1, d + 1)], probs)
+    w = np.zeros(d + 1)
     w[0] = 1.0
     c = collection(dg, 40_000, weights=w, seed=3)
     sizes = np.diff(c.offsets) - 1
-    pmf = [math.comb(5, j) * 0.3 ** j * 0.7 ** (5 - j) for j in range(6)]
-    ok, info = chi2_ok(np.bincount(sizes, minlength=6), pmf)
+    pmf = [math.comb(d, j) * 0.3 ** j * 0.7 ** (d - j) for j in range(d + 1)]
+    ok, info = chi2_ok(np.bincount(sizes, minlength=d + 1), pmf)
     assert ok, info
-    freq = np.bincount(c.nodes, minlength=6)[1:] / c.count
+    freq = np.bincount(c.nodes, minlength=d + 1)[1:] / c.count
     se = math.sqrt(0.3 * 0.7 / c.count)
     assert np.all(np.abs(freq - 0.3) < 4 * se)
+    # Arcs are independent: each pair of leaves is live together w.p. 0.09.
+    both = np.zeros(c.count, bool)
+    off = c.offsets
+    for leaves in ((1, 2), (1, d), (d - 1, d)):
+        member = [np.zeros(c.count, bool) for _ in leaves]
+        for m, leaf in zip(member, leaves, strict=True):
+            idx = np.flatnonzero(c.nodes == leaf)
+            m[np.searchsorted(off, idx, side="right") - 1] = True
+        both = member[0] & member[1]
+        se2 = math.sqrt(0.09 * 0.91 / c.count)
+        assert abs(both.mean() - 0.09) < 4 * se2
 
 
 def test_skipping_handles_p_one_and_tiny_p():
