@@ -138,7 +138,7 @@ class ChunkResult(NamedTuple):
     reach: NDArray[np.int64]
     weighted: NDArray[np.float64]
     depth: NDArray[np.int32]
-    count: NDArray[np.int64]
+    count: NDArray[np.int64]  # type: ignore[assignment]  # shadows tuple.count; callers use it
     new: NDArray[np.int64]
     sq_hi: NDArray[np.int64]
     sq_lo: NDArray[np.int64]
@@ -276,7 +276,7 @@ def _ic_cascade(  # type: ignore[no-untyped-def]
                     z = (z ^ (z >> _S27)) * _M2
                     rb[j] = z ^ (z >> _S31)
                 state += np.uint64(npairs) * _GAMMA
-                cnt = 0
+                cnt = np.int64(0)
                 for j in range(2 * npairs):
                     ok = np.int64(rb32[j] <= thr[e + j])
                     rb32[cnt] = g_indices[e + j]

@@ -22,6 +22,8 @@ References
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 from llvmlite import ir
 from numba import njit, types
@@ -80,20 +82,22 @@ def unit(x: np.uint64) -> float:
     return float(x >> S11) * TWO_M53
 
 
-@intrinsic
-def prefetch(typingctx, arr, idx):  # type: ignore[no-untyped-def]
+def _prefetch(typingctx, arr, idx):  # type: ignore[no-untyped-def]
     """Hint the CPU to load ``arr[idx]`` into cache (``llvm.prefetch``; no effect on results)."""
     sig = types.void(arr, idx)
 
     def codegen(context, builder, signature, args):  # type: ignore[no-untyped-def]
         aty = signature.args[0]
         ary = context.make_array(aty)(context, builder, args[0])
-        ptr = cgutils.get_item_pointer(context, builder, aty, ary, [args[1]],
-                                       wraparound=False, boundscheck=False)
+        ptr = cgutils.get_item_pointer(  # type: ignore[no-untyped-call]  # numba is untyped
+            context, builder, aty, ary, [args[1]], wraparound=False, boundscheck=False
+        )
         i32 = ir.IntType(32)
         ptr = builder.bitcast(ptr, ir.IntType(8).as_pointer())
         fnty = ir.FunctionType(ir.VoidType(), [ptr.type, i32, i32, i32])
-        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.prefetch.p0")
+        fn = cgutils.get_or_insert_function(  # type: ignore[no-untyped-call]
+            builder.module, fnty, "llvm.prefetch.p0"
+        )
         # read access, high temporal locality, data cache
         builder.call(fn, [ptr, ir.Constant(i32, 0), ir.Constant(i32, 3), ir.Constant(i32, 1)])
         return context.get_dummy_value()
@@ -101,15 +105,22 @@ def prefetch(typingctx, arr, idx):  # type: ignore[no-untyped-def]
     return sig, codegen
 
 
-@intrinsic
-def ctz(typingctx, x):  # type: ignore[no-untyped-def]
+def _ctz(typingctx, x):  # type: ignore[no-untyped-def]
     """The index of the lowest set bit of a non-zero int64 (``llvm.cttz``)."""
     sig = types.int64(types.int64)
 
     def codegen(context, builder, signature, args):  # type: ignore[no-untyped-def]
         i64 = ir.IntType(64)
         fnty = ir.FunctionType(i64, [i64, ir.IntType(1)])
-        fn = cgutils.get_or_insert_function(builder.module, fnty, "llvm.cttz.i64")
+        fn = cgutils.get_or_insert_function(  # type: ignore[no-untyped-call]
+            builder.module, fnty, "llvm.cttz.i64"
+        )
         return builder.call(fn, [args[0], ir.Constant(ir.IntType(1), 1)])
 
     return sig, codegen
+
+
+# numba's intrinsic wrapper is typed with the code generator's signature, not the
+# call's; the kernels call these with (array, index) and (int64,).
+prefetch: Any = intrinsic(_prefetch)
+ctz: Any = intrinsic(_ctz)

@@ -20,6 +20,7 @@ import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
@@ -56,7 +57,9 @@ LANES_MIN_BYTES = 1 << 20
 
 def _marks(n: int, last: int) -> NDArray[np.int32] | NDArray[np.int64]:
     """A zeroed mark array able to hold marks up to ``last + 1``."""
-    return np.zeros(n, dtype=np.int32 if last < _MARK32_LIMIT else np.int64)
+    if last < _MARK32_LIMIT:
+        return np.zeros(n, dtype=np.int32)
+    return np.zeros(n, dtype=np.int64)
 
 
 Progress = Callable[[float, str], None]
@@ -107,7 +110,7 @@ class RRSampler:
     ) -> tuple[int, int]:
         """Sets ``first..first+count-1`` that contain a seed (not stored)."""
         stamp = _marks(self.n, first + count)
-        fn = K.hits_ic if self.model == "ic" else K.hits_lt
+        fn: Any = K.hits_ic if self.model == "ic" else K.hits_lt  # numba dispatchers are untyped
         hits, examined = fn(*self._args(), key, first, count, self.horizon, is_seed, stamp)
         return int(hits), int(examined)
 

@@ -34,6 +34,7 @@ LT  0 no in-arc, 1 all incoming weights equal (pick index floor(U / w)),
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 from numba import njit
@@ -73,7 +74,7 @@ def _set_state(key: np.uint64, j: np.int64) -> np.uint64:
 
 
 @njit(inline="always")
-def block_coins(state, t32, d):
+def block_coins(state: Any, t32: Any, d: Any) -> Any:
     """(advanced state, live mask) for a block row of ``d <= BLOCK_MAX`` arcs:
     bit i of the mask is set when arc i is live (see IC mode 4)."""
     lo = np.int64(0)
@@ -97,7 +98,7 @@ def stream_key(random_seed: int, tag: int) -> np.uint64:
 
 
 @njit(cache=True)
-def prepare_ic(indptr, prob):  # pragma: no cover - compiled
+def prepare_ic(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     """Per-node mode, per-node parameter (1 / log(1 - p) for skipping rows, the
     32-bit coin threshold for block rows) and 53-bit per-arc thresholds."""
     n = indptr.shape[0] - 1
@@ -142,7 +143,7 @@ def prepare_ic(indptr, prob):  # pragma: no cover - compiled
 
 
 @njit(cache=True)
-def prepare_lt(indptr, prob):  # pragma: no cover - compiled
+def prepare_lt(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     """Per-node mode, common weight for equal rows, and cumulative weights per row."""
     n = indptr.shape[0] - 1
     mode = np.zeros(n, dtype=np.int8)
@@ -169,7 +170,7 @@ def prepare_lt(indptr, prob):  # pragma: no cover - compiled
 
 
 @njit(cache=True)
-def build_alias(weights):  # pragma: no cover - compiled
+def build_alias(weights: Any) -> Any:  # pragma: no cover - compiled
     """Walker's alias table (Vose's construction) for drawing i with P ~ weights[i]."""
     n = weights.shape[0]
     total = 0.0
@@ -206,7 +207,7 @@ def build_alias(weights):  # pragma: no cover - compiled
 
 
 @njit(inline="always")
-def _root(state, n, accept, alias):
+def _root(state: Any, n: Any, accept: Any, alias: Any) -> Any:
     state += GAMMA
     x = mix64(state)
     if accept.shape[0] == 0:
@@ -222,8 +223,11 @@ def _root(state, n, accept, alias):
 
 
 @njit(cache=True)
-def sample_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count, horizon,
-              out_nodes, pos, out_ends, stamp):  # pragma: no cover - compiled
+def sample_ic(
+    indptr: Any, indices: Any, mode: Any, logq: Any, thr: Any, accept: Any, alias: Any,
+    key: Any, first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any,
+    stamp: Any,
+) -> Any:  # pragma: no cover - compiled
     """Sample IC RR sets ``first .. first+count-1`` into the flat buffers.
 
     Reverse breadth-first search from a random root, keeping each in-arc
@@ -310,7 +314,7 @@ def sample_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count
 
 
 @njit(inline="always")
-def _lt_pick(state, v, indptr, mode, w, cum):
+def _lt_pick(state: Any, v: Any, indptr: Any, mode: Any, w: Any, cum: Any) -> Any:
     """The in-arc position v keeps under LT, or -1 (none)."""
     a = indptr[v]
     b = indptr[v + 1]
@@ -338,8 +342,10 @@ def _lt_pick(state, v, indptr, mode, w, cum):
 
 
 @njit(cache=True)
-def sample_lt(indptr, indices, mode, w, cum, accept, alias, key, first, count, horizon,
-              out_nodes, pos, out_ends, stamp):  # pragma: no cover - compiled
+def sample_lt(
+    indptr: Any, indices: Any, mode: Any, w: Any, cum: Any, accept: Any, alias: Any, key: Any,
+    first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any, stamp: Any,
+) -> Any:  # pragma: no cover - compiled
     """Sample LT RR sets: a reverse random walk in which each visited node keeps
     at most one in-arc (arc from u with probability b(u, v)); the walk stops at
     a node keeping none, at a node already in the set, or after ``horizon``
@@ -378,8 +384,10 @@ def sample_lt(indptr, indices, mode, w, cum, accept, alias, key, first, count, h
 
 
 @njit(cache=True)
-def hits_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count, horizon,
-            is_seed, stamp):  # pragma: no cover - compiled
+def hits_ic(
+    indptr: Any, indices: Any, mode: Any, logq: Any, thr: Any, accept: Any, alias: Any,
+    key: Any, first: Any, count: Any, horizon: Any, is_seed: Any, stamp: Any,
+) -> Any:  # pragma: no cover - compiled
     """Count IC RR sets ``first..first+count-1`` that contain a seed.
 
     Same sets as :func:`sample_ic` (same streams), but nothing is stored and
@@ -467,8 +475,10 @@ def hits_ic(indptr, indices, mode, logq, thr, accept, alias, key, first, count, 
 
 
 @njit(cache=True)
-def hits_lt(indptr, indices, mode, w, cum, accept, alias, key, first, count, horizon,
-            is_seed, stamp):  # pragma: no cover - compiled
+def hits_lt(
+    indptr: Any, indices: Any, mode: Any, w: Any, cum: Any, accept: Any, alias: Any, key: Any,
+    first: Any, count: Any, horizon: Any, is_seed: Any, stamp: Any,
+) -> Any:  # pragma: no cover - compiled
     """Count LT RR sets that contain a seed (see :func:`hits_ic`)."""
     hits = np.int64(0)
     examined = np.int64(0)
@@ -497,7 +507,7 @@ def hits_lt(indptr, indices, mode, w, cum, accept, alias, key, first, count, hor
 
 
 @njit(cache=True)
-def inverted_index(nodes, offsets, n):  # pragma: no cover - compiled
+def inverted_index(nodes: Any, offsets: Any, n: Any) -> Any:  # pragma: no cover - compiled
     """Node -> sets CSR: row v lists (ascending) the sets that contain v.
 
     ``offsets`` has one more entry than there are sets. Returns
@@ -521,7 +531,9 @@ def inverted_index(nodes, offsets, n):  # pragma: no cover - compiled
 
 
 @njit(cache=True)
-def cover_node(v, inv_indptr, inv_sets, offsets, nodes, covered, counts):  # pragma: no cover
+def cover_node(
+    v: Any, inv_indptr: Any, inv_sets: Any, offsets: Any, nodes: Any, covered: Any, counts: Any,
+) -> Any:  # pragma: no cover
     """Mark every uncovered set containing v covered; keep ``counts[u]`` equal
     to the number of uncovered sets containing u. Returns sets newly covered."""
     newly = 0
@@ -536,7 +548,7 @@ def cover_node(v, inv_indptr, inv_sets, offsets, nodes, covered, counts):  # pra
 
 
 @njit(cache=True)
-def covered_by(nodes, offsets, is_seed):  # pragma: no cover - compiled
+def covered_by(nodes: Any, offsets: Any, is_seed: Any) -> Any:  # pragma: no cover - compiled
     """Number of stored sets that contain at least one seed."""
     nsets = offsets.shape[0] - 1
     hit = 0
@@ -549,7 +561,9 @@ def covered_by(nodes, offsets, is_seed):  # pragma: no cover - compiled
 
 
 @njit(cache=True)
-def best_candidate(counts, avail, tiebreak, costs, ratio, budget_left):  # pragma: no cover
+def best_candidate(
+    counts: Any, avail: Any, tiebreak: Any, costs: Any, ratio: Any, budget_left: Any,
+) -> Any:  # pragma: no cover
     """The available node with the largest gain (or gain per cost when ``ratio``;
     free people rank first), ties broken by the larger gain, then the larger
     ``tiebreak``, then the smaller index; with a non-empty ``costs`` only
@@ -581,7 +595,9 @@ def best_candidate(counts, avail, tiebreak, costs, ratio, budget_left):  # pragm
 
 
 @njit(cache=True)
-def capped_top_sum(order, counts, group, caps_left, k):  # pragma: no cover - compiled
+def capped_top_sum(
+    order: Any, counts: Any, group: Any, caps_left: Any, k: Any,
+) -> Any:  # pragma: no cover - compiled
     """Largest sum of at most k counts taken in ``order`` (descending counts)
     with at most ``caps_left[g]`` from group g: greedy is exact for a modular
     objective over a partition matroid."""

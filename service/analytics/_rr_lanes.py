@@ -32,12 +32,14 @@ Node records. Row ``v`` is described by ``rec[2v]`` (first in-arc) and
 ``rec[2v + 2]`` (one past its last), and ``recf[2v + 1]`` (the same memory seen as
 float64) encodes the row's mode: ``1 / log(1 - p) < 0`` for geometric skipping,
 ``8 + t`` for a block row with 32-bit coin threshold ``t``, ``0`` when every
-in-arc is live, ``1`` for per-arc coins, ``2`` when none can be live. One prefetch brings a node's whole description.
+in-arc is live, ``1`` for per-arc coins, ``2`` when none can be live. One prefetch
+brings a node's whole description.
 """
 
 from __future__ import annotations
 
 import math
+from typing import Any
 
 import numpy as np
 from numba import njit
@@ -75,8 +77,11 @@ def lane_records(
 
 
 @njit(cache=True)
-def sample_ic_lanes(rec, recf, indices, thr, accept, alias, key, first, count, horizon,
-                    out_nodes, pos, out_ends, vis, queues, pend):  # pragma: no cover - compiled
+def sample_ic_lanes(
+    rec: Any, recf: Any, indices: Any, thr: Any, accept: Any, alias: Any, key: Any, first: Any,
+    count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any, vis: Any, queues: Any,
+    pend: Any,
+) -> Any:  # pragma: no cover - compiled
     """Sample IC RR sets ``first .. first+count-1`` into the flat buffers, as
     :func:`._rr_kernels.sample_ic` does (same sets, same buffers and order).
 
@@ -158,16 +163,16 @@ def sample_ic_lanes(rec, recf, indices, thr, accept, alias, key, first, count, h
                             m += 1
                         prefetch(indices, a)
                     elif c < 0.0:
-                        i = np.int64(-1)
+                        at = np.int64(-1)  # the last live arc's offset in the row
                         while True:
                             s += GAMMA
                             g = math.log(unit_open0(mix64(s))) * c
-                            if g >= d - 1 - i:
+                            if g >= d - 1 - at:
                                 break
-                            i += 1 + np.int64(g)
-                            pend[pb + m] = a + i
+                            at += 1 + np.int64(g)
+                            pend[pb + m] = a + at
                             m += 1
-                            prefetch(indices, a + i)
+                            prefetch(indices, a + at)
                     elif c == _REC_COIN:
                         for e in range(a, b):
                             s += GAMMA

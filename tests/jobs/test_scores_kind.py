@@ -59,7 +59,9 @@ def test_directed_measures_layout_and_progress() -> None:
     seen: list[tuple[float, str | None]] = []
     out = run(v, seen, measures=["in_degree", "out_degree", "pagerank", "hub", "authority", "constraint"])
     a = out.arrays
-    vec = lambda d: np.array([d[i] for i in range(40)], dtype=float)
+    def vec(d):
+        return np.array([d[i] for i in range(40)], dtype=float)
+
     # Source: NetworkX on the same directed graph, computed here.
     assert a["score.in_degree"] == pytest.approx(vec(dict(G.in_degree())))
     assert a["score.out_degree"] == pytest.approx(vec(dict(G.out_degree())))
@@ -86,7 +88,9 @@ def test_directed_measures_layout_and_progress() -> None:
 
 def test_personalised_pagerank_by_nodes_and_attribute() -> None:
     G, v = directed_graph()
-    vec = lambda d: np.array([d[i] for i in range(40)], dtype=float)
+    def vec(d):
+        return np.array([d[i] for i in range(40)], dtype=float)
+
     chosen = [v.ids[5], v.ids[9]]
     out = run(v, measures=["pagerank"], personalization={"nodes": chosen}, damping=0.7)
     pers = {i: 1.0 if i in (5, 9) else 0.0 for i in range(40)}

@@ -20,11 +20,11 @@ import pytest
 schemathesis = pytest.importorskip(
     "schemathesis", reason="schemathesis is not installed (pip install schemathesis; it is in the test extras)"
 )
-from hypothesis import HealthCheck, settings
+from hypothesis import HealthCheck, settings  # noqa: E402 - after the importorskip
 
-from service.app import create_app
-from tests.conftest import make_settings
-from tests.ops.helpers import make_key
+from service.app import create_app  # noqa: E402 - after the importorskip
+from tests.conftest import make_settings  # noqa: E402 - after the importorskip
+from tests.ops.helpers import make_key  # noqa: E402 - after the importorskip
 
 EXAMPLES = int(os.environ.get("BELLWETHER_FUZZ_EXAMPLES", "8"))
 

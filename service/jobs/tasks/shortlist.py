@@ -115,7 +115,7 @@ class ShortlistParams(DiffusionSettings):
     epsilon: float = Field(
         default=0.1, gt=0, lt=1, description="Approximation slack of imm and opim."
     )
-    l: float = Field(
+    l: float = Field(  # noqa: E741 - the paper's name for the confidence exponent
         default=1.0, gt=0, le=10, description="imm: the guarantee holds with probability 1 - n^-l."
     )
     target_ratio: float | None = Field(
