@@ -11,7 +11,10 @@ OPIM-C.
 Memory per stored entry (one node in one RR set): 4 bytes in the set store
 (int32 node), 4 bytes in the node -> sets index (int32 set id); per set
 8 bytes of offsets and 1 byte of covered flag; per node 16 bytes of index
-pointers and counts.
+pointers and counts. Sampling with lanes (large IC graphs) adds per node
+16 bytes of node records and 2 of visit marks, and reserves 4 bytes per node
+per lane of queue space, of which only the pages the largest sets reach are
+ever committed.
 """
 
 from __future__ import annotations
