@@ -1,6 +1,10 @@
 """Compiled loops for sampled betweenness (Riondato and Kornaropoulos 2014), its
 vertex-diameter bound, and the sampled-BFS distance summary of the profile.
 
+Each sampled path comes from a balanced bidirectional search (Borassi and
+Natale 2016): BFS on hops here, Dijkstra on arc lengths in
+:mod:`._weighted_sampling`.
+
 Private to ``service.analytics``. The random stream is a SplitMix64 state held
 in a one-element ``uint64`` array that the caller owns, so a run is reproducible
 from its seed, can be split into chunks (for progress reports) without
@@ -12,22 +16,15 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from ._rng import GAMMA, mix64, unit
+
 __all__ = [
     "rk_sample_unweighted",
-    "rk_sample_weighted",
     "vertex_diameter_bound",
     "seed_state",
     "bfs_distance_counts",
 ]
 
-_GOLDEN = np.uint64(0x9E3779B97F4A7C15)
-_MIX1 = np.uint64(0xBF58476D1CE4E5B9)
-_MIX2 = np.uint64(0x94D049BB133111EB)
-_S30 = np.uint64(30)
-_S27 = np.uint64(27)
-_S31 = np.uint64(31)
-_S11 = np.uint64(11)
-_INV53 = 1.0 / 9007199254740992.0  # 2**-53
 
 
 def seed_state(seed: int) -> np.ndarray:
@@ -37,16 +34,14 @@ def seed_state(seed: int) -> np.ndarray:
 
 @njit(cache=True, inline="always")
 def _next_u64(state: np.ndarray) -> np.uint64:
-    state[0] += _GOLDEN
-    z: np.uint64 = state[0]
-    z = (z ^ (z >> _S30)) * _MIX1
-    z = (z ^ (z >> _S27)) * _MIX2
-    return z ^ (z >> _S31)
+    state[0] += GAMMA
+    z: np.uint64 = mix64(state[0])
+    return z
 
 
 @njit(cache=True, inline="always")
 def _uniform(state: np.ndarray) -> float:
-    return float(_next_u64(state) >> _S11) * _INV53
+    return unit(_next_u64(state))
 
 
 @njit(cache=True, inline="always")
@@ -214,129 +209,6 @@ def rk_sample_unweighted(
         for i in range(nvb):
             db[vis_b[i]] = -1
             sb[vis_b[i]] = 0.0
-
-
-@njit(cache=True)
-def _heap_push(hd: np.ndarray, hv: np.ndarray, size: int, d: float, v: int) -> int:
-    i = size
-    hd[i] = d
-    hv[i] = v
-    while i > 0:
-        p = (i - 1) // 2
-        if hd[p] <= hd[i]:
-            break
-        hd[p], hd[i] = hd[i], hd[p]
-        hv[p], hv[i] = hv[i], hv[p]
-        i = p
-    return size + 1
-
-
-@njit(cache=True)
-def _heap_pop(hd: np.ndarray, hv: np.ndarray, size: int) -> int:
-    size -= 1
-    hd[0] = hd[size]
-    hv[0] = hv[size]
-    i = 0
-    while True:
-        a = 2 * i + 1
-        b = a + 1
-        m = i
-        if a < size and hd[a] < hd[m]:
-            m = a
-        if b < size and hd[b] < hd[m]:
-            m = b
-        if m == i:
-            break
-        hd[m], hd[i] = hd[i], hd[m]
-        hv[m], hv[i] = hv[i], hv[m]
-        i = m
-    return size
-
-
-@njit(cache=True)
-def rk_sample_weighted(
-    n: int,
-    out_indptr: np.ndarray,
-    out_indices: np.ndarray,
-    out_length: np.ndarray,
-    in_indptr: np.ndarray,
-    in_indices: np.ndarray,
-    in_length: np.ndarray,
-    r: int,
-    state: np.ndarray,
-    counts: np.ndarray,
-    rtol: float,
-) -> None:
-    """As :func:`rk_sample_unweighted` with Dijkstra over positive arc lengths.
-
-    Two path lengths count as equal when they differ by at most
-    ``rtol`` times the larger one, so sums like 1/2 + 1/2 and 1 tie.
-    """
-    dist = np.full(n, np.inf)
-    sigma = np.zeros(n, dtype=np.float64)
-    done = np.zeros(n, dtype=np.bool_)
-    touched = np.empty(n, dtype=np.int64)
-    cap = out_indices.shape[0] + 1
-    hd = np.empty(cap, dtype=np.float64)
-    hv = np.empty(cap, dtype=np.int64)
-    for _ in range(r):
-        s = _below(state, n)
-        t = _below(state, n - 1)
-        if t >= s:
-            t += 1
-        ntouched = 1
-        touched[0] = s
-        dist[s] = 0.0
-        sigma[s] = 1.0
-        size = _heap_push(hd, hv, 0, 0.0, s)
-        while size > 0:
-            du = hd[0]
-            u = hv[0]
-            size = _heap_pop(hd, hv, size)
-            if done[u] or du > dist[u]:
-                continue
-            done[u] = True
-            if u == t:
-                break
-            for k in range(out_indptr[u], out_indptr[u + 1]):
-                v = out_indices[k]
-                if done[v]:
-                    continue
-                alt = du + out_length[k]
-                if dist[v] == np.inf:
-                    touched[ntouched] = v
-                    ntouched += 1
-                if alt < dist[v] - rtol * alt:
-                    dist[v] = alt
-                    sigma[v] = sigma[u]
-                    size = _heap_push(hd, hv, size, alt, v)
-                elif abs(alt - dist[v]) <= rtol * max(alt, dist[v]):
-                    sigma[v] += sigma[u]
-        if done[t]:
-            v = t
-            while v != s:
-                target = _uniform(state) * sigma[v]
-                acc = 0.0
-                pick = -1
-                for k in range(in_indptr[v], in_indptr[v + 1]):
-                    u = in_indices[k]
-                    if done[u] and u != v:
-                        want = dist[u] + in_length[k]
-                        if abs(want - dist[v]) <= rtol * max(want, dist[v]):
-                            pick = u
-                            acc += sigma[u]
-                            if acc > target:
-                                break
-                if pick < 0:  # rounding left no predecessor: drop the sample's tail
-                    break
-                v = pick
-                if v != s:
-                    counts[v] += 1.0
-        for i in range(ntouched):
-            w = touched[i]
-            dist[w] = np.inf
-            sigma[w] = 0.0
-            done[w] = False
 
 
 @njit(cache=True)
