@@ -55,18 +55,7 @@ import numpy as np
 from numba import njit
 from numpy.typing import NDArray
 
-from ._rng import GAMMA as _GAMMA
-from ._rng import LO32 as _LO32
-from ._rng import M1 as _M1
-from ._rng import M2 as _M2
-from ._rng import S11 as _S11
-from ._rng import S27 as _S27
-from ._rng import S30 as _S30
-from ._rng import S31 as _S31
-from ._rng import S32 as _S32
-from ._rng import TWO_M53 as _TWO_M53
-from ._rng import mix64 as _mix64
-from ._rng import prefetch as _prefetch
+from ._rng import GAMMA, LO32, M1, M2, S11, S27, S30, S31, S32, TWO_M53, mix64, prefetch
 from ._kernel_graph import SKIP_MAX_P, SKIP_MIN_DEGREE, KernelGraph, kernel_graph, prepare
 
 __all__ = [
@@ -115,7 +104,7 @@ class ChunkResult(NamedTuple):
 
 @njit(cache=True, nogil=True)
 def _run_state(key: np.uint64, run: int) -> np.uint64:
-    return _mix64(key ^ _mix64(np.uint64(run + 1) * _GAMMA))
+    return mix64(key ^ mix64(np.uint64(run + 1) * GAMMA))
 
 
 @njit(cache=True, nogil=True)
@@ -154,19 +143,19 @@ def _ic_cascade(  # type: ignore[no-untyped-def]
             # Look ahead in the queue: the row offsets of the node _PD places on, and
             # the first arcs of the node _PD / 2 places on (whose offsets have arrived).
             if h + _PD < tail:
-                _prefetch(g_indptr, queue[h + _PD])
+                prefetch(g_indptr, queue[h + _PD])
             if h + _PD // 2 < tail:
                 o = g_indptr[queue[h + _PD // 2]]
-                _prefetch(g_indices, o)
-                _prefetch(thr, o)
+                prefetch(g_indices, o)
+                prefetch(thr, o)
             v = queue[h]
             e = g_indptr[v]
             e1 = g_indptr[v + 1]
             c = skip[v] if use_skip else 0.0
             if c != 0.0:
                 while True:
-                    state += _GAMMA
-                    u = (np.float64(_mix64(state) >> _S11) + 1.0) * _TWO_M53
+                    state += GAMMA
+                    u = (np.float64(mix64(state) >> S11) + 1.0) * TWO_M53
                     gap = math.log(u) * c
                     if gap >= np.float64(e1 - e):
                         break
@@ -185,11 +174,11 @@ def _ic_cascade(  # type: ignore[no-untyped-def]
             if d >= _VEC_MIN_DEGREE:
                 npairs = d >> 1
                 for j in range(npairs):
-                    z = state + np.uint64(j + 1) * _GAMMA
-                    z = (z ^ (z >> _S30)) * _M1
-                    z = (z ^ (z >> _S27)) * _M2
-                    rb[j] = z ^ (z >> _S31)
-                state += np.uint64(npairs) * _GAMMA
+                    z = state + np.uint64(j + 1) * GAMMA
+                    z = (z ^ (z >> S30)) * M1
+                    z = (z ^ (z >> S27)) * M2
+                    rb[j] = z ^ (z >> S31)
+                state += np.uint64(npairs) * GAMMA
                 cnt = np.int64(0)
                 for j in range(2 * npairs):
                     ok = np.int64(rb32[j] <= thr[e + j])
@@ -203,15 +192,15 @@ def _ic_cascade(  # type: ignore[no-untyped-def]
                         tail += 1
                 e += 2 * npairs
             while e + 1 < e1:
-                state += _GAMMA
-                r = _mix64(state)
-                if np.uint32(r & _LO32) <= thr[e]:
+                state += GAMMA
+                r = mix64(state)
+                if np.uint32(r & LO32) <= thr[e]:
                     w = g_indices[e]
                     if stamp[w] != mark:
                         stamp[w] = mark
                         queue[tail] = w
                         tail += 1
-                if np.uint32(r >> _S32) <= thr[e + 1]:
+                if np.uint32(r >> S32) <= thr[e + 1]:
                     w = g_indices[e + 1]
                     if stamp[w] != mark:
                         stamp[w] = mark
@@ -219,8 +208,8 @@ def _ic_cascade(  # type: ignore[no-untyped-def]
                         tail += 1
                 e += 2
             if e < e1:
-                state += _GAMMA
-                if np.uint32(_mix64(state) >> _S32) <= thr[e]:
+                state += GAMMA
+                if np.uint32(mix64(state) >> S32) <= thr[e]:
                     w = g_indices[e]
                     if stamp[w] != mark:
                         stamp[w] = mark
@@ -260,8 +249,8 @@ def _lt_cascade(  # type: ignore[no-untyped-def]
                     continue
                 if tstamp[w] != mark:
                     tstamp[w] = mark
-                    state += _GAMMA
-                    theta[w] = (np.float64(_mix64(state) >> _S11) + 1.0) * _TWO_M53
+                    state += GAMMA
+                    theta[w] = (np.float64(mix64(state) >> S11) + 1.0) * TWO_M53
                     acc[w] = 0.0
                 acc[w] += weight[e]
                 if acc[w] >= theta[w]:
