@@ -103,7 +103,7 @@ def prepare_ic(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     32-bit coin threshold for block rows) and 53-bit per-arc thresholds."""
     n = indptr.shape[0] - 1
     mode = np.zeros(n, dtype=np.int8)
-    logq = np.zeros(n, dtype=np.float64)
+    param = np.zeros(n, dtype=np.float64)
     thr = np.empty(prob.shape[0], dtype=np.int64)
     for e in range(prob.shape[0]):
         p = prob[e]
@@ -133,13 +133,13 @@ def prepare_ic(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
             mode[v] = IC_ALL
         elif same and b - a <= BLOCK_MAX:
             mode[v] = IC_BLOCK
-            logq[v] = min(math.ceil(p0 * 4294967296.0), 4294967296.0) - 1.0
+            param[v] = min(math.ceil(p0 * 4294967296.0), 4294967296.0) - 1.0
         elif same:
             mode[v] = IC_SKIP
-            logq[v] = 1.0 / math.log1p(-p0)
+            param[v] = 1.0 / math.log1p(-p0)
         else:
             mode[v] = IC_COIN
-    return mode, logq, thr
+    return mode, param, thr
 
 
 @njit(cache=True)
@@ -224,7 +224,7 @@ def _root(state: Any, n: Any, accept: Any, alias: Any) -> Any:
 
 @njit(cache=True)
 def sample_ic(
-    indptr: Any, indices: Any, mode: Any, logq: Any, thr: Any, accept: Any, alias: Any,
+    indptr: Any, indices: Any, mode: Any, param: Any, thr: Any, accept: Any, alias: Any,
     key: Any, first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any,
     stamp: Any,
 ) -> Any:  # pragma: no cover - compiled
@@ -270,7 +270,7 @@ def sample_ic(
             examined += d
             md = mode[v]
             if md == IC_BLOCK:
-                state, live = block_coins(state, np.uint32(logq[v]), d)
+                state, live = block_coins(state, np.uint32(param[v]), d)
                 while live != 0:
                     u = indices[a + ctz(live)]
                     live &= live - 1
@@ -279,7 +279,7 @@ def sample_ic(
                         out_nodes[pos] = u
                         pos += 1
             elif md == IC_SKIP:
-                lq = logq[v]
+                lq = param[v]
                 i = np.int64(-1)
                 while True:
                     state += GAMMA
@@ -385,7 +385,7 @@ def sample_lt(
 
 @njit(cache=True)
 def hits_ic(
-    indptr: Any, indices: Any, mode: Any, logq: Any, thr: Any, accept: Any, alias: Any,
+    indptr: Any, indices: Any, mode: Any, param: Any, thr: Any, accept: Any, alias: Any,
     key: Any, first: Any, count: Any, horizon: Any, is_seed: Any, stamp: Any,
 ) -> Any:  # pragma: no cover - compiled
     """Count IC RR sets ``first..first+count-1`` that contain a seed.
@@ -426,7 +426,7 @@ def hits_ic(
             examined += d
             md = mode[v]
             if md == IC_BLOCK:
-                state, live = block_coins(state, np.uint32(logq[v]), d)
+                state, live = block_coins(state, np.uint32(param[v]), d)
                 while live != 0:
                     u = indices[a + ctz(live)]
                     live &= live - 1
@@ -438,7 +438,7 @@ def hits_ic(
                         queue[tail] = u
                         tail += 1
             elif md == IC_SKIP:
-                lq = logq[v]
+                lq = param[v]
                 i = np.int64(-1)
                 while True:
                     state += GAMMA

@@ -57,7 +57,7 @@ _REC_ALL, _REC_COIN, _REC_NONE, _REC_BLOCK = 0.0, 1.0, 2.0, 8.0
 
 
 def lane_records(
-    indptr: NDArray[np.int64], mode: NDArray[np.int8], inv_logq: NDArray[np.float64]
+    indptr: NDArray[np.int64], mode: NDArray[np.int8], param: NDArray[np.float64]
 ) -> tuple[NDArray[np.int64], NDArray[np.float64]]:
     """The packed node records (int64 view, float64 view of the same buffer) for
     the IC modes of :func:`._rr_kernels.prepare_ic`."""
@@ -69,9 +69,9 @@ def lane_records(
     code[mode == K.IC_ALL] = _REC_ALL
     code[mode == K.IC_COIN] = _REC_COIN
     skip = mode == K.IC_SKIP
-    code[skip] = inv_logq[skip]
+    code[skip] = param[skip]
     block = mode == K.IC_BLOCK
-    code[block] = _REC_BLOCK + inv_logq[block]  # inv_logq holds the coin threshold there
+    code[block] = _REC_BLOCK + param[block]  # the 32-bit coin threshold
     recf[1:-1:2] = code
     return rec, recf
 
