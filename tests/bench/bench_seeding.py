@@ -17,8 +17,8 @@ weighted cascade, p(u->v) = 1/indegree(v), single-threaded, on the same graph
     included), each about ``--seconds`` long; the median of the per-pair
     ratios is printed, goal >= 0.5. Each pair also times ours once more with
     a store whose pages are touched for the first time (see "Memory first
-    touch" below) and prints that ratio beside it. Graphs: ca-GrQc (both directions),
-    soc-Slashdot0902 (as listed), com-DBLP (as listed).
+    touch" below) and prints that ratio beside it. Graphs: ca-GrQc (both
+    directions), soc-Slashdot0902 (as listed), com-DBLP (as listed).
 (b) IMM (``service.analytics.seeding.imm_seeds``) with k = 50, epsilon = 0.1,
     l = 1 on soc-Slashdot0902 (as listed) and com-DBLP (undirected: both
     directions, the co-authorship graph as a campaign would use it): wall
@@ -29,10 +29,10 @@ weighted cascade, p(u->v) = 1/indegree(v), single-threaded, on the same graph
 
 Memory first touch. The C reference counts RR sets without storing them; ours
 stores every set (4 bytes a node, 8 a set). On these machines, virtual machines
-whose memory the host backs only when a page is first touched, and takes back
-soon after it is freed, writing a new page costs about 10 to 20 times writing
-a reused one (the bench prints both rates, from writing ``--warm-mib`` MiB
-twice). At 4 million sets a second that is a quarter of the run on ca-GrQc. A
+whose memory the host backs only when a page is first touched, writing a new
+page costs about 10 to 20 times writing a reused one (the bench prints both
+rates, from writing ``--warm-mib`` MiB twice), and memory freed and allocated
+again after the C run in between was seen to cost the first-touch rate again. At 4 million sets a second that is a quarter of the run on ca-GrQc. A
 long-running worker on ordinary hardware does not pay it, so the goal ratio is
 measured with the store's memory written and freed just before the timed run
 (``pretouch``); the first-touch ratio is printed beside it.
