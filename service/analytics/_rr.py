@@ -11,8 +11,8 @@ OPIM-C.
 Memory per stored entry (one node in one RR set): 4 bytes in the set store
 (int32 node), 4 bytes in the node -> sets index (int32 set id); per set
 8 bytes of offsets and 1 byte of covered flag; per node 16 bytes of index
-pointers and counts. Sampling with lanes (large IC graphs) adds per node
-16 bytes of node records and 2 of visit marks, and reserves 4 bytes per node
+pointers and counts. Sampling with lanes (large graphs) adds per node
+2 bytes of visit marks (and for IC 16 bytes of node records), and reserves 4 bytes per node
 per lane of queue space, of which only the pages the largest sets reach are
 ever committed.
 """
@@ -50,11 +50,11 @@ BYTES_PER_ENTRY = 8  # int32 node in the store + int32 set id in the inverted in
 _MARK32_LIMIT = 2**31 - 2
 
 
-# Independent Cascade graphs whose in-arcs and node records take more than this many
-# bytes are sampled with several sets in flight (service.analytics._rr_lanes). Measured
-# with weighted cascade, kernel time, lanes against one set at a time: 0.63 on ca-GrQc
-# (0.2 MiB, in cache), 1.35 on soc-Slashdot0902 (4.8 MiB), 1.89 on com-DBLP (9.2 MiB).
-# 1 MiB is this machine's L2 cache per core.
+# Graphs whose in-arcs and node records take more than this many bytes are sampled
+# with several sets in flight (service.analytics._rr_lanes). Measured with weighted
+# cascade, kernel time, lanes against one set at a time, IC then LT: 0.63 and 0.68 on
+# ca-GrQc (0.2 MiB, in cache), 1.35 and 3.86 on soc-Slashdot0902 (4.8 MiB), 1.89 and
+# 2.18 on com-DBLP (9.2 MiB). 1 MiB is this machine's L2 cache per core.
 LANES_MIN_BYTES = 1 << 20
 
 
@@ -92,8 +92,8 @@ class RRSampler:
             raise InvalidParameter(f"unknown model {dg.model!r}", field="model")
         self.horizon = -1 if rounds is None else int(rounds)
         footprint = self.indices.nbytes + 16 * (self.n + 1)
-        self.lanes = self.model == "ic" and footprint > LANES_MIN_BYTES
-        if self.lanes:
+        self.lanes = footprint > LANES_MIN_BYTES
+        if self.lanes and self.model == "ic":
             self.rec, self.recf = _rr_lanes.lane_records(self.indptr, self.mode, self.aux)
             max_in = int(np.diff(self.indptr).max()) if self.n else 0
             self.pend = np.empty(_rr_lanes.LANES * (max_in + 1), dtype=np.int64)
@@ -204,11 +204,17 @@ class RRCollection:
         """Sets ``count .. count+want-1`` into the store, with lanes when the sampler uses them."""
         smp = self.sampler
         out_ends = self._ends[self.count:]
-        if smp.lanes:
+        if smp.lanes and smp.model == "ic":
             done, pos, examined = _rr_lanes.sample_ic_lanes(
                 smp.rec, smp.recf, smp.indices, smp.arc, smp.accept, smp.alias, self.key,
                 self.count, want, smp.horizon, self._nodes, self.entries, out_ends,
                 self._vis, self._queues, smp.pend,
+            )
+            return int(done), int(pos), int(examined)
+        if smp.lanes:
+            done, pos, examined = _rr_lanes.sample_lt_lanes(
+                *smp._args(), self.key, self.count, want, smp.horizon, self._nodes,
+                self.entries, out_ends, self._vis, self._queues,
             )
             return int(done), int(pos), int(examined)
         done, pos, examined = fn(

@@ -48,7 +48,7 @@ from numpy.typing import NDArray
 from . import _rr_kernels as K
 from ._rng import GAMMA, S11, ctz, mix64, prefetch, unit_open0
 
-__all__ = ["LANES", "lane_records", "sample_ic_lanes"]
+__all__ = ["LANES", "lane_records", "sample_ic_lanes", "sample_lt_lanes"]
 
 # 8 lanes: measured on soc-Slashdot0902 and com-DBLP (weighted cascade) against 4, 16
 # and 32: 16 was no faster and 32 slower (more queues compete for the L1 cache).
@@ -230,6 +230,123 @@ def sample_ic_lanes(
     while done < started and lens[done] >= 0:
         done += 1
     # Back into set order.
+    tmp = out_nodes[pos0:pos].copy()
+    p = pos0
+    for j in range(done):
+        s0 = starts[j] - pos0
+        for i in range(lens[j]):
+            out_nodes[p + i] = tmp[s0 + i]
+        p += lens[j]
+        out_ends[j] = p
+    return done, p, examined
+
+
+@njit(cache=True)
+def sample_lt_lanes(
+    indptr: Any, indices: Any, mode: Any, w: Any, cum: Any, accept: Any, alias: Any, key: Any,
+    first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any, vis: Any,
+    queues: Any,
+) -> Any:  # pragma: no cover - compiled
+    """Sample LT RR sets ``first .. first+count-1`` as :func:`._rr_kernels.sample_lt`
+    does (same sets, same order), with ``LANES`` reverse random walks in flight.
+
+    A walk step takes two turns of its lane: (1) pick the in-arc the current
+    node keeps (:func:`._rr_kernels._lt_pick`, the same draws) and prefetch its
+    source; (2) read the source, stop if the set already holds it, else add it
+    and prefetch its row. ``vis`` and ``queues`` are as for
+    :func:`sample_ic_lanes`, and so are the storing rules and return values.
+    """
+    n = indptr.shape[0] - 1
+    cap = out_nodes.shape[0]
+    if queues.shape[0] < LANES * n:
+        raise ValueError("queues needs LANES * n entries")
+    tail = np.zeros(LANES, np.int64)
+    steps = np.zeros(LANES, np.int64)
+    arc = np.full(LANES, -1, np.int64)
+    cur = np.zeros(LANES, np.int64)
+    ended = np.zeros(LANES, np.bool_)
+    set_of = np.full(LANES, -1, np.int64)
+    state = np.zeros(LANES, np.uint64)
+    starts = np.empty(count, np.int64)
+    lens = np.full(count, -1, np.int64)
+    pos0 = pos
+    examined = np.int64(0)
+    started = 0
+    finished = 0
+    full = False
+    drop_from = count
+    while finished < started or (started < count and not full):
+        for ln in range(LANES):
+            bit = np.uint16(1 << ln)
+            qb = ln * n
+            if set_of[ln] >= 0 and not ended[ln]:
+                if arc[ln] >= 0:  # (2) take the kept arc's source
+                    u = indices[arc[ln]]
+                    arc[ln] = -1
+                    if vis[u] & bit != 0:
+                        ended[ln] = True
+                    else:
+                        vis[u] |= bit
+                        queues[qb + tail[ln]] = u
+                        tail[ln] += 1
+                        cur[ln] = u
+                        steps[ln] += 1
+                        prefetch(indptr, u)
+                        prefetch(w, u)
+                        if horizon >= 0 and steps[ln] >= horizon:
+                            ended[ln] = True
+                else:  # (1) the arc the current node keeps, if any
+                    v = cur[ln]
+                    examined += indptr[v + 1] - indptr[v]
+                    s, e = K._lt_pick(state[ln], v, indptr, mode, w, cum)
+                    state[ln] = s
+                    if e < 0:
+                        ended[ln] = True
+                    else:
+                        arc[ln] = e
+                        prefetch(indices, e)
+                continue
+            j = set_of[ln]
+            if j >= 0:  # store the finished set (rules as in sample_ic_lanes)
+                t = tail[ln]
+                for i in range(t):
+                    vis[queues[qb + i]] &= ~bit
+                lowest = j
+                for x in range(LANES):
+                    if set_of[x] >= 0 and set_of[x] < lowest:
+                        lowest = set_of[x]
+                if j < drop_from and (cap - pos - t >= n or (j == lowest and cap - pos >= t)):
+                    starts[j] = pos
+                    lens[j] = t
+                    for i in range(t):
+                        out_nodes[pos + i] = queues[qb + i]
+                    pos += t
+                else:
+                    drop_from = min(drop_from, j)
+                    full = True
+                set_of[ln] = -1
+                finished += 1
+            if started < count and not full:
+                if cap - pos < n:
+                    full = True
+                    continue
+                j = started
+                started += 1
+                s, r = K._root(K._set_state(key, first + j), n, accept, alias)
+                state[ln] = s
+                set_of[ln] = j
+                queues[qb] = r
+                vis[r] |= bit
+                tail[ln] = 1
+                steps[ln] = 0
+                arc[ln] = -1
+                cur[ln] = r
+                ended[ln] = horizon == 0
+                prefetch(indptr, r)
+                prefetch(w, r)
+    done = 0
+    while done < started and lens[done] >= 0:
+        done += 1
     tmp = out_nodes[pos0:pos].copy()
     p = pos0
     for j in range(done):

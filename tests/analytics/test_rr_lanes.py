@@ -1,4 +1,4 @@
-"""Tests for the interleaved IC RR sampler (service.analytics._rr_lanes).
+"""Tests for the interleaved RR samplers (service.analytics._rr_lanes), IC and LT.
 
 The lanes must give exactly the sets of the one-at-a-time kernel
 (:func:`service.analytics._rr_kernels.sample_ic`, itself checked against closed
@@ -137,5 +137,45 @@ def test_large_graphs_choose_the_lanes():
     big = random_graph(40_000, 300_000, seed=2, mixed=False)
     assert not RRSampler(small).lanes
     assert RRSampler(big).lanes
-    assert not RRSampler(diffusion_graph(GraphArrays(
-        40_000, True, big.in_indices[:0], big.in_indices[:0], np.ones(0)), model="lt")).lanes
+    assert RRSampler(lt_graph(40_000, 300_000, seed=3, scheme="normalized")).lanes
+    assert not RRSampler(lt_graph(100, 400, seed=3, scheme="normalized")).lanes
+
+
+def lt_graph(n, m, seed, *, scheme):
+    rng = np.random.default_rng(seed)
+    src = rng.integers(0, n, m).astype(np.int32)
+    dst = rng.integers(0, n, m).astype(np.int32)
+    keep = src != dst
+    key = np.unique(src[keep].astype(np.int64) * n + dst[keep])
+    src, dst = (key // n).astype(np.int32), (key % n).astype(np.int32)
+    weight = rng.integers(1, 5, src.size).astype(float)  # unequal rows: the CDF search
+    g = GraphArrays(n, True, src, dst, weight if scheme == "normalized" else np.ones(src.size))
+    return diffusion_graph(g, model="lt", scheme=scheme)
+
+
+@pytest.mark.parametrize("scheme", ["normalized", "weighted_cascade"], ids=["cdf", "equal"])
+@pytest.mark.parametrize("rounds", [None, 0, 1, 3])
+@pytest.mark.parametrize("weighted", [False, True], ids=["uniform-roots", "weighted-roots"])
+def test_lt_lanes_give_the_same_sets(lanes_always, scheme, rounds, weighted):
+    # The one-walk-at-a-time kernel is the reference (itself checked against the
+    # LT live-edge law, Kempe et al. 2003 Thm 4.6, in test_rr_kernels.py).
+    n = 400
+    dg = lt_graph(n, 2500, seed=8, scheme=scheme)
+    w = np.random.default_rng(6).random(n) if weighted else None
+    sampler = RRSampler(dg, weights=w, rounds=rounds)
+    assert sampler.lanes
+    key = K.stream_key(2, 3)
+    coll = RRCollection(sampler, key)
+    for target in (1, 9, 700, 4000):
+        coll.extend_to(target)
+    nodes = np.empty(4000 * n + n + 16, np.int32)
+    ends = np.empty(4000, np.int64)
+    done, pos, examined = K.sample_lt(
+        *sampler._args(), key, 0, 4000, sampler.horizon, nodes, 0, ends, np.zeros(n, np.int32)
+    )
+    assert done == 4000
+    assert np.array_equal(coll.nodes, nodes[:pos])
+    assert np.array_equal(coll.offsets[1:], ends)
+    assert coll.examined == examined
+    assert not coll._vis.any()
+    assert (np.diff(coll.offsets) > 1).any() == (rounds != 0)  # walks longer than the root
