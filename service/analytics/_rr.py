@@ -212,7 +212,8 @@ class RRCollection:
             )
             return int(done), int(pos), int(examined)
         if smp.lanes:
-            done, pos, examined = _rr_lanes.sample_lt_lanes(
+            walk: Any = _rr_lanes.sample_lt_lanes  # numba dispatchers are untyped
+            done, pos, examined = walk(
                 *smp._args(), self.key, self.count, want, smp.horizon, self._nodes,
                 self.entries, out_ends, self._vis, self._queues,
             )
