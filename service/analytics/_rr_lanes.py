@@ -76,6 +76,52 @@ def lane_records(
     return rec, recf
 
 
+@njit(inline="always")
+def _store(
+    queues: Any, qb: Any, t: Any, vis: Any, bit: Any, set_of: Any, j: Any, out_nodes: Any,
+    pos: Any, n: Any, drop_from: Any, starts: Any, lens: Any,
+) -> Any:  # pragma: no cover - compiled
+    """Clear the lane's marks and store its finished set ``j`` (``t`` nodes from
+    ``queues[qb:]``) at ``pos``, or drop it. A set finishing before a lower one is
+    stored only if room for a whole set (n slots) remains after it, so the lowest
+    unfinished set always fits and every call stores at least one. Returns (new
+    pos, drop_from): the lowest set dropped so far, ``len(starts)`` if none."""
+    for i in range(t):
+        vis[queues[qb + i]] &= ~bit
+    lowest = j
+    for x in range(LANES):
+        if set_of[x] >= 0 and set_of[x] < lowest:
+            lowest = set_of[x]
+    room = out_nodes.shape[0] - pos
+    if j < drop_from and (room - t >= n or (j == lowest and room >= t)):
+        starts[j] = pos
+        lens[j] = t
+        for i in range(t):
+            out_nodes[pos + i] = queues[qb + i]
+        return pos + t, drop_from
+    return pos, min(drop_from, j)
+
+
+@njit(inline="always")
+def _in_set_order(
+    out_nodes: Any, pos0: Any, pos: Any, starts: Any, lens: Any, started: Any, out_ends: Any,
+) -> Any:  # pragma: no cover - compiled
+    """Move the stored sets, written in the order they finished, back into set order;
+    keep only the unbroken run ``0 .. done-1``. Returns (done, new pos)."""
+    done = 0
+    while done < started and lens[done] >= 0:
+        done += 1
+    tmp = out_nodes[pos0:pos].copy()
+    p = pos0
+    for j in range(done):
+        s0 = starts[j] - pos0
+        for i in range(lens[j]):
+            out_nodes[p + i] = tmp[s0 + i]
+        p += lens[j]
+        out_ends[j] = p
+    return done, p
+
+
 @njit(cache=True)
 def sample_ic_lanes(
     rec: Any, recf: Any, indices: Any, thr: Any, accept: Any, alias: Any, key: Any, first: Any,
@@ -191,23 +237,9 @@ def sample_ic_lanes(
             elif k == 0 and h >= t:  # store the finished set, start the next
                 j = set_of[ln]
                 if j >= 0:
-                    for i in range(t):
-                        vis[queues[qb + i]] &= ~bit
-                    # Keep room for a whole set while a lower one is in flight, so
-                    # the lowest unfinished set always fits: every call stores >= 1.
-                    lowest = j
-                    for x in range(LANES):
-                        if set_of[x] >= 0 and set_of[x] < lowest:
-                            lowest = set_of[x]
-                    if j < drop_from and (cap - pos - t >= n or (j == lowest and cap - pos >= t)):
-                        starts[j] = pos
-                        lens[j] = t
-                        for i in range(t):
-                            out_nodes[pos + i] = queues[qb + i]
-                        pos += t
-                    else:
-                        drop_from = min(drop_from, j)
-                        full = True
+                    pos, drop_from = _store(queues, qb, t, vis, bit, set_of, j, out_nodes, pos,
+                                            n, drop_from, starts, lens)
+                    full = full or drop_from < count
                     set_of[ln] = -1
                     finished += 1
                 if started < count and not full:
@@ -226,18 +258,7 @@ def sample_ic_lanes(
                     level_end[ln] = 1
                     depth[ln] = 0
                     prefetch(rec, 2 * r)
-    done = 0
-    while done < started and lens[done] >= 0:
-        done += 1
-    # Back into set order.
-    tmp = out_nodes[pos0:pos].copy()
-    p = pos0
-    for j in range(done):
-        s0 = starts[j] - pos0
-        for i in range(lens[j]):
-            out_nodes[p + i] = tmp[s0 + i]
-        p += lens[j]
-        out_ends[j] = p
+    done, p = _in_set_order(out_nodes, pos0, pos, starts, lens, started, out_ends)
     return done, p, examined
 
 
@@ -307,23 +328,10 @@ def sample_lt_lanes(
                         prefetch(indices, e)
                 continue
             j = set_of[ln]
-            if j >= 0:  # store the finished set (rules as in sample_ic_lanes)
-                t = tail[ln]
-                for i in range(t):
-                    vis[queues[qb + i]] &= ~bit
-                lowest = j
-                for x in range(LANES):
-                    if set_of[x] >= 0 and set_of[x] < lowest:
-                        lowest = set_of[x]
-                if j < drop_from and (cap - pos - t >= n or (j == lowest and cap - pos >= t)):
-                    starts[j] = pos
-                    lens[j] = t
-                    for i in range(t):
-                        out_nodes[pos + i] = queues[qb + i]
-                    pos += t
-                else:
-                    drop_from = min(drop_from, j)
-                    full = True
+            if j >= 0:  # store the finished set
+                pos, drop_from = _store(queues, qb, tail[ln], vis, bit, set_of, j, out_nodes,
+                                        pos, n, drop_from, starts, lens)
+                full = full or drop_from < count
                 set_of[ln] = -1
                 finished += 1
             if started < count and not full:
@@ -344,15 +352,5 @@ def sample_lt_lanes(
                 ended[ln] = horizon == 0
                 prefetch(indptr, r)
                 prefetch(w, r)
-    done = 0
-    while done < started and lens[done] >= 0:
-        done += 1
-    tmp = out_nodes[pos0:pos].copy()
-    p = pos0
-    for j in range(done):
-        s0 = starts[j] - pos0
-        for i in range(lens[j]):
-            out_nodes[p + i] = tmp[s0 + i]
-        p += lens[j]
-        out_ends[j] = p
+    done, p = _in_set_order(out_nodes, pos0, pos, starts, lens, started, out_ends)
     return done, p, examined
