@@ -197,7 +197,10 @@ def test_database_connections_dropped_under_a_running_job(pg_url: str, tmp_path:
 def test_sqlite_under_concurrent_writers_never_says_database_is_locked(tmp_path: Path) -> None:
     data = tmp_path / "data"
     data.mkdir()
-    env = child_env(data, None, BELLWETHER_AUTH_DISABLED="true", BELLWETHER_RATE_LIMIT_PER_SECOND="0", **FAST_WORKER)
+    # A 2 s lease can lapse on a loaded machine and the job is then (rightly) run again;
+    # this test is about failed writes, so its lease is long enough not to lapse.
+    env = child_env(data, None, BELLWETHER_AUTH_DISABLED="true", BELLWETHER_RATE_LIMIT_PER_SECOND="0",
+                    **{**FAST_WORKER, "BELLWETHER_JOB_LEASE_SECONDS": "15"})
     proc, base = start_api(data, env, workers=2)
     answers: list[tuple[str, int, str]] = []
     lock = threading.Lock()
