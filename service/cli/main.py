@@ -5,6 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 from collections.abc import Sequence
+from pathlib import Path
 
 from service.settings import Settings
 from storage.db import is_sqlite
@@ -43,6 +44,8 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--url", default=None, help="use a running server instead of starting one")
     d.add_argument("--key", default=None, help="API key for --url")
     d.add_argument("--seed", type=int, default=7)
+    d.add_argument("--files-only", action="store_true",
+                   help="only write the scenario's edges.csv and members.csv into --out, then stop")
     return p
 
 
@@ -74,6 +77,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         from .keys import run_keys
 
         return run_keys(settings, args)
+    if args.command == "demo" and args.files_only:
+        from .scenario import generate, write_csv
+
+        edges, nodes = write_csv(generate(args.members or 20_000, seed=args.seed), Path(args.out))
+        print(f"wrote {edges} and {nodes}")
+        return 0
     if args.command == "demo":
         from .demo import run_demo
 
