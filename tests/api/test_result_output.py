@@ -210,3 +210,21 @@ async def test_kinds_without_a_csv_export_say_which_have_one(client) -> None:  #
     r = await client.get(f"/v1/jobs/{jid}/result.csv")
     assert r.status_code == 406
     assert "shortlist" in r.json()["detail"] and "forecast" in r.json()["detail"]
+
+
+def test_probability_bounds_are_true_as_printed() -> None:
+    from service.jobs.tasks._shortlist_result import _at_least
+
+    # 1 - n^-l for n = 90, l = 1 (IMM's default confidence, closed form) and near-certain bounds:
+    # rounded down, so "at least" never claims more than holds, and never prints "1".
+    assert _at_least(1 - 90 ** -1.0) == "98.88%"
+    assert _at_least(1 - 1e-12) == "99.99%" and _at_least(0.5) == "50.00%"
+    assert _at_least(None) == "an unstated level"
+
+
+async def test_guarantee_text_never_claims_probability_one(client) -> None:  # type: ignore[no-untyped-def]
+    gid = await _setup(client)
+    jid = await _run(client, gid, "shortlist", {"budget": 3, **WC, "method": "imm", "l": 5})
+    g = (await client.get(f"/v1/jobs/{jid}/result")).json()["guarantee"]
+    assert "probability at least 99.99%" in g["summary"], g["summary"]  # 1 - 90^-5 (and more) rounds down
+    assert not re.search(r"probability at least 1\b", g["summary"])
