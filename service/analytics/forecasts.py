@@ -90,7 +90,8 @@ class ForecastResult:
     ``top_nodes_include_seeds``). ``segment_reach`` is the expected number
     reached in each segment. ``weighted_reach`` and ``weighted_percentiles``
     are the summed node values reached, when weights were given.
-    ``half_width`` is the interval's final half-width, ``stopped_because`` is
+    ``outcome_histogram`` counts the simulated outcomes (reach of single runs)
+    in bins of whole numbers of people. ``half_width`` is the interval's final half-width, ``stopped_because`` is
     ``"precision_reached"`` or ``"simulation_cap"``, and ``stream_key`` the
     key of the random stream used
     (:func:`service.analytics.diffusion.stream_key` of ``random_seed`` and the set's name).
@@ -112,6 +113,7 @@ class ForecastResult:
     rounds: int | None
     random_seed: int
     stream_key: int
+    outcome_histogram: dict[str, list[float] | list[int]] | None = None
 
 
 def forecast(
@@ -326,6 +328,7 @@ def _summarise(res: K.ChunkResult, seeds: NDArray[np.int32], reason: str, z: flo
         rounds=rounds,
         random_seed=random_seed,
         stream_key=key,
+        outcome_histogram=outcome_histogram(res.reach),
     )
 
 
@@ -333,6 +336,28 @@ def _interval(values: NDArray[np.generic], z: float) -> IntervalEstimate:
     mean, var = K.mean_var(np.asarray(values, dtype=np.float64))
     se = math.sqrt(var / values.shape[0])
     return IntervalEstimate(mean, se, mean - z * se, mean + z * se)
+
+
+def outcome_histogram(values: ArrayLike, bins: int = 30) -> dict[str, list[float] | list[int]]:
+    """Counts of simulated outcomes in at most ``bins`` equal bins of whole numbers of people.
+
+    Bin ``i`` holds ``edges[i] <= x < edges[i + 1]`` (the last bin includes its
+    right edge).
+
+    Examples
+    --------
+    >>> outcome_histogram([3, 3, 4, 7])
+    {'edges': [3.0, 4.0, 5.0, 6.0, 7.0, 8.0], 'counts': [2, 1, 0, 0, 1]}
+    """
+    v = np.asarray(values, dtype=np.float64)
+    if v.size == 0:
+        return {"edges": [], "counts": []}
+    lo, hi = math.floor(float(v.min())), math.floor(float(v.max())) + 1
+    width = max(1, math.ceil((hi - lo) / bins))
+    edges = np.arange(lo, hi + width, width, dtype=np.float64)
+    edges = edges[: np.searchsorted(edges, hi) + 1]
+    counts = np.histogram(v, bins=edges)[0]
+    return {"edges": edges.tolist(), "counts": [int(c) for c in counts]}
 
 
 def _percentiles(values: NDArray[np.generic]) -> dict[int, float]:

@@ -491,12 +491,24 @@ def _readings(p: dict[str, Any]) -> dict[str, str]:
         out["reciprocity"] = (f"{rec:.0%} of ties are returned; "
                               + ("most relationships are mutual." if rec >= 0.5 else
                                  "most ties run one way."))
-    mean = 2 * s["edges"] / s["nodes"] if s["nodes"] else 0.0
-    if s["degree_max"] is not None and mean > 0 and s["degree_max"] >= 10 * mean:
+    # One reading of how uneven the degrees are, used by "degrees" and "assortativity" alike,
+    # so the two never contradict each other: the best connected against the median person.
+    top, median = s["degree_max"], s["degree_median"]
+    spread = "even"
+    if top is not None and median is not None and top > 0:
+        ratio = top / max(median, 1.0)
+        spread = "heavy" if ratio >= 8 and top >= 10 else "uneven" if ratio >= 3 else "even"
+    if top is None or top == 0:
+        out["degrees"] = "Nobody has any ties yet."
+    elif spread == "heavy":
         out["degrees"] = (f"Heavy-tailed: a few people hold many ties (the best connected "
-                          f"has {s['degree_max']:,}, the median person {s['degree_median']:g}).")
+                          f"has {top:,}, the median person {median:g}).")
+    elif spread == "uneven":
+        out["degrees"] = (f"Somewhat uneven: a few people stand out (the best connected has "
+                          f"{top:,} ties, the median person {median:g}).")
     else:
-        out["degrees"] = "Ties are spread fairly evenly; nobody holds a large share of them."
+        out["degrees"] = (f"Ties are spread fairly evenly (the best connected has {top:,}, the "
+                          f"median person {median:g}); nobody holds a large share of them.")
     pl = p["power_law"]
     if pl is None:
         out["power_law"] = "Too few connected people to fit a power law."
@@ -524,9 +536,12 @@ def _readings(p: dict[str, Any]) -> dict[str, str]:
     elif r > 0.1:
         out["assortativity"] = (f"Well-connected people tend to link to each other "
                                 f"(assortativity {r:.2f}).")
-    elif r < -0.1:
+    elif r < -0.1 and spread != "even":
         out["assortativity"] = (f"Well-connected people link mostly to less-connected ones, "
                                 f"hub-and-spoke (assortativity {r:.2f}).")
+    elif r < -0.1:
+        out["assortativity"] = (f"People with more ties link somewhat more often to people with fewer "
+                                f"(assortativity {r:.2f}), though nobody stands out as a hub.")
     else:
         out["assortativity"] = f"No strong pattern in who links to whom by degree ({r:.2f})."
     d = p["distances"]

@@ -109,7 +109,15 @@ class _Exposure:
             self.score = (1.0 - blend) * self.exposure + blend * fo
 
     def ranked(self) -> NDArray[np.int64]:
-        return np.lexsort((self.node, -self.exposure, -self.score))
+        """Rows in the order a team can act on them.
+
+        People with an adopter who may ask them come first, then by score, then
+        exposure, then the strength of the asking tie (under weighted cascade many
+        people share an exposure of 1: their only tie is an adopter), then more
+        adopters in contact, then lower index.
+        """
+        return np.lexsort((self.node, -self.count, -self.ask_tie, -self.exposure, -self.score,
+                           self.ask < 0))
 
     def contacts(self, rows: NDArray[np.int64]) -> list[NextContact]:
         cols = (self.node, self.exposure, self.score, self.ask, self.ask_tie, self.ask_prob,
@@ -166,7 +174,8 @@ def next_contacts(
     Returns
     -------
     list of NextContact
-        Highest score first, then exposure, then lower index.
+        Those with an adopter who may ask them first; then highest score,
+        exposure, asking tie strength, adopters in contact, lower index.
 
     Raises
     ------
@@ -221,7 +230,8 @@ def referral_asks(
 
     Each exposed non-adopter is assigned to exactly one adopter, the one
     :func:`next_contacts` names as best placed to ask (strongest tie), and
-    each adopter's list is ranked by score (exposure unless blended).
+    each adopter's list is ranked by score (exposure unless blended), then
+    exposure, then tie strength, then adopters in contact.
 
     Parameters
     ----------
@@ -268,7 +278,8 @@ def referral_asks(
     ex = _Exposure(dg, adopters, index, eligible, askers, follow_on, blend)
     has = np.flatnonzero(ex.ask >= 0)
     # Group by asker, best target first within each group.
-    order = has[np.lexsort((ex.node[has], -ex.exposure[has], -ex.score[has], ex.ask[has]))]
+    order = has[np.lexsort((ex.node[has], -ex.count[has], -ex.ask_tie[has], -ex.exposure[has],
+                            -ex.score[has], ex.ask[has]))]
     ask = ex.ask[order]
     starts = np.flatnonzero(np.r_[True, ask[1:] != ask[:-1]]) if ask.size else np.zeros(0, int)
     rank = np.arange(ask.size) - np.repeat(starts, np.diff(np.r_[starts, ask.size]))

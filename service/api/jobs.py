@@ -26,6 +26,7 @@ from storage.repo import results as result_repo
 
 from .deps import DbDep, SettingsDep, TenantDep
 from .errors import InvalidParams, TooManyJobs
+from .rendering import round_document
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.jobs import JobCreate, JobKindList, JobKindRead, JobPage, JobRead, JobSpec, JobStatus
 
@@ -242,11 +243,12 @@ def etag_matches(if_none_match: str | None, etag: str) -> bool:
 
 
 def result_body(job: Job, result: JobResult) -> dict[str, Any]:
+    """The result document as callers see it: stored figures rounded to what they mean."""
     return {
         "job_id": job.id,
         "created_at": result.created_at.isoformat(),
         "arrays": result.manifest,
-        **result.data,
+        **round_document(result.data),
     }
 
 

@@ -1,7 +1,9 @@
-"""SVG plots of job results: degree distribution, reach versus budget, adoption by round."""
+"""SVG plots of job results: reach versus budget, reach per segment, adoption, outcomes, degrees."""
 
 from __future__ import annotations
 
+import math
+import re
 from typing import Any, Literal
 
 from fastapi import APIRouter, Response
@@ -14,76 +16,205 @@ from .deps import DbDep, TenantDep
 from .errors import InvalidParams
 from .schemas.common import PROBLEM_RESPONSES
 
-__all__ = ["router", "render_plot"]
+__all__ = ["router", "render_plot", "PLOTS"]
 
 router = APIRouter(tags=["plots"], responses=PROBLEM_RESPONSES)
 
-PLOTS = {
-    "degree_distribution": "profile",
-    "reach_curve": "shortlist",
-    "adoption": "forecast",
+#: Plot name -> the job kinds it is drawn from.
+PLOTS: dict[str, tuple[str, ...]] = {
+    "degree_distribution": ("profile",),
+    "reach_curve": ("shortlist",),
+    "segment_reach": ("shortlist", "forecast"),
+    "adoption": ("forecast",),
+    "outcomes": ("forecast",),
 }
+PlotName = Literal["degree_distribution", "reach_curve", "segment_reach", "adoption", "outcomes"]
 
 SVG_RESPONSE: dict[int | str, dict[str, Any]] = {
     200: {"content": {"image/svg+xml": {"schema": {"type": "string"}}}, "description": "An SVG image."}
 }
+Z95 = 1.959963984540054  # two-sided 95% normal quantile
+Z90 = 1.6448536269514722  # two-sided 90% normal quantile (5th to 95th percentile)
 
 
 @router.get(
     "/v1/jobs/{job_id}/plots/{name}.svg",
     summary="Plot a job's result as SVG",
+    description=(
+        "`reach_curve` (shortlist): expected reach against the number of people contacted, with its "
+        "interval, the budget marked and a second axis in % of people. `segment_reach` (shortlist, "
+        "forecast): expected reach per segment. `adoption` (forecast): people reached by round, the "
+        "average with its interval and the band holding 90% of campaigns. `outcomes` (forecast): "
+        "histogram of simulated campaign outcomes. `degree_distribution` (profile): ties per person, "
+        "log-log, with the fitted power law."
+    ),
     response_class=Response,
     responses=SVG_RESPONSE,
 )
-def read_plot(
-    job_id: str,
-    name: Literal["degree_distribution", "reach_curve", "adoption"],
-    db: DbDep,
-    tenant: TenantDep,
-) -> Response:
+def read_plot(job_id: str, name: PlotName, db: DbDep, tenant: TenantDep) -> Response:
     job = job_repo.get_job(db, tenant, job_id)
     want = PLOTS[name]
-    if job.kind != want:
-        raise InvalidParams(f"plot {name!r} is drawn from a {want} job; job {job.id} is a {job.kind} job", field="name")
+    if job.kind not in want:
+        raise InvalidParams(
+            f"plot {name!r} is drawn from a {' or '.join(want)} job; job {job.id} is a {job.kind} job", field="name"
+        )
     if job.status != "succeeded":
         raise InvalidParams(f"job {job.id} has not succeeded (status {job.status}); no plot yet", field="job_id")
     result = result_repo.get_result(db, job.id)
     svg = render_plot(name, result.data)
-    return Response(svg, media_type="image/svg+xml", headers={"ETag": f'"{result.etag}-{name}"'})
+    return Response(svg, media_type="image/svg+xml", headers={"ETag": f'"{result.etag}-{name}-2"'})
 
 
 def render_plot(name: str, data: dict[str, Any]) -> str:
     """The SVG for one plot of a result's data."""
     if name == "degree_distribution":
-        dist = data["degree_distribution"]["total"]
-        edges, density = dist["edges"], dist["density"]
-        # Bin centres on the log scale (geometric mean of the bin edges).
-        centres = [(a * max(b - 1, a)) ** 0.5 for a, b in zip(edges[:-1], edges[1:])]
-        pts = [(c, d) for c, d in zip(centres, density) if d > 0]
-        fit = data.get("power_law") or {}
-        return plots.degree_distribution_svg([p[0] for p in pts], [p[1] for p in pts], fit=fit)
+        return _degrees(data)
     if name == "reach_curve":
-        curve = [float(v) for v in data["reach_curve"]]
-        baselines = {
-            k: [float(v) for v in b["reach_curve"]]
-            for k, b in (data.get("baselines") or {}).items()
-            if isinstance(b, dict) and b.get("reach_curve")
-        }
-        return plots.reach_curve_svg(curve, baselines)
+        return _reach_curve(data)
+    if name == "segment_reach":
+        return _segments(data)
     if name == "adoption":
-        sets = data.get("forecasts") or []
-        if not sets:
-            raise InvalidParams("the forecast has no seed sets to plot", field="name")
-        series = {}
-        for r in sets:
-            br = r["by_round"]
-            series[r["name"]] = (
-                [x["round"] for x in br],
-                [x["cumulative_mean"] for x in br],
-                [x["ci_low"] for x in br],
-                [x["ci_high"] for x in br],
-            )
-        first = next(iter(series))
-        r0, m0, lo0, hi0 = series.pop(first)
-        return plots.adoption_svg(r0, m0, lo0, hi0, label=first, others=series)
-    raise InvalidParams(f"unknown plot {name!r}", field="name")
+        return _adoption(data)
+    if name == "outcomes":
+        return _outcomes(data)
+    raise InvalidParams(f"unknown plot {name!r}; plots: {', '.join(PLOTS)}", field="name")
+
+
+def _degrees(data: dict[str, Any]) -> str:
+    dist = data["degree_distribution"]["total"]
+    edges, density = dist["edges"], dist["density"]
+    # Bin centres on the log scale (geometric mean of the bin's smallest and largest degree).
+    centres = [(a * max(b - 1, a)) ** 0.5 for a, b in zip(edges[:-1], edges[1:])]
+    pts = [(c, d) for c, d in zip(centres, density) if d > 0]
+    fit = data.get("power_law") or {}
+    alpha, xmin = fit.get("alpha"), fit.get("x_min")
+    fx: list[float] = []
+    fy: list[float] = []
+    if alpha and xmin and fit.get("n") and pts:
+        from scipy.special import zeta
+
+        # The fitted law as a probability per degree value, like the histogram's density:
+        # share of people in the tail times x^-alpha / zeta(alpha, x_min) (Clauset, Shalizi,
+        # Newman 2009, eq. 2.4 for discrete data; continuous approximation when not discrete).
+        tail = float(fit.get("n_tail") or 0) / float(fit["n"])
+        top = max(float(edges[-1]) - 1, xmin)
+        steps = 40
+        fx = [xmin * (top / xmin) ** (i / steps) for i in range(steps + 1)]
+        if fit.get("discrete", True):
+            norm = float(zeta(alpha, xmin))
+            fy = [tail * x ** -alpha / norm for x in fx]
+        else:
+            fy = [tail * (alpha - 1) / xmin * (x / xmin) ** -alpha for x in fx]
+    return plots.degree_distribution_svg([p[0] for p in pts], [p[1] for p in pts], fit_x=fx or None,
+                                         fit_y=fy or None, alpha=alpha, x_min=xmin)
+
+
+def _rr_count(source: str | None) -> int | None:
+    m = re.search(r"([\d,]+) fresh RR sets", source or "")
+    return int(m.group(1).replace(",", "")) if m else None
+
+
+def _reach_curve(data: dict[str, Any]) -> str:
+    curve = [float(v) for v in data["reach_curve"]]
+    people = int(data.get("nodes") or 0) or None
+    unit = str(data.get("reach_unit") or "people")
+    low = high = None
+    sets = _rr_count(data.get("reach_curve_source"))
+    if sets and people and unit == "people":
+        # The curve is n times the share f of R random RR sets covered, a binomial share:
+        # its standard error is n * sqrt(f (1 - f) / R).
+        se = [people * math.sqrt(max(f, 0.0) * max(1 - f, 0.0) / sets) for f in (c / people for c in curve)]
+        low = [max(c - Z95 * s, 0.0) for c, s in zip(curve, se)]
+        high = [c + Z95 * s for c, s in zip(curve, se)]
+    others = {
+        plots.nice_name(k): [float(v) for v in b["reach_curve"]]
+        for k, b in (data.get("baselines") or {}).items()
+        if isinstance(b, dict) and b.get("reach_curve")
+    }
+    exp = data.get("expected_reach") or {}
+    check = (float(exp["mean"]), float(exp["ci_low"]), float(exp["ci_high"])) if unit == "people" and exp else None
+    seeds = data.get("seeds") or []
+    return plots.reach_curve_svg(curve, low=low, high=high, others=others, budget=len(seeds) or None,
+                                 people=people, unit=unit, check=check)
+
+
+def _forecast_sets(data: dict[str, Any]) -> list[dict[str, Any]]:
+    sets = data.get("forecasts") or []
+    if not sets:
+        raise InvalidParams("the forecast has no seed sets to plot", field="name")
+    return list(sets)
+
+
+def _set_name(f: dict[str, Any]) -> str:
+    return plots.nice_name(str(f["name"]), f.get("seed_count"))
+
+
+def _segments(data: dict[str, Any]) -> str:
+    if "forecasts" in data:
+        sets = {_set_name(f): f.get("segment_reach") or [] for f in _forecast_sets(data)}
+    else:
+        sets = {"optimised shortlist": data.get("segment_reach") or []}
+    order = [s["segment"] for s in next(iter(sets.values()))]
+    if not order:
+        raise InvalidParams("the result has no segments to plot; upload a segment column with the people",
+                            field="name")
+    values = {name: [next((float(s["expected"]) for s in rows if s["segment"] == seg), 0.0) for seg in order]
+              for name, rows in sets.items()}
+    return plots.segment_reach_svg(order, values)
+
+
+def _adoption(data: dict[str, Any]) -> str:
+    conf = float(data.get("confidence") or 0.95)
+    z = Z95 if abs(conf - 0.95) < 1e-9 else _z(conf)
+    series = []
+    for f in _forecast_sets(data):
+        br = f["by_round"]
+        n = max(int(f.get("simulations") or 1), 1)
+        mean = [float(x["cumulative_mean"]) for x in br]
+        lo = [float(x["ci_low"]) for x in br]
+        hi = [float(x["ci_high"]) for x in br]
+        # The interval's half-width is z * sd / sqrt(runs): the runs' standard deviation per round.
+        sd = [(h - m) * math.sqrt(n) / z for h, m in zip(hi, mean)]
+        floor = float(f.get("seed_count") or 0)
+        p = f.get("percentiles") or {}
+        series.append(plots.AdoptionSeries(
+            name=_set_name(f), rounds=[int(x["round"]) for x in br], mean=mean, ci_low=lo, ci_high=hi,
+            spread_low=[max(m - Z90 * s, floor) for m, s in zip(mean, sd)],
+            spread_high=[m + Z90 * s for m, s in zip(mean, sd)],
+            final_p5=p.get("p5"), final_p95=p.get("p95"),
+        ))
+    return plots.adoption_svg(series, confidence=conf)
+
+
+def _z(confidence: float) -> float:
+    from statistics import NormalDist
+
+    return NormalDist().inv_cdf(0.5 + confidence / 2.0)
+
+
+def _outcomes(data: dict[str, Any]) -> str:
+    sets = [f for f in _forecast_sets(data) if f.get("outcome_histogram")]
+    if not sets:
+        raise InvalidParams("this forecast was stored without its outcome histogram; run it again to plot it",
+                            field="name")
+    lo = min(f["outcome_histogram"]["edges"][0] for f in sets)
+    hi = max(f["outcome_histogram"]["edges"][-1] for f in sets)
+    runs = max(sum(int(c) for c in f["outcome_histogram"]["counts"]) for f in sets)
+    bins = max(8, min(30, int(math.sqrt(runs))))  # square-root rule (common practice), at most 30 bars
+    width = max(1.0, float(math.ceil((hi - lo) / bins)))
+    edges = [lo + width * i for i in range(int(math.ceil((hi - lo) / width)) + 1)]
+    counts: dict[str, list[int]] = {}
+    marks: dict[str, dict[str, float]] = {}
+    for f in sets:
+        h = f["outcome_histogram"]
+        # Re-bin onto common edges by each bin's left edge (the stored bins are whole people wide).
+        cs = [0] * (len(edges) - 1)
+        for left, c in zip(h["edges"][:-1], h["counts"]):
+            cs[min(int((left - lo) // width), len(cs) - 1)] += int(c)
+        name = _set_name(f)
+        counts[name] = cs
+        p = f.get("percentiles") or {}
+        marks[name] = {k: float(v) for k, v in (("5th percentile", p.get("p5")),
+                                               ("average", f["expected_reach"]["mean"]),
+                                               ("95th percentile", p.get("p95"))) if v is not None}
+    return plots.outcomes_svg(edges, counts, marks=marks)

@@ -32,7 +32,7 @@ from service.jobs.errors import ResultNotReady
 from service.jobs.tasks import link_evaluation as link_evaluation_task
 from service.jobs.tasks import recommendations as recommendations_task
 from service.jobs.tasks import referral_asks as referral_asks_task
-from service.jobs.tasks.referral_asks import contact_reason
+from service.jobs.tasks.referral_asks import contact_reason, exposure_explained
 from service.loader import LoadedVersion, load_version
 from service.rankings import safe_cell
 from storage.errors import NotFound
@@ -40,11 +40,13 @@ from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
+from . import result_csv
 from .deps import SettingsDep, TenantDep
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
 from .jobs import etag_matches
 from .node_ids import node_route
+from .rendering import round_document, round_cell
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.recommendations import (
     METHOD_ALIASES,
@@ -69,6 +71,8 @@ CSV_EXPORTS: dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]] = {
     "recommendations": recommendations_task.csv_table,
     "link_evaluation": link_evaluation_task.csv_table,
     "referral_asks": referral_asks_task.csv_table,
+    "shortlist": result_csv.shortlist_table,
+    "forecast": result_csv.forecast_table,
 }
 
 
@@ -167,7 +171,7 @@ async def list_recommendations(
             "contactable": contactable,
             "items": _recommendation_items(loaded, recs),
         }
-        return JSONResponse(body, headers=headers)
+        return JSONResponse(round_document(body), headers=headers)
 
     return await _compute(work)
 
@@ -223,17 +227,20 @@ def _validation(exc: ValidationError, prefix: tuple[str, ...]) -> RequestValidat
 
 
 def _contact_items(
-    cs: list[NextContact] | tuple[NextContact, ...], ids: list[str], model: str, follow_on: str | None,
+    cs: list[NextContact] | tuple[NextContact, ...], v: LoadedVersion, model: str, follow_on: str | None,
     blend: float,
 ) -> list[dict[str, Any]]:
+    ids, labels = v.ids, v.labels
     return [
         {
             "node_id": ids[c.node],
+            "label": labels[c.node] or None,
             "exposure": c.exposure,
             "score": c.score,
             "adopter_contacts": c.adopter_contacts,
             "ask": None if c.ask < 0 else {
-                "node_id": ids[c.ask], "tie_strength": c.ask_tie, "probability": c.ask_probability,
+                "node_id": ids[c.ask], "label": labels[c.ask] or None, "tie_strength": c.ask_tie,
+                "probability": c.ask_probability,
             },
             "reason": contact_reason(c, ids, model, follow_on, blend),
         }
@@ -262,11 +269,13 @@ NEXT_CONTACTS_BODY = {
     "/v1/graphs/{graph_id}/next-contacts",
     summary="Which non-adopters to contact next, and which adopter should ask each",
     description=(
-        "Non-adopters ranked by exposure, their chance of being reached in the next round from the "
-        "adopters: Independent Cascade 1 - prod(1 - p_uv), Linear Threshold the adopters' incoming "
-        "weight (Kempe, Kleinberg and Tardos 2003), optionally blended with a follow-on measure. "
-        "Each names the adopter best placed to ask (strongest tie). Only people with contact "
-        "consent are listed or asked. `group_by=adopter` answers per adopter whom to ask them to "
+        "Non-adopters with contact consent, those with an adopter who may ask them first, then by "
+        "exposure, their chance of being reached in the next round from the adopters: Independent "
+        "Cascade 1 - prod(1 - p_uv), Linear Threshold the adopters' incoming weight (Kempe, Kleinberg "
+        "and Tardos 2003), optionally blended with a follow-on measure; equal exposures (common under "
+        "weighted cascade) by the strength of the asking tie. Each names the adopter best placed to "
+        "ask (strongest tie); `exposure_explained` says in words what exposure means under the chosen "
+        "model. Only people with contact consent are listed or asked. `group_by=adopter` answers per adopter whom to ask them to "
         "refer, each target assigned to one adopter only. Unknown adopter ids are a 422 listing "
         "them (or, with strict=false, skipped and counted)."
     ),
@@ -369,24 +378,26 @@ def _next_contacts(maker: sessionmaker[Session], tenant: str, graph_id: str, req
         "adopters": int(adopters.shape[0]),
         "unknown_adopters": {"count": len(unknown), "examples": unknown[:20]} if unknown else None,
         "group_by": req.group_by,
+        "exposure_explained": exposure_explained(req.model, pr.scheme),
     }
-    ids = loaded.ids
+    ids, labels = loaded.ids, loaded.labels
     if req.group_by == "adopter":
         groups = referral_asks(dg, adopters, index=index, eligible=ok, askers=ok, follow_on=values,
                                blend=blend, per_adopter=req.per_adopter, limit=req.limit)
         body["groups"] = [
             {
                 "adopter": ids[g.adopter],
+                "adopter_label": labels[g.adopter] or None,
                 "expected_referrals": g.expected_referrals,
-                "targets": _contact_items(g.targets, ids, req.model, req.follow_on, blend),
+                "targets": _contact_items(g.targets, loaded, req.model, req.follow_on, blend),
             }
             for g in groups
         ]
     else:
         cs = next_contacts(dg, adopters, index=index, eligible=ok, askers=ok, follow_on=values,
                            blend=blend, limit=req.limit)
-        body["items"] = _contact_items(cs, ids, req.model, req.follow_on, blend)
-    return JSONResponse(body)
+        body["items"] = _contact_items(cs, loaded, req.model, req.follow_on, blend)
+    return JSONResponse(round_document(body))
 
 
 # -- CSV exports of batch results ----------------------------------------------------
@@ -410,7 +421,7 @@ def _csv_stream(header: list[str], rows: Iterator[list[Any]], batch: int = 2000)
     writer = csv.writer(buf, lineterminator="\r\n")
     writer.writerow(header)
     for i, row in enumerate(rows, 1):
-        writer.writerow([csv_cell(v) for v in row])
+        writer.writerow([csv_cell(round_cell(v, col)) for v, col in zip(row, header)])
         if i % batch == 0:
             yield buf.getvalue()
             buf.seek(0)
@@ -420,7 +431,8 @@ def _csv_stream(header: list[str], rows: Iterator[list[Any]], batch: int = 2000)
 
 @router.get(
     "/v1/jobs/{job_id}/result.csv",
-    summary="Export a succeeded job's result as CSV (recommendations, referral_asks, link_evaluation)",
+    summary="Export a succeeded job's result as CSV (shortlist, forecast, recommendations, referral_asks, "
+    "link_evaluation)",
     response_class=StreamingResponse,
     responses={
         200: {"content": {"text/csv": {}}, "description": "RFC 4180 CSV with a header row."},

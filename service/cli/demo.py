@@ -287,6 +287,9 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
     plot = d.save_plot(f"/v1/jobs/{sl['_job_id']}/plots/reach_curve.svg", "reach_curve.svg")
     if plot:
         d.md.append(f"\n![reach versus budget]({plot})\n")
+    plot = d.save_plot(f"/v1/jobs/{sl['_job_id']}/plots/segment_reach.svg", "segment_reach.svg")
+    if plot:
+        d.md.append(f"\n![reach per store]({plot})\n")
 
     cost = d.run_job(gid, "shortlist", {"cost_budget": 60.0, "method": "imm", "epsilon": 0.2, **common},
                      "shortlist (cost 60)")
@@ -313,6 +316,9 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
     plot = d.save_plot(f"/v1/jobs/{fc['_job_id']}/plots/adoption.svg", "adoption.svg")
     if plot:
         d.md.append(f"\n![adoption by round]({plot})\n")
+    plot = d.save_plot(f"/v1/jobs/{fc['_job_id']}/plots/outcomes.svg", "outcomes.svg")
+    if plot:
+        d.md.append(f"\n![campaign outcomes]({plot})\n")
 
     d.section("First wave: next contacts and referral asks (POST next-contacts)")
     rng = np.random.default_rng(3)
@@ -323,14 +329,32 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
     wave = np.union1d(seed_idx, cand[rng.random(cand.size) < 0.15])
     adopters = [ids[i] for i in wave.tolist()]
     d.say(f"Simulated first wave: {len(adopters)} members adopted (the {len(seeds)} ambassadors and some of their contacts).")
-    nc = d.check(d.http.post(f"/v1/graphs/{gid}/next-contacts", json={"adopters": adopters, "limit": 10, **common}))
-    d.say("Next contacts: non-adopters most exposed to adopters, and the adopter best placed to ask them.")
-    d.table(["member", "exposure", "ask", "why"],
-            [[it["node_id"], it["exposure"], (it.get("ask") or {}).get("node_id"), it.get("reason", "")]
+    # Asking is personal, so the first wave is ranked on the ties' interaction counts: a tie with w
+    # interactions carries the ask with chance 1 - (1 - 0.05)^w. (Weighted cascade, used for the
+    # shortlist, gives everyone whose only tie is an adopter a chance of 1: a list of equal chances.)
+    asking = {"model": "ic", "probability": {"scheme": "per_interaction", "q": 0.05}, "random_seed": 11}
+    nc = d.check(d.http.post(f"/v1/graphs/{gid}/next-contacts", json={"adopters": adopters, "limit": 10, **asking}))
+    d.say("Next contacts: who to contact next, and which adopter should ask them. Asking is personal, so\n"
+          "here a tie with w interactions carries the ask with chance 1 - (1 - 0.05)^w: household members\n"
+          "and volunteers who share many shifts come before people with one referral tie. Members with an\n"
+          "adopter who may ask them come first.")
+    d.say(_wrap(nc.get("exposure_explained", "")))
+    d.table(["member", "chance", "adopters in contact", "who should ask", "tie strength"],
+            [[it["node_id"], f"{it['exposure']:.2f}", it["adopter_contacts"],
+              (it.get("ask") or {}).get("node_id") or "nobody may ask: contact directly",
+              f"{(it.get('ask') or {}).get('tie_strength', 0):.2f}" if it.get("ask") else "-"]
              for it in nc.get("items", [])])
     d.say("Referral asks: each adopter's list of people to invite; every person is assigned to one adopter.")
+    d.say("Expected referrals: how many of an adopter's listed people the model expects to join if each is asked once.")
     ra = d.check(d.http.post(f"/v1/graphs/{gid}/next-contacts",
-                             json={"adopters": adopters, "group_by": "adopter", "per_adopter": 3, "limit": 5, **common}))
+                             json={"adopters": adopters, "group_by": "adopter", "per_adopter": 3, "limit": 5, **asking}))
     d.table(["adopter", "ask them to refer", "expected referrals"],
-            [[it["adopter"], ", ".join(t["node_id"] if isinstance(t, dict) else str(t) for t in it.get("targets", [])),
-              it.get("expected_referrals")] for it in ra.get("groups", [])[:5]])
+            [[it["adopter"],
+              ", ".join(f"{t['node_id']} ({t['exposure']:.2f})" for t in it.get("targets", [])),
+              f"{it.get('expected_referrals', 0):.1f}"] for it in ra.get("groups", [])[:5]])
+
+
+def _wrap(text: str, width: int = 100) -> str:
+    import textwrap
+
+    return "\n".join(textwrap.wrap(text, width))

@@ -180,3 +180,46 @@ def test_profile_empty_and_cancel() -> None:
 
     with pytest.raises(Cancelled):
         P.graph_profile(from_nx(nx.karate_club_graph()), progress=cancel)
+
+
+def _readings_agree(r: dict[str, str]) -> None:
+    """The degree and assortativity readings never contradict each other."""
+    if "evenly" in r["degrees"]:
+        assert "hub" not in r["assortativity"], r
+    if "hub-and-spoke" in r["assortativity"]:
+        assert "evenly" not in r["degrees"], r
+
+
+def test_star_heavy_graph_reads_heavy_tailed_and_hub_and_spoke() -> None:
+    # Ten stars of 30 leaves whose centres form a ring: maximum degree 32, median 1
+    # (counted in this test); leaves link only to centres, so mixing is disassortative.
+    G = nx.Graph()
+    for c in range(10):
+        G.add_edges_from((f"c{c}", f"l{c}_{i}") for i in range(30))
+        G.add_edge(f"c{c}", f"c{(c + 1) % 10}")
+    G = nx.convert_node_labels_to_integers(G)
+    p = P.graph_profile(from_nx(G))
+    r = p["readings"]
+    degrees = sorted(d for _, d in G.degree())
+    assert p["summary"]["degree_max"] == degrees[-1] == 32
+    assert p["summary"]["degree_median"] == float(np.median(degrees)) == 1.0
+    assert r["degrees"].startswith("Heavy-tailed") and "32" in r["degrees"]
+    assert p["assortativity"] == pytest.approx(nx.degree_assortativity_coefficient(G))  # NetworkX, here
+    assert "hub-and-spoke" in r["assortativity"]
+    _readings_agree(r)
+
+
+def test_regular_graph_reads_even_without_hubs() -> None:
+    G = nx.random_regular_graph(4, 200, seed=3)  # every degree is 4
+    p = P.graph_profile(from_nx(G))
+    r = p["readings"]
+    assert "evenly" in r["degrees"] and "best connected has 4" in r["degrees"]
+    assert "hub" not in r["assortativity"]
+    _readings_agree(r)
+
+
+@pytest.mark.parametrize("G", [nx.karate_club_graph(), nx.barabasi_albert_graph(500, 2, seed=4),
+                               nx.watts_strogatz_graph(300, 6, 0.1, seed=2)],
+                         ids=["karate", "preferential", "small-world"])
+def test_degree_and_mixing_readings_agree(G) -> None:  # type: ignore[no-untyped-def]
+    _readings_agree(P.graph_profile(from_nx(G))["readings"])

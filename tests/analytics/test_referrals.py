@@ -214,3 +214,28 @@ def test_bad_input() -> None:
 def test_all_exported() -> None:
     for name in referrals_module.__all__:
         assert hasattr(referrals_module, name)
+
+
+def test_weighted_cascade_ties_ranked_by_who_can_act() -> None:
+    # Undirected star-of-leaves: adopters 0 and 1; leaves 2..5 hang on 0 or 1 only, so under
+    # weighted cascade (p_uv = 1/deg(v), closed form) each has exposure 1. Leaf 6 has two ties,
+    # both to adopters: exposure 1 - (1 - 1/2)^2 = 0.75. Interaction counts differ, and adopter 1
+    # may not be asked (no consent), so leaves 4 and 5 have nobody to ask them.
+    src = np.array([0, 0, 1, 1, 0, 1, 0], np.int32)
+    dst = np.array([2, 3, 4, 5, 6, 6, 1], np.int32)
+    w = np.array([1.0, 9.0, 20.0, 2.0, 1.0, 1.0, 1.0])
+    g = GraphArrays(7, False, src, dst, w)
+    dg = diffusion_graph(g, scheme="weighted_cascade")
+    askers = np.array([True, False, True, True, True, True, True])
+    got = next_contacts(dg, [0, 1], index=neighbour_index(g), askers=askers, limit=None)
+    by = {c.node: c for c in got}
+    assert all(by[v].exposure == pytest.approx(1.0) for v in (2, 3, 4, 5))
+    assert by[6].exposure == pytest.approx(0.75)
+    order = [c.node for c in got]
+    # Askable first (2, 3 and 6, whose asker is 0); among equal exposure 1, the stronger tie first
+    # (9 interactions before 1); the people nobody may ask (4, 5) last.
+    assert order[:3] == [3, 2, 6] and set(order[3:]) == {4, 5}
+    assert all(c.ask < 0 for c in got[3:]) and all(c.ask == 0 for c in got[:3])
+    # Referral asks: adopter 0's list follows the same order.
+    (grp,) = referral_asks(dg, [0, 1], index=neighbour_index(g), askers=askers)
+    assert grp.adopter == 0 and [t.node for t in grp.targets] == [3, 2, 6]

@@ -114,10 +114,10 @@ async def test_diamond_forecast_matches_enumeration(client) -> None:  # type: ig
     # recomputed here by exact enumeration of all 2^4 live-edge worlds.
     assert sigma == pytest.approx(2.4375)
     er = res["expected_reach"]
-    assert abs(er["mean"] - sigma) <= 4 * er["stderr"]
-    assert er["ci_low"] < er["mean"] < er["ci_high"] and er["confidence"] == 0.95
+    assert abs(er["mean"] - sigma) <= 4 * er["stderr"] + 0.05  # + 0.05: the answer rounds people to one decimal
+    assert er["ci_low"] <= er["mean"] <= er["ci_high"] and er["confidence"] == 0.95  # equal once rounded
     # Source: closed form, normal interval of the mean: half-width = z_0.975 * stderr.
-    assert er["ci_high"] - er["mean"] == pytest.approx(1.959964 * er["stderr"], rel=1e-5)
+    assert er["ci_high"] - er["mean"] == pytest.approx(1.959964 * er["stderr"], abs=0.1)  # one decimal
     assert res["simulations"] == 20_000 and res["stopped_because"] == "simulation_cap"
     # Source: exact enumeration: P(reach = 1) = 0.25 and P(reach = 4) = 0.1875 (> 5%), so p5 = 1, p95 = 4.
     assert law[1] == pytest.approx(0.25) and law[4] == pytest.approx(0.1875)
@@ -127,7 +127,7 @@ async def test_diamond_forecast_matches_enumeration(client) -> None:  # type: ig
     rounds = res["by_round"]
     assert [b["round"] for b in rounds] == [0, 1, 2] and rounds[0]["cumulative_mean"] == 1.0
     # Source: closed form: round 1 activates each of a, b with probability p, so 2p = 1 new.
-    assert abs(rounds[1]["new_mean"] - 1.0) <= 4 * math.sqrt(0.5 / 20_000)
+    assert abs(rounds[1]["new_mean"] - 1.0) <= 4 * math.sqrt(0.5 / 20_000) + 0.05  # one decimal
     assert rounds[-1]["cumulative_mean"] == pytest.approx(er["mean"])
     assert rounds[-1]["ci_low"] == pytest.approx(er["ci_low"])
     top = {t["node_id"]: t for t in res["top_nodes"]}
@@ -170,7 +170,7 @@ async def test_seed_sets_comparison(client) -> None:  # type: ignore[no-untyped-
     assert set(pairs) == {("source", "sink"), ("source", "middle"), ("sink", "middle")}
     ss = pairs[("source", "sink")]
     # Source: exact enumeration: 2.4375 - 1 = 1.4375; independent streams, so se^2 adds.
-    assert abs(ss["difference"] - 1.4375) <= 4 * ss["stderr"]
+    assert abs(ss["difference"] - 1.4375) <= 4 * ss["stderr"] + 0.05  # + 0.05: the answer rounds people to one decimal
     assert ss["stderr"] == pytest.approx(math.hypot(by["source"]["expected_reach"]["stderr"], 0.0))
     assert ss["ci_low"] > 0 and ss["clearly_different"] is True
     assert pairs[("sink", "middle")]["difference"] < 0
@@ -258,9 +258,11 @@ async def test_target_segment_and_value_weights(client) -> None:  # type: ignore
     tr = res["target_reach"]
     assert res["target"] == {"segment": "vip", "weights": None, "members": 1}
     # Source: exact enumeration: the target reach of segment {t} is P(t reached) = 0.4375.
-    assert reached["t"] == pytest.approx(0.4375) and abs(tr["mean"] - reached["t"]) <= 4 * tr["stderr"]
+    assert reached["t"] == pytest.approx(0.4375) and abs(tr["mean"] - reached["t"]) <= 4 * tr["stderr"] + 0.05
     seg = {s["segment"]: s["expected"] for s in res["segment_reach"]}
-    assert seg["vip"] == pytest.approx(tr["mean"]) and sum(seg.values()) == pytest.approx(res["expected_reach"]["mean"])
+    # Each figure is rounded to one decimal on the way out.
+    assert seg["vip"] == pytest.approx(tr["mean"], abs=0.05)
+    assert sum(seg.values()) == pytest.approx(res["expected_reach"]["mean"], abs=0.05 * (len(seg) + 1))
     res = (await run_forecast(client, gid, {**params, "weights": "value"}))["result"]
     exact_value = 1 + 2 * reached["a"] + 10 * reached["t"]  # Source: exact enumeration, linearity of expectation
     assert abs(res["target_reach"]["mean"] - exact_value) <= 4 * res["target_reach"]["stderr"]

@@ -79,9 +79,9 @@ async def test_every_method_answers_with_non_neighbours_best_first(client) -> No
         items = (await client.get(path_of(gid, person), params={"method": method, "limit": 5})).json()["items"]
         expected = {v: s for _, v, s in fn(g, [(person, x["node_id"]) for x in items])}
         for x in items:
-            assert x["score"] == pytest.approx(expected[x["node_id"]]), method
+            assert x["score"] == pytest.approx(expected[x["node_id"]], rel=1e-3), method  # answers carry four significant digits
         best = max(s for _, _, s in fn(g, [(person, v) for v in nx.non_neighbors(g, person)]))
-        assert items[0]["score"] == pytest.approx(best), method
+        assert items[0]["score"] == pytest.approx(best, rel=1e-3), method
     cn = (await client.get(path_of(gid, person), params={"method": "common_neighbours"})).json()["items"]
     for x in cn:
         assert x["score"] == len(list(nx.common_neighbors(g, person, x["node_id"])))
@@ -98,9 +98,9 @@ async def test_top_adamic_adar_equals_networkx_argmax(client) -> None:  # type: 
             key=lambda t: -t[0],
         )
         top = ref[0][0]
-        assert items[0]["score"] == pytest.approx(top)
+        assert items[0]["score"] == pytest.approx(top, rel=1e-3)  # answers carry four significant digits
         assert items[0]["node_id"] in {v for s, v in ref if math.isclose(s, top)}
-        assert [x["score"] for x in items] == pytest.approx([s for s, _ in ref[: len(items)]])
+        assert [x["score"] for x in items] == pytest.approx([s for s, _ in ref[: len(items)]], rel=1e-3)
 
 
 async def test_shared_contacts_are_common_neighbours(client) -> None:  # type: ignore[no-untyped-def]
@@ -198,7 +198,7 @@ async def test_next_contacts_exposure_is_the_ic_closed_form(client) -> None:  # 
     lt = {x["node_id"]: x["exposure"] for x in r.json()["items"]}
     for v, e in lt.items():
         # Source: closed form, LT with b_uv = 1 / deg(v) (unit weights): k / deg(v).
-        assert e == pytest.approx(sum(1 for u in g.neighbors(v) if u in adopters) / g.degree(v))
+        assert e == pytest.approx(sum(1 for u in g.neighbors(v) if u in adopters) / g.degree(v), rel=1e-3)
 
 
 async def test_referral_asks_assign_each_target_once(client) -> None:  # type: ignore[no-untyped-def]
@@ -214,7 +214,8 @@ async def test_referral_asks_assign_each_target_once(client) -> None:  # type: i
     asks = {x["node_id"]: x["ask"]["node_id"] for x in flat["items"]}
     for grp in groups:
         assert grp["adopter"] in adopters and 1 <= len(grp["targets"]) <= 3
-        assert grp["expected_referrals"] == pytest.approx(sum(t["exposure"] for t in grp["targets"]))
+        # People to one decimal, exposures to four significant digits.
+        assert grp["expected_referrals"] == pytest.approx(sum(t["exposure"] for t in grp["targets"]), abs=0.06)
         for t in grp["targets"]:
             assert t["ask"]["node_id"] == grp["adopter"] == asks[t["node_id"]]
             assert g.has_edge(grp["adopter"], t["node_id"]) and t["node_id"] not in adopters
@@ -235,7 +236,7 @@ async def test_csv_body_and_options_as_query(client) -> None:  # type: ignore[no
                             headers={"Content-Type": "text/csv"})
     assert got.status_code == 200, got.text
     assert got.json() == want.json() and len(got.json()["items"]) == 7
-    assert got.json()["blend"] == 0.5 and "follow-on pagerank" in got.json()["items"][0]["reason"]
+    assert got.json()["blend"] == 0.5 and "onward reach (pagerank)" in got.json()["items"][0]["reason"]
     renamed = await client.post(f"/v1/graphs/{gid}/next-contacts", content="who\nMr Hi/0\n",
                                 params={"id": "who", "limit": "all"}, headers={"Content-Type": "text/csv"})
     assert renamed.status_code == 200 and len(renamed.json()["items"]) > 7
@@ -279,7 +280,7 @@ async def test_consent_is_honoured_for_targets_and_askers(client) -> None:  # ty
     items = {x["node_id"]: x for x in r.json()["items"]}
     assert set(items) == {"c", "e"}  # d said no, f unknown, and f is not exposed anyway
     assert items["c"]["ask"]["node_id"] == "a" and items["c"]["adopter_contacts"] == 2
-    assert items["e"]["ask"] is None and "none of them may be asked" in items["e"]["reason"]
+    assert items["e"]["ask"] is None and "no adopter in contact may be asked" in items["e"]["reason"]
     r = await client.post(f"/v1/graphs/{gid}/next-contacts", json={"adopters": ["a", "b"], "group_by": "adopter"})
     groups = r.json()["groups"]
     assert [(g["adopter"], [t["node_id"] for t in g["targets"]]) for g in groups] == [("a", ["c"])]

@@ -110,8 +110,8 @@ async def test_imm_shortlist_against_brute_force_with_baselines_and_plot(client)
         every[frozenset(chosen)], every, 1 - 1 / math.e - 0.1
     )  # and the check could fail here
     er = res["expected_reach"]
-    assert abs(er["mean"] - every[frozenset(chosen)]) <= 4 * er["stderr"]
-    assert er["method"] == "forward_monte_carlo" and er["ci_low"] < er["mean"] < er["ci_high"]
+    assert abs(er["mean"] - every[frozenset(chosen)]) <= 4 * er["stderr"] + 0.05  # + 0.05: the answer rounds people to one decimal
+    assert er["method"] == "forward_monte_carlo" and er["ci_low"] <= er["mean"] <= er["ci_high"]
     assert [s["rank"] for s in res["seeds"]] == [1, 2]
     assert all(
         set(s)
@@ -121,21 +121,23 @@ async def test_imm_shortlist_against_brute_force_with_baselines_and_plot(client)
     curve = res["reach_curve"]
     assert len(curve) == 2 and curve[0] <= curve[1] and res["reach_curve_source"]
     g = res["guarantee"]
-    assert g["approximation"] == pytest.approx(1 - 1 / math.e - 0.1) and "1 - 1/e" in g["summary"]
+    assert g["approximation"] == pytest.approx(1 - 1 / math.e - 0.1, rel=1e-3) and "1 - 1/e" in g["summary"]
     assert res["theta"] > 0 and res["samples"] >= res["theta"] and "total" in res["timings"]
     assert set(res["baselines"]) == {"degree_discount", "top_degree", "top_pagerank"}
     for name, b in res["baselines"].items():
         assert len(b["seeds"]) == 2 and len(b["reach_curve"]) == 2, name
         sigma = every[frozenset(ids_to_idx(b["seeds"]))]
-        assert abs(b["expected_reach"]["mean"] - sigma) <= 4 * b["expected_reach"]["stderr"], name
+        assert abs(b["expected_reach"]["mean"] - sigma) <= 4 * b["expected_reach"]["stderr"] + 0.05, name
     gain = res["gain_over_best_baseline"]
     assert gain["baseline"] in res["baselines"] and gain["difference"] == pytest.approx(
-        er["mean"] - res["baselines"][gain["baseline"]]["expected_reach"]["mean"]
-    )
+        er["mean"] - res["baselines"][gain["baseline"]]["expected_reach"]["mean"], abs=0.1
+    )  # each figure rounded to one decimal
     r = await client.get(f"/v1/jobs/{job['id']}/plots/reach_curve.svg")
     assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
     texts = [t.text for t in ET.fromstring(r.text).iter(SVG + "text")]
-    assert "top_degree" in texts and "degree_discount" in texts
+    # Plain words, not method names (see service.plots.nice_name).
+    assert "best-connected people" in texts and "best-connected, skipping close neighbours" in texts
+    assert "top_degree" not in texts
 
 
 async def test_contact_rules_over_http(client) -> None:  # type: ignore[no-untyped-def]

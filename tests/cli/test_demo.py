@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
@@ -40,11 +41,20 @@ def test_demo_report_has_every_section_and_valid_plots(tmp_path: Path) -> None:
     assert "Relationship data is personal data" in proc.stdout
     assert "Guarantee" in report and "interval" in report
     svgs = sorted(p.name for p in out.glob("*.svg"))
-    assert svgs == ["adoption.svg", "degree_distribution.svg", "reach_curve.svg"]
+    assert svgs == ["adoption.svg", "degree_distribution.svg", "outcomes.svg", "reach_curve.svg",
+                    "segment_reach.svg"]
     for p in out.glob("*.svg"):
         root = ET.fromstring(p.read_text())  # valid XML
-        meta = root.find("{http://www.w3.org/2000/svg}metadata")
-        assert meta is not None and json.loads(meta.text)["series"]  # type: ignore[arg-type]
+        desc = root.find("{http://www.w3.org/2000/svg}desc")
+        assert desc is not None and json.loads(desc.text)["series"]  # type: ignore[arg-type]
+        assert "top_degree" not in p.read_text()  # plain words in plots
+    # The first wave's table can be acted on: never "None", and varied chances, not ten rows of 1.00.
+    wave = report[report.index("## First wave"):report.index("## Cautions")]
+    assert "None" not in wave
+    rows = [r for r in wave.splitlines() if re.match(r"\| m\d", r)]
+    chances = [float(r.split("|")[2]) for r in rows[:10]]
+    assert len(rows) >= 10 and len(set(chances)) > 3 and chances == sorted(chances, reverse=True)
+    assert "nobody may ask" not in "".join(rows[:10])  # an adopter who may ask comes first
     assert (out / "upload" / "edges.csv").exists() and (out / "upload" / "members.csv").exists()
 
 

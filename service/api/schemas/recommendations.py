@@ -96,22 +96,30 @@ class NextContactsRequest(BaseModel):
 
 class AskRead(BaseModel):
     node_id: str = Field(description="The adopter best placed to ask: the strongest tie among them.")
+    label: str | None = Field(default=None, description="That adopter's display label, if uploaded.")
     tie_strength: float = Field(description="Strength of that tie, in [0, 1].")
     probability: float = Field(description="Activation probability of the arc from that adopter.")
 
 
 class NextContactRead(BaseModel):
     node_id: str
+    label: str | None = Field(default=None, description="The person's display label, if uploaded.")
     exposure: float = Field(description="Probability of being reached in the next round from the adopters.")
     score: float = Field(description="The ranking value: exposure, or its blend with follow_on.")
     adopter_contacts: int = Field(description="Adopters with a tie to this person.")
-    ask: AskRead | None = Field(description="Null when none of those adopters may be contacted.")
+    ask: AskRead | None = Field(
+        description="Null when none of those adopters may be contacted (such people are listed last)."
+    )
     reason: str = Field(description="The numbers above in plain words.")
 
 
 class ReferralGroupRead(BaseModel):
     adopter: str
-    expected_referrals: float = Field(description="Sum of the targets' exposures.")
+    adopter_label: str | None = Field(default=None, description="The adopter's display label, if uploaded.")
+    expected_referrals: float = Field(
+        description="Sum of the targets' exposures: how many of them the model expects to be won over "
+        "if the adopter asks each once."
+    )
     targets: list[NextContactRead]
 
 
@@ -132,6 +140,7 @@ class NextContactsPage(BaseModel):
         default=None, description="With strict=false: the adopter ids not in the graph."
     )
     group_by: str | None
+    exposure_explained: str = Field(description="What exposure means under the chosen model, in plain words.")
     items: list[NextContactRead] | None = Field(default=None, description="Ranked non-adopters (no group_by).")
     groups: list[ReferralGroupRead] | None = Field(
         default=None, description="Per adopter, whom to ask them to refer (group_by=adopter)."

@@ -30,21 +30,24 @@ def result_document(
     fc: dict[str, ForecastResult],
 ) -> dict[str, Any]:
     """The job's result (the worker adds graph_id, version, params, random_seed)."""
-    attrs, ids = v.attrs, v.ids
+    attrs, ids, labels = v.attrs, v.ids, v.labels
     ev = evaluated[params.method]
     targeted = prep.weights is not None
     seeds = []
     for rank, s in enumerate(ev.seeds, start=1):
         code = int(attrs.segment[s.node])
+        region = int(attrs.region[s.node])
         cost = float(attrs.cost[s.node])
         seeds.append(
             {
                 "rank": rank,
                 "node_id": ids[s.node],
+                "label": labels[s.node] or None,
                 "marginal_gain": s.marginal_gain,
                 "cumulative_reach": s.cumulative_reach,
                 "reason": s.reason,
                 "segment": attrs.segment_labels[code] if code >= 0 else None,
+                "region": attrs.region_labels[region] if region >= 0 else None,
                 "cost": cost if math.isfinite(cost) else None,
                 "required": s.required,
             }
@@ -148,12 +151,20 @@ def _gain(
     }
 
 
+def _at_least(p: Any) -> str:
+    """A probability as a percentage rounded down, so "at least" stays true as printed (never "1")."""
+    if p is None or not math.isfinite(float(p)):
+        return "an unstated level"
+    pct = math.floor(float(p) * 10_000) / 100  # 0.99999 -> 99.99, never rounded up to 100
+    return f"{min(pct, 99.99):.2f}%"
+
+
 def _plain(g: Any, method: str) -> str:
     """The guarantee in plain words."""
     approx, prob, ratio = g.get("approximation"), g.get("probability"), g.get("certified_ratio")
     if method == "opim" and ratio is not None:
         text = (
-            f"Certified on this graph: with probability at least {prob:.4g}, this shortlist's expected reach is "
+            f"Certified on this graph: with probability at least {_at_least(prob)}, this shortlist's expected reach is "
             f"at least {ratio:.1%} of the best possible shortlist under the same rules (at least "
             f"{g.get('certified_lower_bound', float('nan')):,.1f}, while no shortlist exceeds "
             f"{g.get('optimum_upper_bound', float('nan')):,.1f})."
@@ -175,7 +186,7 @@ def _plain(g: Any, method: str) -> str:
             "same rules if the reach estimates were exact; with Monte Carlo estimates, up to their error."
         )
     return (
-        f"With probability at least {prob:.4g}, this shortlist's expected reach is at least {approx:.3f} "
+        f"With probability at least {_at_least(prob)}, this shortlist's expected reach is at least {approx:.3f} "
         f"({g.get('approximation_formula')}) of the best possible shortlist under the same rules "
         "(a worst-case guarantee of the method)."
     )

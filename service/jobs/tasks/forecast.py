@@ -210,7 +210,7 @@ def result_document(params: ForecastParams, v: LoadedVersion, prep: Prepared,
     warnings = list(prep.warnings)
     forecasts = []
     for name, r in results.items():
-        forecasts.append(_one_set(name, r, v.ids, prep.target is not None, len(prep.unique_ids[name])))
+        forecasts.append(_one_set(name, r, v.ids, v.labels, prep.target is not None, len(prep.unique_ids[name])))
         asked = params.precision is not None or params.relative_precision is not None
         if asked and r.stopped_because == "simulation_cap":
             warnings.append({
@@ -243,7 +243,8 @@ def _percentile_doc(p: dict[int, float]) -> dict[str, float]:
     return {f"p{k}": v for k, v in p.items()}
 
 
-def _one_set(name: str, r: ForecastResult, ids: Sequence[str], targeted: bool, seed_count: int) -> dict[str, Any]:
+def _one_set(name: str, r: ForecastResult, ids: Sequence[str], labels: Sequence[str | None], targeted: bool,
+             seed_count: int) -> dict[str, Any]:
     out: dict[str, Any] = {
         "name": name,
         "seed_count": seed_count,
@@ -254,12 +255,14 @@ def _one_set(name: str, r: ForecastResult, ids: Sequence[str], targeted: bool, s
              "ci_low": b.cumulative_ci_low, "ci_high": b.cumulative_ci_high}
             for b in r.by_round
         ],
-        "top_nodes": [{"node_id": ids[t.node], "probability": t.probability, "stderr": t.stderr}
+        "top_nodes": [{"node_id": ids[t.node], "label": labels[t.node] or None, "probability": t.probability,
+                       "stderr": t.stderr}
                       for t in r.top_nodes],
         "segment_reach": sorted(
             ({"segment": s, "expected": e} for s, e in r.segment_reach.items()),
             key=lambda d: -d["expected"],
         ),
+        "outcome_histogram": r.outcome_histogram,
         "simulations": r.simulations,
         "stopped_because": r.stopped_because,
         "half_width": r.half_width,
@@ -383,8 +386,8 @@ KIND = JobKind(
     result_description=(
         "forecasts: one entry per seed set (name, seed_count, expected_reach {mean, stderr, ci_low, "
         "ci_high, confidence}, percentiles {p5, p25, p50, p75, p95}, by_round [{round, new_mean, "
-        "cumulative_mean, ci_low, ci_high}], top_nodes [{node_id, probability, stderr}], segment_reach "
-        "[{segment, expected}], target_reach when asked, simulations, stopped_because "
+        "cumulative_mean, ci_low, ci_high}], top_nodes [{node_id, label, probability, stderr}], "
+        "segment_reach [{segment, expected}], outcome_histogram {edges, counts}, target_reach when asked, simulations, stopped_because "
         "(precision_reached or simulation_cap), half_width); with one set its fields also at the top "
         "level; with several, comparison {measure, ranking, pairs [{seed_set, versus, difference, "
         "stderr, ci_low, ci_high, clearly_different}]}; model, probability, rounds, confidence, target, "

@@ -48,8 +48,9 @@ KIND = JobKind(
     run=run,
     summary="Graph profile: degree distribution and power-law fit, clustering, assortativity, distances",
     result_description=(
-        "The fields of service.analytics.profile.graph_profile: degree distribution with a "
-        "power-law fit (Clauset, Shalizi and Newman 2009), clustering, assortativity, estimated "
-        "average distance and effective diameter."
+        "summary (people, ties, components, reciprocity, degree median and maximum); degree "
+        "distribution with a power-law fit (Clauset, Shalizi and Newman 2009); clustering; "
+        "assortativity; estimated average distance and effective diameter; communities; readings "
+        "(one plain sentence per figure)."
     ),
 )

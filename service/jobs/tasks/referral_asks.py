@@ -1,7 +1,7 @@
 """``referral_asks``: for every adopter of a campaign, whom they should be asked to refer.
 
 The batch form of ``POST /v1/graphs/{id}/next-contacts`` with
-``group_by=adopter`` (``service.analytics.referrals.referral_asks``), for
+``group_by=adopter`` (:func:`service.analytics.referrals.referral_asks`), for
 nightly exports: each exposed non-adopter is assigned to one adopter only,
 its strongest tie, at most ``per_adopter`` per adopter. Contact consent is
 honoured for targets and askers. Rows are stored as arrays and exported by
@@ -26,7 +26,7 @@ if TYPE_CHECKING:
     from service.analytics.referrals import NextContact
     from service.loader import LoadedVersion
 
-__all__ = ["FollowOn", "ReferralAsksParams", "contact_reason", "run", "csv_table", "KIND"]
+__all__ = ["FollowOn", "ReferralAsksParams", "contact_reason", "exposure_explained", "run", "csv_table", "KIND"]
 
 FollowOn = Literal["degree", "in_degree", "out_degree", "strength", "pagerank", "coreness"]
 
@@ -44,19 +44,36 @@ class ReferralAsksParams(BaseModel):
     strict: bool = Field(default=True, description="Unknown adopter ids fail the job (true) or are skipped.")
 
 
+def exposure_explained(model: str, scheme: str) -> str:
+    """What ``exposure`` means under the chosen model and probability scheme, in plain words."""
+    if model == "lt":
+        text = ("Exposure is the share of this person's influence weight that comes from people who "
+                "have adopted; under the Linear Threshold model it is the chance that their threshold "
+                "is met in the next round.")
+    else:
+        text = ("Exposure is the model's chance that this person is won over in the next round if every "
+                "adopter in contact with them asks once (Independent Cascade: one minus the chance that "
+                "every such ask fails).")
+    if scheme == "weighted_cascade":
+        text += (" Under weighted cascade a tie into someone with d ties carries a chance of 1/d, so a "
+                 "person whose only tie is an adopter has exposure 1; among equal exposures the list puts "
+                 "the strongest tie to an adopter who may ask first.")
+    return text + " People with an adopter who may ask them are listed before those without."
+
+
 def contact_reason(c: NextContact, ids: list[str], model: str, follow_on: str | None, blend: float) -> str:
     """The numbers of one next contact in plain words."""
     who = f"{c.adopter_contacts} adopter{'s' if c.adopter_contacts != 1 else ''} in contact"
-    chance = "reached next round" if model == "ic" else "threshold met next round"
+    chance = "won over next round" if model == "ic" else "over their threshold next round"
     text = f"{who} (chance {c.exposure:.2f} of being {chance})"
     if c.ask >= 0:
-        text += f"; strongest tie {ids[c.ask]} ({c.ask_tie:.2f})"
+        text += f"; ask {ids[c.ask]}, their strongest tie (strength {c.ask_tie:.2f})"
     else:
-        text += "; none of them may be asked (no contact consent)"
+        text += "; no adopter in contact may be asked (no contact consent): contact them directly"
     if follow_on is not None and blend > 0:
         # score = (1 - blend) exposure + blend share, share = follow-on / its maximum over the exposed
         share = (c.score - (1.0 - blend) * c.exposure) / blend
-        text += f"; follow-on {follow_on} at {max(0.0, share):.2f} of the highest among the exposed"
+        text += f"; onward reach ({follow_on}) at {max(0.0, share):.2f} of the highest among the exposed"
     return text
 
 
@@ -100,13 +117,18 @@ def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
             "expected_referrals": float(sum(g.expected_referrals for g in groups)),
             "model": params.model,
             "blend": blend,
+            "exposure_explained": exposure_explained(params.model, pr.scheme),
+            "expected_referrals_explained": (
+                "The sum of the listed targets' exposures: the number of them the model expects to be "
+                "won over if every adopter asks each of their targets once."
+            ),
             "columns": HEADER,
         },
         arrays=arrays,
     )
 
 
-HEADER = ["adopter_id", "rank", "target_id", "exposure", "score", "tie_strength", "probability",
+HEADER = ["adopter_id", "adopter_label", "rank", "target_id", "target_label", "exposure", "score", "tie_strength", "probability",
           "adopter_contacts", "reason"]
 
 
@@ -116,7 +138,7 @@ def csv_table(
     """One row per (adopter, target), adopters by expected referrals, targets best first."""
     from service.analytics.referrals import NextContact
 
-    ids = version.ids
+    ids, labels = version.ids, version.labels
     params = data.get("params") or {}
     cols = {k: a.tolist() for k, a in arrays.items()}
 
@@ -125,7 +147,8 @@ def csv_table(
             c = NextContact(cols["target"][i], cols["exposure"][i], cols["score"][i], cols["adopter"][i],
                             cols["tie_strength"][i], cols["probability"][i], cols["adopter_contacts"][i])
             reason = contact_reason(c, ids, data["model"], params.get("follow_on"), float(data["blend"]))
-            yield [ids[c.ask], cols["rank"][i], ids[c.node], c.exposure, c.score, c.ask_tie,
+            yield [ids[c.ask], labels[c.ask] or None, cols["rank"][i], ids[c.node], labels[c.node] or None,
+                   c.exposure, c.score, c.ask_tie,
                    c.ask_probability, c.adopter_contacts, reason]
 
     return HEADER, rows()
@@ -137,8 +160,9 @@ KIND = JobKind(
     run=run,
     summary="For every adopter, whom to ask them to refer (each target assigned to one adopter)",
     result_description=(
-        "Counts (adopters, unknown_adopters, askers, targets, expected_referrals) and the columns of "
-        "the CSV export GET /v1/jobs/{job_id}/result.csv: adopter_id, rank, target_id, exposure, "
-        "score, tie_strength, probability, adopter_contacts, reason. Rows are stored as arrays."
+        "Counts (adopters, unknown_adopters, askers, targets, expected_referrals), exposure_explained "
+        "and expected_referrals_explained (plain sentences), and the columns of the CSV export "
+        "GET /v1/jobs/{job_id}/result.csv: adopter_id, adopter_label, rank, target_id, target_label, "
+        "exposure, score, tie_strength, probability, adopter_contacts, reason."
     ),
 )

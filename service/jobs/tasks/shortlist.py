@@ -498,7 +498,8 @@ KIND = JobKind(
     precheck=precheck,
     summary="Seed shortlist under contact rules: whom to contact first, with its guarantee and baselines",
     result_description=(
-        "method; seeds [{rank, node_id, marginal_gain, cumulative_reach, reason, segment, cost, required}]; "
+        "method; seeds [{rank, node_id, label, marginal_gain, cumulative_reach, reason, segment, region, cost, "
+        "required}]; "
         "reach_curve (k = 1..budget, on fresh RR sets shared with the baselines) and reach_curve_source; "
         "selection_reach_curve (the method's own estimate); expected_reach and, with a target, target_reach "
         "{mean, stderr, ci_low, ci_high, confidence, simulations, method} by forward Monte Carlo independent of "
