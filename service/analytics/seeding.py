@@ -413,10 +413,13 @@ def evaluate_shortlist(
     coll = RRCollection(sampler, K.stream_key(random_seed, TAG_EVAL + 16))
     coll.extend_to(int(samples), progress=progress, message="sampling RR sets to evaluate")
     scale = coll.scale()
-    gains = prefix_gains(coll, nodes).astype(np.float64) * scale
+    hits = prefix_gains(coll, nodes)
+    gains = hits.astype(np.float64) * scale
     curve = np.cumsum(gains)
-    share = curve[-1] / sampler.total_weight if len(curve) else 0.0
-    se = sampler.total_weight * math.sqrt(share * (1 - share) / coll.count)
+    # The share of sets hit, from the integer count: the float sum of the scaled gains
+    # can exceed the total by a rounding error when every set is hit (complete coverage).
+    share = min(int(hits.sum()) / coll.count, 1.0)
+    se = sampler.total_weight * math.sqrt(share * (1.0 - share) / coll.count)
     seeds = tuple(SeedChoice(s.node, float(g), float(c), s.reason, s.required)
                   for s, g, c in zip(shortlist.seeds, gains, curve))
     return Shortlist(

@@ -283,6 +283,27 @@ def test_forecast_and_curves_match_exact_spreads() -> None:
     assert all(s["reason"] for s in seeds) and res["theta"] > 0 and res["guarantee"]["summary"]
 
 
+@pytest.mark.parametrize("method", ["imm", "opim", "degree_discount", "top_degree", "celf"])
+def test_a_shortlist_that_reaches_everyone(method: str) -> None:
+    # Complete coverage: every RR set is hit. The standard error of an estimate
+    # whose share of sets hit is exactly 1 is 0; it used to be the square root of
+    # a rounding error below zero ("math domain error").
+    cycle = [(i, (i + 1) % 5, 0.3) for i in range(5)]
+    res = run(version(5, cycle), budget=5, method=method, forecast_runs=200,
+              evaluation_samples=2000)
+    # Source: closed form, every node is a seed, so every run reaches all 5.
+    assert res["expected_reach"]["mean"] == 5.0 and res["expected_reach"]["stderr"] == 0.0
+    assert res["reach_curve"][-1] == pytest.approx(5.0)
+    # Linear Threshold, normalised weights: three hubs point at everyone else, so with
+    # the hubs as seeds every other node's incoming weight reaches 1 (closed form).
+    hubs = [(u, v, 1.0) for u in range(3) for v in range(3, 7)]
+    lt = run(version(7, hubs), budget=3, method=method, model="lt",
+             probability={"scheme": "normalized"}, forecast_runs=200,
+             evaluation_samples=2000)
+    assert sorted(idx(s["node_id"] for s in lt["seeds"])) == [0, 1, 2]
+    assert lt["expected_reach"]["mean"] == 7.0
+
+
 # ------------------------------------------------------------------ contact rules
 
 
