@@ -207,7 +207,7 @@ def opim_seeds(
                        communities=communities)
     unit = "people" if w is None else "audience value"
     seeds, curve = choices(res.seeds, [g * r2.scale() for g in gains2],
-                           _reasons(seed_facts, n=n, unit=unit), rules.must)
+                           _reasons(seed_facts, n=n, unit=unit), rules.must, seed_facts)
     full = stop == "max rounds" and r1.count >= theta_max
     notes = rule_notes(rules) + ([caveat] if caveat else []) + [f"stopped: {stop}"]
     approx: float | None = ratio
