@@ -10,9 +10,18 @@ for the chosen list and for each baseline list (same rules):
   collection of fresh reverse-reachable sets drawn after every list was fixed
   (``seeding.evaluate_shortlist``: unbiased, and the same sets for every list,
   so the curves compare);
-- ``expected_reach`` is an independent forward Monte Carlo forecast
-  (``forecasts.forecast``, its own random stream, the same stream for every
-  list), with a confidence interval of the mean.
+- every list is simulated on the same campaigns (``analytics.paired``: the
+  same live-edge worlds for every list, common random numbers) until each
+  paired difference with the chosen list is within 1% of its reach or
+  ``forecast_max_runs`` campaigns have run; ``comparisons`` give each
+  difference with its t interval and a verdict in plain words;
+- never worse: if a baseline reaches clearly more than the chosen list (the
+  whole interval of the difference above zero), that baseline's list is
+  returned (``method_used``, ``method_note``, ``replaced``);
+- ``expected_reach`` is a forward Monte Carlo forecast
+  (``forecasts.forecast``) on those same campaigns, so its mean is the
+  comparison's, and a ``forecast`` job of the same seeds with the same
+  ``random_seed`` and ``simulations`` gives the same figure.
 
 Contact rules. Nobody without contact consent
 (:meth:`~service.analytics.graph.NodeAttributes.contactable`) and nobody in
@@ -555,14 +564,21 @@ KIND = JobKind(
     precheck=precheck,
     summary="Seed shortlist under contact rules: whom to contact first, with its guarantee and baselines",
     result_description=(
-        "method; seeds [{rank, node_id, marginal_gain, cumulative_reach, reason, segment, cost, required}]; "
+        "method (asked for) and method_used (the list returned: a baseline when it reached clearly more on the "
+        "same simulated campaigns, then method_note says so and replaced holds the optimised list {method, seeds, "
+        "expected_reach, target_reach, reach_curve}); "
+        "seeds [{rank, node_id, marginal_gain, cumulative_reach, reason, segment, cost, required}]; "
+        "marginal_gains_note (why a later seed adds more, when one does); evaluation {simulations, random_seed, "
+        "confidence, stopped_because, note}; comparisons [{baseline, label, reach, difference {mean, stderr, "
+        "ci_low, ci_high, confidence}, verdict}], paired on the same simulated campaigns; "
         "reach_curve (k = 1..budget, on fresh RR sets shared with the baselines) and reach_curve_source; "
         "selection_reach_curve (the method's own estimate); expected_reach and, with a target, target_reach "
         "{mean, stderr, ci_low, ci_high, confidence, simulations, method} by forward Monte Carlo independent of "
-        "the choice; percentiles; segment_reach; guarantee {method, approximation, approximation_formula, "
+        "the choice, the mean over the evaluation's campaigns; percentiles; segment_reach; guarantee {method, approximation, approximation_formula, "
         "probability, certified_ratio, notes, summary}; theta; samples; timings; details; baselines {name: "
         "{method, seeds, expected_reach, target_reach, reach_curve, guarantee}}; gain_over_best_baseline "
-        "{baseline, shortlist_mean, baseline_mean, difference, relative, stderr, unit}; model, probability, "
+        "{baseline, shortlist_mean, baseline_mean, difference, relative, stderr, ci_low, ci_high, confidence, "
+        "unit} (paired); baselines also carry a label; model, probability, "
         "rounds, nodes, edges, eligible, budget, cost_budget, total_cost, target, reach_unit, warnings."
     ),
 )
