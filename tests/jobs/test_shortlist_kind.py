@@ -648,3 +648,23 @@ def test_reasons_quote_the_gains_beside_them(method: str) -> None:
     gains = [s["marginal_gain"] for s in res["seeds"]]
     rises = any(b > a for a, b in itertools.pairwise(gains))
     assert (res["marginal_gains_note"] is not None) == rises
+
+
+def test_verdicts_in_whole_people() -> None:
+    from service.analytics.paired import Interval
+    from service.jobs.tasks._shortlist_result import verdict
+
+    label = "the 25 best-connected people"
+    # Source: the wording asked for in the product brief, numbers rounded to whole people.
+    assert verdict(Interval(142.4, 11.0, 120.2, 164.6), label, "people", 0.95) == (
+        "The shortlist reaches 142 more people than the 25 best-connected people "
+        "(95% interval 120 to 165)."
+    )
+    assert verdict(Interval(11.0, 9.7, -8.2, 30.1), label, "people", 0.95) == (
+        "No clear difference from the 25 best-connected people (difference 11 people, "
+        "95% interval -8 to +30)."
+    )
+    assert verdict(Interval(-50.0, 5.0, -60.4, -39.6), label, "people", 0.9) == (
+        "The shortlist reaches 50 fewer people than the 25 best-connected people "
+        "(90% interval 40 to 60 fewer)."
+    )

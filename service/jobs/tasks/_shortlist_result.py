@@ -283,7 +283,9 @@ def _gains_note(rises: list[int], params: ShortlistParams, swapped: bool) -> str
             "the list was chosen on one set of samples and its gains are measured on fresh "
             "ones, so close calls can come out in either order"
         )
-    return f"The seed at rank {where} adds more than the seed before it: {why}."
+    if len(rises) == 1:
+        return f"The seed at rank {where} adds more than the seed before it: {why}."
+    return f"The seeds at ranks {where} add more than the seed before each: {why}."
 
 
 def _reach(f: ForecastResult | None, confidence: float, *, weighted: bool) -> dict[str, Any] | None:
@@ -335,12 +337,22 @@ def _gain(
     }
 
 
+def _prob(p: float) -> str:
+    """A probability as a percentage with the digits that tell it from 100%."""
+    if p >= 1.0:
+        return "100%"
+    digits = 2
+    while round(p * 100, digits) >= 100 and digits < 8:
+        digits += 1
+    return f"{p * 100:.{digits}f}".rstrip("0").rstrip(".") + "%"
+
+
 def _plain(g: Any, method: str) -> str:
     """The guarantee in plain words."""
     approx, prob, ratio = g.get("approximation"), g.get("probability"), g.get("certified_ratio")
     if method == "opim" and ratio is not None:
         text = (
-            f"Certified on this graph: with probability at least {prob:.4g}, this shortlist's expected reach is "
+            f"Certified on this graph: with probability at least {_prob(prob)}, this shortlist's expected reach is "
             f"at least {ratio:.1%} of the best possible shortlist under the same rules (at least "
             f"{g.get('certified_lower_bound', float('nan')):,.1f}, while no shortlist exceeds "
             f"{g.get('optimum_upper_bound', float('nan')):,.1f})."
@@ -362,7 +374,7 @@ def _plain(g: Any, method: str) -> str:
             "same rules if the reach estimates were exact; with Monte Carlo estimates, up to their error."
         )
     return (
-        f"With probability at least {prob:.4g}, this shortlist's expected reach is at least {approx:.3f} "
+        f"With probability at least {_prob(prob)}, this shortlist's expected reach is at least {approx:.3f} "
         f"({g.get('approximation_formula')}) of the best possible shortlist under the same rules "
         "(a worst-case guarantee of the method)."
     )
