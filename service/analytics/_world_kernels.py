@@ -11,15 +11,16 @@ coins for the same arc: their runs are independent, not paired. Here every
 random number is keyed on what it decides, not on when it is drawn:
 
 - Independent Cascade: node ``v``'s out-arcs in run ``i`` take their coins from
-  the SplitMix64 sequence started at ``node_state(run_state(key, i), v) =
-  mix64(run_state ^ mix64((v + 1) * gamma))``, in row order (pairs of 32-bit
-  coins, geometric gaps on uniform rows, exactly as in :mod:`._kernels`). A node
+  the run's SplitMix64 sequence (start ``run_state(key, i)``, as in
+  :mod:`._kernels`) at positions ``(v + 1) * 2**32 + 1, + 2, ...``, in row order
+  (pairs of 32-bit coins, geometric gaps on uniform rows, exactly as in
+  :mod:`._kernels`): a block of its own for every node. A node
   is expanded at most once per run, so whether arc ``(v, w)`` is live in run
   ``i`` depends on ``(key, i, v)`` only: run ``i`` is one live-edge world, the
   same whichever seeds start the cascade (Kempe, Kleinberg, Tardos 2003, the
   live-edge view of IC).
-- Linear Threshold: node ``w``'s threshold in run ``i`` is the first draw of
-  ``node_state(run_state, w)``, the same for every seed set; with fixed
+- Linear Threshold: node ``w``'s threshold in run ``i`` is the first number of
+  its block, the same for every seed set; with fixed
   thresholds the process is deterministic.
 
 So two seed sets evaluated on runs ``0..R-1`` of one key differ only because
@@ -58,9 +59,15 @@ def _run_state(key: np.uint64, run: int) -> np.uint64:
     return mix64(key ^ mix64(np.uint64(run + 1) * GAMMA))
 
 
+# Node v's numbers in a run are positions (v + 1) * 2**32 + j of the run's SplitMix64
+# sequence: disjoint blocks for every node (a row has fewer than 2**32 arcs), found by one
+# multiplication, so keying costs no extra hashing.
+_STRIDE = np.uint64((0x9E3779B97F4A7C15 << 32) & 0xFFFFFFFFFFFFFFFF)
+
+
 @njit(cache=True, nogil=True, inline="always")
 def _node_state(rs: np.uint64, v: int) -> np.uint64:
-    return mix64(rs ^ mix64(np.uint64(v + 1) * GAMMA))
+    return rs + np.uint64(v + 1) * _STRIDE
 
 
 @njit(cache=True, nogil=True)
