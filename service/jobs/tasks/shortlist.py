@@ -489,8 +489,9 @@ def _compare(
 
 def _never_worse(method: str, cmp: PairedComparison | None) -> str:
     """The list to return: the chosen one, unless a baseline reached clearly more on the same
-    campaigns (the whole interval of the difference below zero); then the best such baseline."""
-    if cmp is None:
+    campaigns (the whole interval of the difference below zero); then the best such baseline.
+    A baseline asked for as the method is returned as asked (the comparisons show how it did)."""
+    if cmp is None or method in BASELINES:
         return method
     better = [name for name, d in cmp.differences.items() if d.ci_high < 0]
     if not better:
