@@ -56,6 +56,14 @@ from .forecasts import (
     RoundForecast,
     forecast,
 )
+from .paired import (
+    WORLDS_LABEL,
+    Interval,
+    PairedComparison,
+    compare_reach,
+    paired_interval,
+    world_key,
+)
 from .graph import (
     Arcs,
     Csr,
@@ -197,6 +205,12 @@ __all__ = [
     "evaluate_link_prediction",
     "evaluate_shortlist",
     "forecast",
+    "WORLDS_LABEL",
+    "Interval",
+    "PairedComparison",
+    "compare_reach",
+    "paired_interval",
+    "world_key",
     "graph_profile",
     "graph_summary",
     "harmonic_closeness",

@@ -44,6 +44,9 @@ class SeedChoice:
     cumulative_reach: float  # reach of the shortlist up to and including it
     reason: str
     required: bool = False  # placed because of must_include
+    # The numbers the reason was written from (methods that estimate reach), so that
+    # seeding.evaluate_shortlist can rewrite it with the figures shown beside it.
+    facts: SeedFacts | None = field(default=None, compare=False, repr=False)
 
 
 class ReachEstimate(NamedTuple):
@@ -204,11 +207,14 @@ def facts_from(seeds: Sequence[int], gains: Sequence[float], alone: Sequence[flo
 
 
 def choices(res_seeds: Sequence[int], gains: Sequence[float], texts: Sequence[str],
-            must: Sequence[int]) -> tuple[tuple[SeedChoice, ...], NDArray[np.float64]]:
+            must: Sequence[int], seed_facts: Sequence[SeedFacts] | None = None,
+            ) -> tuple[tuple[SeedChoice, ...], NDArray[np.float64]]:
     curve = np.cumsum(np.asarray(gains, dtype=np.float64))
     mset = set(must)
-    seeds = tuple(SeedChoice(int(v), float(g), float(c), t, int(v) in mset)
-                  for v, g, c, t in zip(res_seeds, gains, curve, texts))
+    fs: Sequence[SeedFacts | None] = seed_facts if seed_facts is not None \
+        else [None] * len(res_seeds)
+    seeds = tuple(SeedChoice(int(v), float(g), float(c), t, int(v) in mset, f)
+                  for v, g, c, t, f in zip(res_seeds, gains, curve, texts, fs))
     return seeds, curve
 
 

@@ -127,8 +127,8 @@ def celf_seeds(
     texts = _reasons(facts, n=n)
     curve = np.cumsum(np.asarray(all_gains, dtype=np.float64))
     mset = set(must)
-    choices = tuple(SeedChoice(int(v), float(g), float(c), t, int(v) in mset)
-                    for v, g, c, t in zip(seeds, all_gains, curve, texts))
+    choices = tuple(SeedChoice(int(v), float(g), float(c), t, int(v) in mset, fct)
+                    for v, g, c, t, fct in zip(seeds, all_gains, curve, texts, facts))
     factor, formula = _factor(rules)
     return Shortlist(
         method="celf",

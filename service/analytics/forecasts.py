@@ -1,8 +1,10 @@
 """Reach forecasts: Monte Carlo simulation until the interval of the mean is narrow enough.
 
 For each named seed set, :func:`forecast` runs Independent Cascade or Linear
-Threshold simulations [1]_ with the kernels and random streams of
-:mod:`service.analytics.diffusion`, in batches, until the confidence interval
+Threshold simulations [1]_ on common simulated worlds
+(:mod:`service.analytics._world_kernels`: the same worlds for every set, so a
+comparison of sets is paired, and a set gives the same figures here and in
+:func:`service.analytics.paired.compare_reach`), in batches, until the confidence interval
 of the mean reach is as narrow as asked or a cap is hit, and summarises them:
 the mean with its standard error and interval, the percentiles of single
 outcomes, the adoption curve per round, the people most likely reached,
@@ -26,6 +28,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from . import _kernels as K
+from . import _world_kernels as W
 from .diffusion import (
     _check_count,
     _check_rounds,
@@ -33,10 +36,10 @@ from .diffusion import (
     _check_seeds,
     _check_weights,
     _is_number,
-    stream_key,
 )
 from .errors import InvalidParameter
 from .graph import DiffusionGraph
+from .paired import world_key
 
 __all__ = [
     "PERCENTILES",
@@ -93,8 +96,8 @@ class ForecastResult:
     ``outcome_histogram`` counts the simulated outcomes (reach of single runs)
     in bins of whole numbers of people. ``half_width`` is the interval's final half-width, ``stopped_because`` is
     ``"precision_reached"`` or ``"simulation_cap"``, and ``stream_key`` the
-    key of the random stream used
-    (:func:`service.analytics.diffusion.stream_key` of ``random_seed`` and the set's name).
+    key of the simulated worlds (:func:`service.analytics.paired.world_key` of
+    ``random_seed``, the same for every set).
     """
 
     seeds: NDArray[np.int32]
@@ -143,9 +146,11 @@ def forecast(
     Parameters
     ----------
     dg : diffusion graph (Independent Cascade or Linear Threshold).
-    seed_sets : name -> node indices; each set is forecast on its own random stream,
-        :func:`~service.analytics.diffusion.stream_key` ``(random_seed, name)``, so
-        adding or renaming another set does not change a set's result.
+    seed_sets : name -> node indices; every set is simulated on the same worlds
+        (common random numbers, :func:`~service.analytics.paired.world_key` ``(random_seed)``,
+        see :mod:`service.analytics._world_kernels`): differences between sets come from
+        their seeds, not from luck, and adding, renaming or reordering other sets does
+        not change a set's result.
     simulations : the cap on simulations per set (>= 2).
     min_simulations : simulations run before the stopping rule is first checked
         (clipped to ``simulations``).
@@ -240,7 +245,7 @@ def forecast(
 
     out: dict[str, ForecastResult] = {}
     for j, (name, seeds) in enumerate(sets.items()):
-        key = stream_key(key_seed, name)
+        key = world_key(key_seed)
         res, reason = _run_until(kg, seeds, key, cap, first, z, precision, relative_precision,
                                  horizon, w, progress, j / len(sets), 1.0 / len(sets), name)
         out[name] = _summarise(res, seeds, reason, z, confidence, rounds, key_seed, key,
@@ -256,7 +261,7 @@ def _run_until(kg: K.KernelGraph, seeds: NDArray[np.int32], key: int, cap: int, 
     res: K.ChunkResult | None = None
     done, batch = 0, first
     while True:
-        part = K.simulate(kg, seeds, key, done, batch, horizon, w)
+        part = W.simulate(kg, seeds, key, done, batch, horizon, w)
         res = part if res is None else K.merge([res, part])
         done += batch
         mean, var = K.mean_var(res.reach.astype(np.float64))

@@ -18,6 +18,7 @@ from __future__ import annotations
 import math
 import time
 from collections.abc import Sequence
+from dataclasses import replace
 
 import numpy as np
 from numpy.typing import NDArray
@@ -319,7 +320,7 @@ def imm_seeds(
                        communities=communities)
     unit = "people" if w is None else "audience value"
     seeds, curve = choices(res.seeds, [g * final.scale() for g in res.gains],
-                           _reasons(seed_facts, n=n, unit=unit), rules.must)
+                           _reasons(seed_facts, n=n, unit=unit), rules.must, seed_facts)
     notes = rule_notes(rules) + ([caveat] if caveat else [])
     approx: float | None = factor - epsilon
     if capped:
@@ -370,6 +371,7 @@ def evaluate_shortlist(
     weights: NDArray[np.float64] | None = None,
     rounds: int | None = None,
     progress: Progress | None = None,
+    eligible: NDArray[np.bool_] | None = None,
 ) -> Shortlist:
     """Fill in marginal gains, cumulative reach and the reach curve of any
     ordered shortlist (e.g. a baseline) from fresh RR sets.
@@ -383,11 +385,16 @@ def evaluate_shortlist(
     dg : the diffusion graph.
     shortlist : from any method of this module.
     samples, random_seed, weights, rounds, progress : as in :func:`rr_estimate`.
+    eligible : who could have been chosen; with it, "the most of anyone
+        eligible" in the reasons is judged on the fresh sets too.
 
     Returns
     -------
     Shortlist
-        A copy with the reach figures replaced (reasons unchanged).
+        A copy with the reach figures replaced. Reasons that quote reach
+        (those of IMM, OPIM-C and CELF) are rewritten from the fresh figures,
+        so a reason always agrees with the marginal gain beside it; the
+        baselines' reasons quote no reach and are kept.
 
     Raises
     ------
@@ -413,12 +420,29 @@ def evaluate_shortlist(
     coll = RRCollection(sampler, K.stream_key(random_seed, TAG_EVAL + 16))
     coll.extend_to(int(samples), progress=progress, message="sampling RR sets to evaluate")
     scale = coll.scale()
-    gains = prefix_gains(coll, nodes).astype(np.float64) * scale
+    hits = prefix_gains(coll, nodes)
+    gains = hits.astype(np.float64) * scale
     curve = np.cumsum(gains)
-    share = curve[-1] / sampler.total_weight if len(curve) else 0.0
-    se = sampler.total_weight * math.sqrt(share * (1 - share) / coll.count)
-    seeds = tuple(SeedChoice(s.node, float(g), float(c), s.reason, s.required)
-                  for s, g, c in zip(shortlist.seeds, gains, curve))
+    # The share of sets hit, from the integer count: the float sum of the scaled gains
+    # can exceed the total by a rounding error when every set is hit (complete coverage).
+    share = min(int(hits.sum()) / coll.count, 1.0)
+    se = sampler.total_weight * math.sqrt(share * (1.0 - share) / coll.count)
+    texts = [s.reason for s in shortlist.seeds]
+    if nodes and all(s.facts is not None for s in shortlist.seeds):
+        counts0 = coll.index()[2]
+        pool = None if eligible is None else np.asarray(eligible, dtype=np.bool_).copy()
+        if pool is not None:
+            pool[nodes] = True
+        new_facts = []
+        for s, g in zip(shortlist.seeds, gains):
+            assert s.facts is not None
+            best = (float(counts0[pool].max()) * scale if pool is not None
+                    else s.facts.best_alone)
+            new_facts.append(replace(s.facts, gain=float(g),
+                                     alone=float(counts0[s.node]) * scale, best_alone=best))
+        texts = _reasons(new_facts, n=dg.n, unit="people" if w is None else "audience value")
+    seeds = tuple(SeedChoice(s.node, float(g), float(c), t, s.required, s.facts)
+                  for s, g, c, t in zip(shortlist.seeds, gains, curve, texts))
     return Shortlist(
         method=shortlist.method, seeds=seeds, reach_curve=curve,
         reach_curve_source=f"coverage of {coll.count} fresh RR sets drawn after the list was fixed",

@@ -276,7 +276,9 @@ async def test_same_random_seed_same_result(client) -> None:  # type: ignore[no-
     other = (await run_forecast(client, gid, {**params, "random_seed": 6}))["result"]
     volatile = ("job_id", "created_at")
     assert {k: v for k, v in first.items() if k not in volatile} == {k: v for k, v in again.items() if k not in volatile}
-    assert other["expected_reach"]["mean"] != first["expected_reach"]["mean"]
+    # The mean is shown to one decimal, so two seeds can print the same mean; the standard
+    # error (four significant digits) still tells the two runs apart.
+    assert other["expected_reach"] != first["expected_reach"]
 
 
 async def test_precision_stops_early_or_warns_at_the_cap(client) -> None:  # type: ignore[no-untyped-def]

@@ -242,3 +242,43 @@ async def test_bad_params_are_422_before_queueing(client) -> None:  # type: igno
         body = assert_problem(r, 422, "invalid-parameter")
         assert any(e["loc"][: len(loc)] == loc for e in body["errors"]), (params, body["errors"])
     assert (await client.get("/v1/jobs")).json()["items"] == []
+
+
+async def test_forecast_of_the_shortlist_agrees_with_it(client) -> None:  # type: ignore[no-untyped-def]
+    rng = np.random.default_rng(44)
+    arcs = random_graph(rng, 10, 14)
+    gid = await make_graph(client, arcs)
+    job = await run_shortlist(client, gid, {"budget": 2, "random_seed": 6, "forecast_runs": 400})
+    assert job["status"] == "succeeded", job
+    res = job["result"]
+    ev = res["evaluation"]
+    assert ev["random_seed"] == 6 and ev["simulations"] >= 400
+    assert res["method_used"] == "imm" and res["method_note"] is None
+    seeds = [s["node_id"] for s in res["seeds"]]
+    # A forecast job of the same people, random_seed and number of simulations runs on the
+    # same simulated campaigns: the same mean reach to the last digit.
+    r = await client.post(
+        f"/v1/graphs/{gid}/jobs",
+        json={
+            "kind": "forecast",
+            "params": {
+                **EXPLICIT,
+                "seeds": list(reversed(seeds)),
+                "random_seed": 6,
+                "simulations": ev["simulations"],
+                "min_simulations": ev["simulations"],
+            },
+        },
+    )
+    assert r.status_code == 202, r.text
+    assert await run_worker_once(worker_for(client)) is not None
+    fc = (await client.get(f"/v1/jobs/{r.json()['id']}/result")).json()
+    assert fc["simulations"] == ev["simulations"]
+    assert fc["expected_reach"]["mean"] == res["expected_reach"]["mean"]
+    # Every baseline is compared on the same campaigns, with a verdict in whole people.
+    assert {c["baseline"] for c in res["comparisons"]} == set(res["baselines"])
+    for c in res["comparisons"]:
+        d = c["difference"]
+        assert d["ci_low"] <= d["mean"] <= d["ci_high"]
+        assert c["verdict"].startswith(("The shortlist reaches", "No clear difference"))
+        assert c["label"] in c["verdict"]

@@ -275,7 +275,9 @@ def _one_set(name: str, r: ForecastResult, ids: Sequence[str], labels: Sequence[
 
 
 def _comparison(forecasts: list[dict[str, Any]], confidence: float, targeted: bool) -> dict[str, Any]:
-    """Every pair's difference of means with a normal interval (the sets' runs are independent)."""
+    """Every pair's difference of means with a normal interval. The sets run on the same
+    simulated worlds (analytics.forecasts), which makes their results positively correlated,
+    so this unpaired interval is wider than it needs to be (conservative)."""
     measure = "target_reach" if targeted else "expected_reach"
     z = NormalDist().inv_cdf(0.5 + confidence / 2.0)
     pairs = []

@@ -10,9 +10,18 @@ for the chosen list and for each baseline list (same rules):
   collection of fresh reverse-reachable sets drawn after every list was fixed
   (``seeding.evaluate_shortlist``: unbiased, and the same sets for every list,
   so the curves compare);
-- ``expected_reach`` is an independent forward Monte Carlo forecast
-  (``forecasts.forecast``, its own random stream, the same stream for every
-  list), with a confidence interval of the mean.
+- every list is simulated on the same campaigns (``analytics.paired``: the
+  same live-edge worlds for every list, common random numbers) until each
+  paired difference with the chosen list is within 1% of its reach or
+  ``forecast_max_runs`` campaigns have run; ``comparisons`` give each
+  difference with its t interval and a verdict in plain words;
+- never worse: if a baseline reaches clearly more than the chosen list (the
+  whole interval of the difference above zero), that baseline's list is
+  returned (``method_used``, ``method_note``, ``replaced``);
+- ``expected_reach`` is a forward Monte Carlo forecast
+  (``forecasts.forecast``) on those same campaigns, so its mean is the
+  comparison's, and a ``forecast`` job of the same seeds with the same
+  ``random_seed`` and ``simulations`` gives the same figure.
 
 Contact rules. Nobody without contact consent
 (:meth:`~service.analytics.graph.NodeAttributes.contactable`) and nobody in
@@ -57,6 +66,7 @@ from .diffusion_settings import DiffusionSettings
 if TYPE_CHECKING:
     from service.analytics.forecasts import ForecastResult
     from service.analytics.graph import DiffusionGraph, GraphArrays
+    from service.analytics.paired import PairedComparison
     from service.analytics.seeding import Shortlist
     from service.loader import LoadedVersion
 
@@ -96,6 +106,7 @@ PRECHECK_MAX_EDGES = 2_000_000
 COMMUNITY_MAX_EDGES = (
     200_000  # Leiden for the seeds' reasons only up to this size (DBLP, 1M edges: ~20 s)
 )
+RELATIVE_PRECISION = 0.01  # paired comparison: interval half-width at most 1% of the reach
 NodeId = str
 
 
@@ -165,7 +176,15 @@ class ShortlistParams(DiffusionSettings):
         default=1000,
         ge=100,
         le=1_000_000,
-        description="Forward simulations per list for expected_reach.",
+        description="Simulated campaigns run first for expected_reach and the comparisons "
+        "(every list on the same campaigns).",
+    )
+    forecast_max_runs: int = Field(
+        default=20_000,
+        ge=100,
+        le=1_000_000,
+        description="More campaigns are simulated, up to this many (or forecast_runs if larger), "
+        "until every comparison with a baseline is within 1% of the reach.",
     )
     evaluation_samples: int = Field(
         default=100_000,
@@ -244,12 +263,16 @@ def run(ctx: TaskContext, params: ShortlistParams) -> TaskOutput:
             base[b] = _choose(b, params, v, dg, prep, communities, step)
         clock.lap("baselines")
     evaluated = _evaluate(
-        params, dg, prep, {params.method: chosen, **base}, _span(ctx.progress, 0.6, 0.75)
+        params, dg, prep, {params.method: chosen, **base}, _span(ctx.progress, 0.6, 0.7)
     )
     clock.lap("evaluation")
-    fc = _forecasts(params, v, dg, prep, evaluated, _span(ctx.progress, 0.75, 1.0))
+    cmp = _compare(params, dg, prep, evaluated, _span(ctx.progress, 0.7, 0.85))
+    used = _never_worse(params.method, cmp)
+    clock.lap("paired_comparison")
+    runs = cmp.simulations if cmp is not None else params.forecast_runs
+    fc = _forecasts(params, v, dg, prep, evaluated, runs, _span(ctx.progress, 0.85, 1.0))
     clock.lap("forward_monte_carlo")
-    doc = result_document(params, v, prep, chosen, evaluated, fc)
+    doc = result_document(params, v, prep, chosen, evaluated, fc, cmp, used)
     doc["timings"] = {"method": doc["timings"], **clock.laps, "total": clock.total()}
     return TaskOutput(data=doc)
 
@@ -430,8 +453,50 @@ def _evaluate(
             weights=prep.weights,
             rounds=params.rounds,
             progress=_span(progress, i / len(lists), (i + 1) / len(lists)),
+            eligible=prep.eligible,
         )
     return out
+
+
+def _compare(
+    params: ShortlistParams,
+    dg: DiffusionGraph,
+    prep: Prepared,
+    lists: dict[str, Shortlist],
+    progress: Callable[[float, str], None],
+) -> PairedComparison | None:
+    """Every list on the same simulated campaigns, until each paired difference with the
+    chosen list is within RELATIVE_PRECISION of its reach (or the simulation cap)."""
+    from service.analytics.paired import compare_reach
+
+    sets = {name: list(sl.nodes) for name, sl in lists.items() if sl.seeds}
+    if params.method not in sets:
+        return None
+    return compare_reach(
+        dg,
+        sets,
+        reference=params.method,
+        min_simulations=params.forecast_runs,
+        max_simulations=max(params.forecast_runs, params.forecast_max_runs),
+        relative_precision=RELATIVE_PRECISION,
+        confidence=params.confidence,
+        rounds=params.rounds,
+        random_seed=params.random_seed,
+        weights=prep.weights,
+        progress=progress,
+    )
+
+
+def _never_worse(method: str, cmp: PairedComparison | None) -> str:
+    """The list to return: the chosen one, unless a baseline reached clearly more on the same
+    campaigns (the whole interval of the difference below zero); then the best such baseline.
+    A baseline asked for as the method is returned as asked (the comparisons show how it did)."""
+    if cmp is None or method in BASELINES:
+        return method
+    better = [name for name, d in cmp.differences.items() if d.ci_high < 0]
+    if not better:
+        return method
+    return max(better, key=lambda name: cmp.reach[name].mean)
 
 
 def _forecasts(
@@ -440,9 +505,11 @@ def _forecasts(
     dg: DiffusionGraph,
     prep: Prepared,
     lists: dict[str, Shortlist],
+    simulations: int,
     progress: Callable[[float, str], None],
 ) -> dict[str, ForecastResult]:
-    """Forward Monte Carlo of every list, each on the same stream (common random numbers)."""
+    """Forward Monte Carlo of every list on the campaigns of the paired comparison (the same
+    worlds and number), so each list's mean reach is the comparison's."""
     from service.analytics.forecasts import forecast
 
     out = {}
@@ -453,8 +520,8 @@ def _forecasts(
         out[name] = forecast(
             dg,
             {"shortlist": list(sl.nodes)},
-            simulations=params.forecast_runs,
-            min_simulations=params.forecast_runs,
+            simulations=simulations,
+            min_simulations=simulations,
             confidence=params.confidence,
             rounds=params.rounds,
             random_seed=params.random_seed,
@@ -498,15 +565,21 @@ KIND = JobKind(
     precheck=precheck,
     summary="Seed shortlist under contact rules: whom to contact first, with its guarantee and baselines",
     result_description=(
-        "method; seeds [{rank, node_id, label, marginal_gain, cumulative_reach, reason, segment, region, cost, "
-        "required}]; "
+        "method (asked for) and method_used (the list returned: a baseline when it reached clearly more on the "
+        "same simulated campaigns, then method_note says so and replaced holds the optimised list {method, seeds, "
+        "expected_reach, target_reach, reach_curve}); "
+        "seeds [{rank, node_id, label, marginal_gain, cumulative_reach, reason, segment, region, cost, required}]; "
+        "marginal_gains_note (why a later seed adds more, when one does); evaluation {simulations, random_seed, "
+        "confidence, stopped_because, note}; comparisons [{baseline, label, reach, difference {mean, stderr, "
+        "ci_low, ci_high, confidence}, verdict}], paired on the same simulated campaigns; "
         "reach_curve (k = 1..budget, on fresh RR sets shared with the baselines) and reach_curve_source; "
         "selection_reach_curve (the method's own estimate); expected_reach and, with a target, target_reach "
         "{mean, stderr, ci_low, ci_high, confidence, simulations, method} by forward Monte Carlo independent of "
-        "the choice; percentiles; segment_reach; guarantee {method, approximation, approximation_formula, "
+        "the choice, the mean over the evaluation's campaigns; percentiles; segment_reach; guarantee {method, approximation, approximation_formula, "
         "probability, certified_ratio, notes, summary}; theta; samples; timings; details; baselines {name: "
         "{method, seeds, expected_reach, target_reach, reach_curve, guarantee}}; gain_over_best_baseline "
-        "{baseline, shortlist_mean, baseline_mean, difference, relative, stderr, unit}; model, probability, "
+        "{baseline, shortlist_mean, baseline_mean, difference, relative, stderr, ci_low, ci_high, confidence, "
+        "unit} (paired); baselines also carry a label; model, probability, "
         "rounds, nodes, edges, eligible, budget, cost_budget, total_cost, target, reach_unit, warnings."
     ),
 )
