@@ -5,16 +5,29 @@ from __future__ import annotations
 import argparse
 import sys
 from collections.abc import Sequence
+from typing import NoReturn
+
+from pydantic import ValidationError
+from sqlalchemy.exc import ArgumentError, OperationalError
 
 from service.settings import Settings
 from storage.db import is_sqlite
 
+from .errors import UserError
+
 __all__ = ["main", "build_parser"]
 
 
+class Parser(argparse.ArgumentParser):
+    """argparse, but a usage mistake is one line on stderr (exit code 2), pointing at --help."""
+
+    def error(self, message: str) -> NoReturn:
+        self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="bellwether", description="Bellwether outreach-graph service.")
-    sub = p.add_subparsers(dest="command", required=True)
+    p = Parser(prog="bellwether", description="Bellwether outreach-graph service.")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     s = sub.add_parser("serve", help="run the API and worker processes")
     s.add_argument("--host", default=None, help="bind address (default 127.0.0.1)")
@@ -27,14 +40,14 @@ def build_parser() -> argparse.ArgumentParser:
     sub.add_parser("migrate", help="apply database migrations up to head")
 
     k = sub.add_parser("keys", help="manage API keys")
-    ksub = k.add_subparsers(dest="keys_command", required=True)
+    ksub = k.add_subparsers(dest="keys_command", required=True, metavar="{create,list,revoke}")
     kc = ksub.add_parser("create", help="create a key; prints it alone on the last line")
     kc.add_argument("--tenant", required=True)
     kc.add_argument("--scopes", default="read,write")
     kc.add_argument("--name", default=None)
     kc.add_argument("--expires-days", type=float, default=None)
     ksub.add_parser("list", help="list keys (prefixes only)")
-    kr = ksub.add_parser("revoke", help="revoke a key by id or prefix")
+    kr = ksub.add_parser("revoke", help="revoke a key by id or prefix (bw_<prefix> as `keys list` prints it)")
     kr.add_argument("key")
 
     d = sub.add_parser("demo", help="run the whole job end to end on an invented scenario")
@@ -46,9 +59,44 @@ def build_parser() -> argparse.ArgumentParser:
     return p
 
 
+def _fail(message: str, code: int = 2) -> int:
+    print(f"bellwether: error: {message}", file=sys.stderr)
+    return code
+
+
+def _settings_problem(exc: ValidationError) -> str:
+    parts = []
+    for e in exc.errors():
+        name = "BELLWETHER_" + "_".join(str(p) for p in e["loc"]).upper()
+        parts.append(f"{name}: {e['msg']}")
+    return "invalid setting " + "; ".join(parts)
+
+
+def _first_line(exc: BaseException) -> str:
+    text = str(getattr(exc, "orig", None) or exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
 def main(argv: Sequence[str] | None = None) -> int:
+    """Run one command; a user error is one line on stderr and exit code 2, never a traceback."""
     args = build_parser().parse_args(argv)
-    settings = Settings()
+    try:
+        settings = Settings()
+    except ValidationError as exc:
+        return _fail(_settings_problem(exc))
+    try:
+        return _run(args, settings)
+    except UserError as exc:
+        return _fail(str(exc))
+    except ArgumentError as exc:  # a malformed BELLWETHER_DATABASE_URL
+        return _fail(f"BELLWETHER_DATABASE_URL cannot be used: {_first_line(exc)}")
+    except OperationalError as exc:
+        return _fail(f"the database cannot be reached: {_first_line(exc)}", 1)
+    except KeyboardInterrupt:
+        return 130
+
+
+def _run(args: argparse.Namespace, settings: Settings) -> int:
     if args.command == "migrate":
         from storage.migrate import upgrade
 
@@ -63,6 +111,11 @@ def main(argv: Sequence[str] | None = None) -> int:
             settings = settings.model_copy(update={"host": args.host})
         if args.port:
             settings = settings.model_copy(update={"port": args.port})
+        if settings.auth_disabled and settings.host not in ("127.0.0.1", "localhost", "::1"):
+            raise UserError(
+                f"BELLWETHER_AUTH_DISABLED is allowed only when binding to loopback (127.0.0.1, ::1), "
+                f"not {settings.host}"
+            )
         migrate = not args.no_migrate and is_sqlite(settings.resolved_database_url())
         return serve(settings, workers=args.workers, api_processes=args.api_processes, migrate=migrate)
     if args.command == "worker":
@@ -78,7 +131,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         from .demo import run_demo
 
         return run_demo(settings, args)
-    return 2
+    raise UserError(f"unknown command {args.command!r}")
 
 
 if __name__ == "__main__":
