@@ -254,6 +254,10 @@ def _send(
     body = encode_body(payload)
     # Wall time, not the injectable clock: receivers compare it with theirs.
     timestamp = int(time.time())
+    try:
+        signature = signature_header(secrets_, delivery_id, timestamp, body)
+    except ValueError as exc:  # a secret stored by hand in another form; the API never stores one
+        return None, f"not sent: the webhook's secret cannot sign ({exc}); rotate it"
     target = httpx.URL(url)
     headers = {
         "Content-Type": "application/json",
@@ -261,7 +265,7 @@ def _send(
         "Host": target.netloc.decode("ascii"),
         "webhook-id": delivery_id,
         "webhook-timestamp": str(timestamp),
-        "webhook-signature": signature_header(secrets_, delivery_id, timestamp, body),
+        "webhook-signature": signature,
     }
     # TLS checks the certificate against the URL's host, not the address connected to.
     extensions = {"sni_hostname": target.raw_host.decode("ascii")} if checked.scheme == "https" else {}

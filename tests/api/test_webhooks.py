@@ -18,6 +18,16 @@ from tests.jobs.test_webhooks import Receiver
 pytestmark = pytest.mark.anyio
 
 
+def readme_verify():  # type: ignore[no-untyped-def]
+    """The ``verify`` function of the README's webhook snippet, executed as printed."""
+    text = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    blocks = [b.split("\n", 1)[1] for b in text.split("```python")[1:]]
+    (code,) = [b.split("```", 1)[0] for b in blocks if "standardwebhooks" in b]
+    scope: dict[str, object] = {}
+    exec(code, scope)  # noqa: S102 - our own documentation
+    return scope["verify"]
+
+
 @pytest.fixture
 def db_url(sqlite_url: str) -> str:
     return sqlite_url
@@ -135,6 +145,7 @@ async def test_job_success_is_delivered_signed_after_a_500(client) -> None:  # t
         headers, body, _ = receiver.requests[-1]
     # Source: standardwebhooks, the specification's reference library, verifying as a receiver would.
     event = Verifier(hook["secret"]).verify(body, headers)
+    assert readme_verify()(hook["secret"], headers, body) == event  # the README's snippet, run as printed
     assert headers["webhook-id"] == d["id"] == receiver.requests[0][0]["webhook-id"]
     assert event["event"] == "job.succeeded" and event["id"] == d["id"]
     assert event["data"]["job"]["id"] == jid and event["data"]["job"]["result_url"] == f"/v1/jobs/{jid}/result"

@@ -415,3 +415,16 @@ def test_https_delivery_to_the_pinned_address_verifies_the_certificate(
     else:  # the certificate is for receiver.test, not other.test
         assert d.status == "failed" and "certificate" in (d.last_error or "").lower(), d.last_error
         assert receiver.requests == []
+
+
+def test_a_secret_that_cannot_sign_is_logged_not_sent(maker: sessionmaker[Session]) -> None:
+    """Only a secret written past the API can be in another form; the delivery says so."""
+    clock = FakeClock()
+    with Receiver([200]) as r:
+        hook = subscribe(maker, r.url, "x" * 20, clock)
+        with httpx.Client() as client:
+            wh.deliver_due(maker, client, wh.DeliveryPolicy(max_attempts=1, allow_loopback=True), clock.now)
+    with maker() as db:
+        (d,), _ = wr.list_deliveries(db, hook, limit=5)
+    assert d.status == "failed" and (d.last_error or "").startswith("not sent: the webhook's secret cannot sign")
+    assert r.requests == []
