@@ -112,6 +112,18 @@ async def test_rotate_secret_shows_the_new_one_once_and_keeps_the_old_for_the_ov
     assert_problem(await client.post("/v1/webhooks/wh_nope/rotate-secret"), 404, "not-found")
 
 
+async def test_a_retried_rotation_with_the_same_key_does_not_rotate_twice(client) -> None:  # type: ignore[no-untyped-def]
+    hook = (await client.post("/v1/webhooks", json={"url": "http://127.0.0.1:9/hook", "events": ["job.failed"]})).json()
+    h = {"Idempotency-Key": "rotate-1"}
+    a = await client.post(f"/v1/webhooks/{hook['id']}/rotate-secret", headers=h)
+    b = await client.post(f"/v1/webhooks/{hook['id']}/rotate-secret", headers=h)
+    assert (a.status_code, b.status_code) == (200, 200) and a.json() == b.json()
+    other = await client.post(f"/v1/webhooks/{hook['id']}/rotate-secret", headers=h, json={"overlap_seconds": 60})
+    assert_problem(other, 409, "conflict")
+    c = await client.post(f"/v1/webhooks/{hook['id']}/rotate-secret", headers={"Idempotency-Key": "rotate-2"})
+    assert c.json()["secret"] not in (a.json()["secret"], hook["secret"])
+
+
 async def test_idempotent_subscription(client) -> None:  # type: ignore[no-untyped-def]
     body = {"url": "http://127.0.0.1:9/hook", "events": ["job.failed"]}
     h = {"Idempotency-Key": "hook-1"}
