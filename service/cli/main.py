@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import NoReturn
 
 from pydantic import ValidationError
@@ -25,15 +25,32 @@ class Parser(argparse.ArgumentParser):
         self.exit(2, f"{self.prog}: error: {message} (see {self.prog} --help)\n")
 
 
+def _whole(low: int, high: int | None = None) -> Callable[[str], int]:
+    """An argparse type: a whole number from ``low`` to ``high``, refused in plain words otherwise."""
+
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+        if value < low or (high is not None and value > high):
+            raise argparse.ArgumentTypeError(
+                f"{value} is out of range; use {low} to {high}" if high is not None else f"{value} is below {low}"
+            )
+        return value
+
+    return parse
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = Parser(prog="bellwether", description="Bellwether outreach-graph service.")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     s = sub.add_parser("serve", help="run the API and worker processes")
     s.add_argument("--host", default=None, help="bind address (default 127.0.0.1)")
-    s.add_argument("--port", type=int, default=None, help="port (default 8000)")
-    s.add_argument("--workers", type=int, default=1, help="worker processes beside the API (default 1)")
-    s.add_argument("--api-processes", type=int, default=1, help="uvicorn processes for the API")
+    s.add_argument("--port", type=_whole(1, 65535), default=None, help="port (default 8000)")
+    s.add_argument("--workers", type=_whole(0, 256), default=1, help="worker processes beside the API (default 1)")
+    s.add_argument("--api-processes", type=_whole(1, 256), default=1, help="uvicorn processes for the API")
     s.add_argument("--no-migrate", action="store_true", help="do not apply migrations at start")
 
     sub.add_parser("worker", help="run one worker process that claims and runs jobs")
@@ -52,10 +69,10 @@ def build_parser() -> argparse.ArgumentParser:
 
     d = sub.add_parser("demo", help="run the whole job end to end on an invented scenario")
     d.add_argument("--out", default="bellwether-demo", help="folder for the report and plots")
-    d.add_argument("--members", type=int, default=None, help="scenario size (people)")
+    d.add_argument("--members", type=_whole(60, 1_000_000), default=None, help="scenario size (people, at least 60)")
     d.add_argument("--url", default=None, help="use a running server instead of starting one")
     d.add_argument("--key", default=None, help="API key for --url")
-    d.add_argument("--seed", type=int, default=7)
+    d.add_argument("--seed", type=_whole(0), default=7)
     return p
 
 
@@ -128,9 +145,15 @@ def _run(args: argparse.Namespace, settings: Settings) -> int:
 
         return run_keys(settings, args)
     if args.command == "demo":
+        import httpx
+
         from .demo import run_demo
 
-        return run_demo(settings, args)
+        try:
+            return run_demo(settings, args)
+        except httpx.TransportError as exc:
+            where = args.url or "the demo server"
+            raise UserError(f"cannot reach {where}: {exc}") from None
     raise UserError(f"unknown command {args.command!r}")
 
 

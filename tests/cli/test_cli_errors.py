@@ -61,6 +61,13 @@ BAD_INPUT = [
     (["keys", "revoke", "key_nope"], "no key has the id or prefix 'key_nope'"),
     (["keys", "revoke", "  "], "name the key to revoke"),
     (["keys", "revoke", "bw_"], "name the key to revoke"),
+    # the other commands' arguments
+    (["serve", "--port", "0"], "argument --port: 0 is out of range; use 1 to 65535"),
+    (["serve", "--port", "99999"], "use 1 to 65535"),
+    (["serve", "--port", "http"], "'http' is not a whole number"),
+    (["serve", "--workers", "-1"], "argument --workers: -1 is out of range"),
+    (["serve", "--api-processes", "0"], "argument --api-processes: 0 is out of range"),
+    (["demo", "--members", "5"], "argument --members: 5 is out of range; use 60 to 1000000"),
     # keys and the command itself
     (["keys"], "required: {create,list,revoke}"),
     (["keys", "rotate"], "invalid choice: 'rotate'"),
@@ -84,6 +91,14 @@ def test_invalid_settings_and_database_urls_are_one_line(
     code, out, err = run(capsys, "keys", "list")
     assert code == 2 and "Traceback" not in err and len(err.splitlines()) == 1, err
     assert "BELLWETHER_DATABASE_URL" in err
+
+
+def test_demo_against_an_unreachable_server_is_one_line(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:
+    code, out, err = run(capsys, "demo", "--members", "60", "--url", "http://127.0.0.1:9", "--key", "k",
+                         "--out", str(tmp_path / "demo"))
+    assert code == 2 and "Traceback" not in err, err
+    assert err.splitlines() == [err.splitlines()[0]] and "cannot reach http://127.0.0.1:9" in err
+    assert "Bellwether demo" in out  # it had started telling the story
 
 
 def test_serve_without_auth_off_loopback_is_a_user_error(
