@@ -43,6 +43,10 @@ _NAT64 = ipaddress.IPv6Network("64:ff9b::/96")
 _NAT64_LOCAL = ipaddress.IPv6Network("64:ff9b:1::/48")
 _COMPATIBLE = ipaddress.IPv6Network("::/96")
 _SHARED = ipaddress.IPv4Network("100.64.0.0/10")
+#: RFC 1918 private networks and IPv6 unique local addresses (RFC 4193).
+_PRIVATE = tuple(
+    ipaddress.ip_network(n) for n in ("10.0.0.0/8", "172.16.0.0/12", "192.168.0.0/16", "fc00::/7")
+)
 
 
 @dataclass(frozen=True)
@@ -96,12 +100,12 @@ def _plain_reason(ip: IPAddress) -> str | None:
         return "a shared (carrier-grade NAT) address"
     if isinstance(ip, ipaddress.IPv6Address) and ip in _NAT64_LOCAL:
         return "a local-use NAT64 address, which leads into a private network"
-    if ip.is_private:
+    if any(ip in net for net in _PRIVATE if net.version == ip.version):
         return "a private address"
     if ip.is_reserved:
         return "a reserved address"
-    if not ip.is_global:
-        return "not a globally reachable address"
+    if not ip.is_global:  # documentation, benchmarking, protocol assignments and the like
+        return "a special-purpose address that is not globally reachable"
     return None
 
 
