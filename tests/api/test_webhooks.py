@@ -139,6 +139,7 @@ async def test_job_success_is_delivered_signed_after_a_500(client) -> None:  # t
     client.app.state.clock = clock
     with Receiver([500, 200]) as receiver:
         hook = (await client.post("/v1/webhooks", json={"url": receiver.url, "events": ["job.succeeded"]})).json()
+        receiver.secret = hook["secret"]  # the receiver now verifies each delivery as it arrives
         gid = await make_graph(client)
         jid = (await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile"})).json()["id"]
         worker = worker_for(client, clock=clock)
@@ -153,7 +154,7 @@ async def test_job_success_is_delivered_signed_after_a_500(client) -> None:  # t
         assert await asyncio.to_thread(worker.deliver_webhooks) == 1
         (d,) = (await client.get(f"/v1/webhooks/{hook['id']}/deliveries")).json()["items"]
         assert (d["status"], d["attempts"], d["last_status"], d["next_attempt_at"]) == ("delivered", 2, 200, None)
-        assert len(receiver.requests) == 2
+        assert len(receiver.requests) == 2 and receiver.rejected == []
         headers, body, _ = receiver.requests[-1]
     # Source: standardwebhooks, the specification's reference library, verifying as a receiver would.
     event = Verifier(hook["secret"]).verify(body, headers)

@@ -204,16 +204,29 @@ def test_a_secret_carried_over_from_the_old_scheme_still_signs() -> None:
 class Receiver:
     """A tiny HTTP(S) server on 127.0.0.1 answering a scripted list of status codes."""
 
-    def __init__(self, codes: list[int], *, tls: ssl.SSLContext | None = None, host: str = "127.0.0.1") -> None:
+    def __init__(
+        self, codes: list[int], *, tls: ssl.SSLContext | None = None, host: str = "127.0.0.1", secret: str | None = None
+    ) -> None:
         self.codes = list(codes)
         self.requests: list[tuple[dict[str, str], bytes, float]] = []
+        #: With a secret, the receiver verifies each delivery with the reference library as it
+        #: arrives and answers 400 to one that does not verify.
+        self.secret = secret
+        self.rejected: list[str] = []
         outer = self
 
         class Handler(BaseHTTPRequestHandler):
             def do_POST(self) -> None:  # noqa: N802
                 body = self.rfile.read(int(self.headers["Content-Length"]))
-                outer.requests.append(({k.lower(): v for k, v in self.headers.items()}, body, time.time()))
+                headers = {k.lower(): v for k, v in self.headers.items()}
+                outer.requests.append((headers, body, time.time()))
                 code = outer.codes.pop(0) if outer.codes else 200
+                if outer.secret is not None:
+                    try:
+                        Verifier(outer.secret).verify(body, headers)
+                    except WebhookVerificationError as exc:
+                        outer.rejected.append(str(exc))
+                        code = 400
                 self.send_response(code)
                 self.send_header("Content-Length", "2")
                 self.end_headers()
@@ -258,7 +271,7 @@ def test_delivery_retries_after_500_with_one_id_and_fresh_signatures(maker: sess
     clock = FakeClock()
     secret = wh.new_secret()
     calls: list[str] = []
-    with Receiver([500, 200], host="receiver.test") as receiver:
+    with Receiver([500, 200], host="receiver.test", secret=secret) as receiver:
         resolve = fake_dns({"receiver.test": ["127.0.0.1"]}, calls)
         hook = subscribe(maker, receiver.url, secret, clock)
         policy = wh.DeliveryPolicy(timeout_seconds=5, max_attempts=3, backoff_base_seconds=10, allow_loopback=True)
@@ -277,6 +290,7 @@ def test_delivery_retries_after_500_with_one_id_and_fresh_signatures(maker: sess
     with maker() as db:
         (d,), _ = wr.list_deliveries(db, hook, limit=5)
         assert (d.status, d.attempts, d.last_status, d.last_error) == ("delivered", 2, 200, None)
+    assert receiver.rejected == []  # the receiver verified both deliveries as they arrived
     assert calls == ["receiver.test", "receiver.test"]  # resolved once per attempt, by the check
     assert len(receiver.requests) == 2
     ids = {h["webhook-id"] for h, _, _ in receiver.requests}
@@ -431,3 +445,14 @@ def test_a_secret_that_cannot_sign_is_logged_not_sent(maker: sessionmaker[Sessio
         (d,), _ = wr.list_deliveries(db, hook, limit=5)
     assert d.status == "failed" and (d.last_error or "").startswith("not sent: the webhook's secret cannot sign")
     assert r.requests == []
+
+
+def test_a_receiver_holding_another_secret_refuses_the_delivery(maker: sessionmaker[Session]) -> None:
+    clock = FakeClock()
+    with Receiver([200], secret=wh.new_secret()) as r:
+        hook = subscribe(maker, r.url, wh.new_secret(), clock)
+        with httpx.Client() as client:
+            wh.deliver_due(maker, client, wh.DeliveryPolicy(max_attempts=1, allow_loopback=True), clock.now)
+    with maker() as db:
+        (d,), _ = wr.list_deliveries(db, hook, limit=5)
+    assert (d.status, d.last_status) == ("failed", 400) and r.rejected == ["No matching signature found"]
