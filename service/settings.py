@@ -68,6 +68,9 @@ class Settings(BaseSettings):
     webhook_max_attempts: int = 6
     webhook_backoff_base_seconds: float = Field(default=10.0, description="First retry delay (doubling).")
     webhook_backoff_max_seconds: float = 3600.0
+    webhook_secret_overlap_seconds: int = Field(
+        default=86400, ge=0, description="After a secret rotation the old secret still signs for this long."
+    )
 
     # Rate limit (token bucket per key)
     rate_limit_per_second: float = 50.0

@@ -29,25 +29,23 @@ answered with the same ``internal-error`` problem as ``problems.py``'s.
 
 from __future__ import annotations
 
-import contextvars
 import hashlib
 import ipaddress
 import json
 import logging
 import math
 import re
-import sys
 import threading
 import time
 import uuid
 from collections import OrderedDict
 from collections.abc import Callable
-from datetime import UTC, datetime
 from typing import Any
 
 from starlette.routing import BaseRoute, Match
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
+from service.logs import JsonFormatter, RequestIdFilter, configure_logging, request_id_var
 from service.metrics import service_metrics
 
 from .errors import Forbidden, PayloadTooLarge, RateLimited
@@ -76,68 +74,6 @@ UPLOAD_ROUTES: tuple[tuple[str, re.Pattern[str]], ...] = (
 #: Path parameters that name our own resources and may be logged (node ids are the caller's, maybe personal).
 LOGGED_PARAMS = ("graph_id", "job_id", "schedule_id", "webhook_id", "number")
 
-request_id_var: contextvars.ContextVar[str | None] = contextvars.ContextVar("bellwether_request_id", default=None)
-
-
-# -- logging ----------------------------------------------------------------------
-
-_STANDARD_ATTRS = set(logging.LogRecord("", 0, "", 0, "", (), None).__dict__) | {"message", "asctime", "request_id"}
-
-
-class RequestIdFilter(logging.Filter):
-    """Puts the current request id (or None) on every record as ``request_id``."""
-
-    def filter(self, record: logging.LogRecord) -> bool:
-        if not hasattr(record, "request_id"):
-            record.request_id = request_id_var.get()
-        return True
-
-
-class JsonFormatter(logging.Formatter):
-    """One JSON object per line: ``ts``, ``level``, ``logger``, ``msg``, ``request_id`` and the extras."""
-
-    def format(self, record: logging.LogRecord) -> str:
-        doc: dict[str, Any] = {
-            "ts": datetime.fromtimestamp(record.created, UTC).isoformat(timespec="milliseconds"),
-            "level": record.levelname.lower(),
-            "logger": record.name,
-            "msg": record.getMessage(),
-        }
-        rid = getattr(record, "request_id", None) or request_id_var.get()
-        if rid:
-            doc["request_id"] = rid
-        for key, value in record.__dict__.items():
-            if key not in _STANDARD_ATTRS and not key.startswith("_") and key not in doc:
-                doc[key] = value
-        if record.exc_info:
-            doc["exc"] = self.formatException(record.exc_info)
-        return json.dumps(doc, default=str, ensure_ascii=False)
-
-
-_HANDLER_MARK = "_bellwether_handler"
-
-
-def configure_logging(level: str = "INFO", fmt: str = "json") -> None:
-    """Send log records to stderr, one JSON object per line (``fmt="text"``: plain lines).
-
-    Idempotent: a second call replaces the handler it installed, nothing else.
-    The handler sits on the root logger so library warnings come out the same
-    way; uvicorn's own loggers keep their handlers.
-    """
-    root = logging.getLogger()
-    for h in list(root.handlers):
-        if getattr(h, _HANDLER_MARK, False):
-            root.removeHandler(h)
-    handler = logging.StreamHandler(sys.stderr)
-    setattr(handler, _HANDLER_MARK, True)
-    handler.addFilter(RequestIdFilter())
-    if fmt == "json":
-        handler.setFormatter(JsonFormatter())
-    else:
-        handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(name)s [%(request_id)s] %(message)s"))
-    root.addHandler(handler)
-    # Records propagate to the root's handlers whatever the root's own level.
-    logging.getLogger("bellwether").setLevel(level.upper())
 
 
 # -- rate limit -----------------------------------------------------------------------

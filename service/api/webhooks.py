@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import hashlib
 import json
-import secrets
+from datetime import timedelta
 from typing import Annotated
 
 from fastapi import APIRouter, Header, Query, Request, Response, status
 from fastapi.responses import JSONResponse
 
-from service.jobs.webhooks import check_url
+from service.jobs.webhooks import check_url, new_secret
 from storage.repo import idempotency as idem_repo
 from storage.repo import jobs as job_repo
 from storage.repo import webhooks as webhook_repo
@@ -19,7 +19,16 @@ from .deps import DbDep, SettingsDep, TenantDep
 from .errors import InvalidParams
 from .jobs import clock_of, maker_of
 from .schemas.common import PROBLEM_RESPONSES
-from .schemas.webhooks import DeliveryPage, DeliveryRead, WebhookCreate, WebhookCreated, WebhookList, WebhookRead
+from .schemas.webhooks import (
+    DeliveryPage,
+    DeliveryRead,
+    SecretRotate,
+    SecretRotated,
+    WebhookCreate,
+    WebhookCreated,
+    WebhookList,
+    WebhookRead,
+)
 
 __all__ = ["router"]
 
@@ -50,7 +59,7 @@ def create_webhook(
             tenant_id=tenant,
             url=body.url,
             events=list(body.events),
-            secret=body.secret or "whsec_" + secrets.token_urlsafe(32),
+            secret=body.secret or new_secret(),
             description=body.description,
             now=clock_of(request).now(),
         )
@@ -83,6 +92,44 @@ def delete_webhook(webhook_id: str, request: Request, tenant: TenantDep) -> Resp
         webhook_repo.delete_webhook(db, webhook_repo.get_webhook(db, tenant, webhook_id))
         db.commit()
     return Response(status_code=status.HTTP_204_NO_CONTENT)
+
+
+@router.post(
+    "/{webhook_id}/rotate-secret",
+    summary="Replace the signing secret (the answer shows the new one, once); the old one stays valid for an overlap",
+    response_model=SecretRotated,
+)
+def rotate_secret(
+    webhook_id: str,
+    request: Request,
+    tenant: TenantDep,
+    settings: SettingsDep,
+    body: SecretRotate | None = None,
+    idempotency_key: IdemKey = None,
+) -> JSONResponse:
+    """A retry with the same ``Idempotency-Key`` answers the same secret instead of rotating again
+    (a second rotation would retire the secret the receiver still holds)."""
+    seconds = body.overlap_seconds if body is not None else None
+    overlap = timedelta(seconds=settings.webhook_secret_overlap_seconds if seconds is None else seconds)
+    route = f"POST /v1/webhooks/{webhook_id}/rotate-secret"
+    digest = hashlib.sha256(json.dumps({"overlap_seconds": seconds}).encode()).hexdigest()
+    with job_repo.write_session(maker_of(request)) as db:
+        hook = webhook_repo.get_webhook(db, tenant, webhook_id)
+        if idempotency_key:
+            replay = idem_repo.get_replay(db, tenant, idempotency_key, route, digest)
+            if replay is not None:
+                return JSONResponse(replay.body, status_code=200)
+        webhook_repo.rotate_secret(db, hook, secret=new_secret(), now=clock_of(request).now(), overlap=overlap)
+        out = SecretRotated(
+            id=hook.id, secret=hook.secret, previous_secret_expires_at=hook.previous_secret_expires_at
+        ).model_dump(mode="json")
+        if idempotency_key:
+            idem_repo.add_record(
+                db, tenant_id=tenant, key=idempotency_key, route=route, request_hash=digest,
+                status_code=200, body=out, location=None,
+            )
+        db.commit()
+    return JSONResponse(out, status_code=200)
 
 
 @router.get("/{webhook_id}/deliveries", summary="List a webhook's deliveries and their attempts, newest first")

@@ -8,6 +8,7 @@ from typing import TYPE_CHECKING
 
 import uvicorn
 
+from service.logs import configure_logging, uvicorn_log_config
 from service.settings import Settings
 
 if TYPE_CHECKING:
@@ -19,6 +20,7 @@ log = logging.getLogger("bellwether.serve")
 
 
 def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: bool = True) -> int:
+    configure_logging(settings.log_level, settings.log_format)
     settings.data_dir.mkdir(parents=True, exist_ok=True)
     if migrate:
         from storage.migrate import upgrade
@@ -43,6 +45,7 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
             port=settings.port,
             workers=api_processes if api_processes > 1 else None,
             log_level="info",
+            log_config=uvicorn_log_config(settings.log_level, settings.log_format),
             access_log=False,
         )
     finally:

@@ -25,6 +25,7 @@ from typing import Any
 
 from service.jobs.tasks.forecast import warm_kernels
 from service.jobs.worker import Worker, WorkerConfig
+from service.logs import configure_logging
 from service.settings import Settings
 from storage.db import make_engine, make_sessionmaker
 
@@ -38,8 +39,6 @@ PARENT_ENV = "BELLWETHER_WORKER_PARENT_PID"
 
 def run_worker(settings: Settings, *, install_signals: bool = True) -> None:
     """Run one worker until SIGTERM/SIGINT (or, when started by a supervisor, its exit)."""
-    from service.api.middleware import configure_logging
-
     configure_logging(settings.log_level, settings.log_format)
     settings.data_dir.mkdir(parents=True, exist_ok=True)
     engine = make_engine(settings.resolved_database_url())
@@ -187,7 +186,8 @@ def start_workers(settings: Settings, n: int) -> Supervisor:
 
 
 def main() -> None:
-    logging.basicConfig(level=os.environ.get("BELLWETHER_LOG_LEVEL", "INFO"))
+    # Logging is set up by run_worker (JSON lines, one handler): no basicConfig here, which
+    # would add a second, plain-text handler and write every line twice.
     run_worker(Settings())
 
 

@@ -1,72 +1,77 @@
-"""Webhook events: URL safety, signing, the job summary they carry, and delivery.
+"""Webhook events: signing by the Standard Webhooks specification, the job summary they carry, delivery.
 
 Each delivery is a ``POST`` of a JSON body::
 
     {"id": "whd_...", "event": "job.succeeded", "created_at": "...",
      "data": {"job": {"id": "j_...", "status": "succeeded", "kind": "profile", ...}}}
 
-with the headers ``Content-Type: application/json``,
-``Bellwether-Event: job.succeeded``, ``Bellwether-Delivery: whd_...`` and::
+signed as the Standard Webhooks specification (standardwebhooks.com) says,
+with the headers::
 
-    Bellwether-Signature: t=<unix seconds>,v1=<hex HMAC-SHA256>
+    webhook-id: whd_...              the delivery id, the same on every retry
+    webhook-timestamp: 1733350000    unix seconds of this attempt
+    webhook-signature: v1,<base64>   HMAC-SHA256 over "<id>.<timestamp>.<raw body>"
 
-where the HMAC key is the webhook's secret (shown once, when the webhook is
-created) and the message is ``f"{t}.{body}"``, the raw request body bytes
-as received. To verify, in Python::
+The HMAC key is the base64-decoded part of the webhook's secret
+``whsec_<base64>`` (shown once, at creation or rotation). After
+``POST /v1/webhooks/{id}/rotate-secret`` the previous secret stays valid for
+an overlap period and every delivery carries two signatures, separated by a
+space (new secret first); a receiver accepts a delivery when any of them
+matches. Any Standard Webhooks library verifies deliveries, for instance in
+Python::
 
-    import hashlib, hmac, time
+    from standardwebhooks import Webhook
+    payload = Webhook(secret).verify(raw_body, request_headers)
 
-    def verify(secret: str, header: str, body: bytes, tolerance: int = 300) -> bool:
-        parts = dict(p.split("=", 1) for p in header.split(","))
-        t = int(parts["t"])
-        mac = hmac.new(secret.encode(), f"{t}.".encode() + body, hashlib.sha256)
-        return abs(time.time() - t) <= tolerance and hmac.compare_digest(
-            mac.hexdigest(), parts["v1"])
+Receivers should reject old timestamps (the libraries allow five minutes)
+and deduplicate on ``webhook-id``: deliveries are sent at least once. A
+receiver should answer 2xx quickly; anything else (or no answer within the
+timeout) is retried with exponential backoff, and every attempt is logged
+in the delivery row (``GET /v1/webhooks/{id}/deliveries``).
 
-Rejecting old timestamps stops replays; compare the digest in constant
-time. Each attempt is signed afresh (a new ``t``). A receiver should answer
-2xx quickly; anything else (or no answer within the timeout) is retried with
-exponential backoff, and every attempt is logged in the delivery row
-(``GET /v1/webhooks/{id}/deliveries``). Deliveries are sent at least once:
-deduplicate on ``Bellwether-Delivery``.
-
-URLs must be ``https`` and resolve only to public addresses; private,
-link-local, loopback, multicast and reserved addresses are refused (unless
-loopback is allowed by setting, for local use and tests). The address is
-checked again just before each attempt, and redirects are not followed.
+URLs are checked before each attempt (:mod:`service.jobs.webhook_urls`),
+and the attempt connects to an address that check resolved and accepted:
+the host is not looked up again, so a changed DNS answer cannot redirect it
+(the ``Host`` header and the TLS server name stay the URL's host).
+Redirects are not followed.
 """
 
 from __future__ import annotations
 
+import base64
+import binascii
 import hashlib
 import hmac
-import ipaddress
 import json
 import logging
-import socket
+import secrets
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
-from urllib.parse import urlsplit
 
 import httpx
 from sqlalchemy.orm import Session, sessionmaker
 
-from storage.models import Job
+from storage.models import Job, Webhook
 from storage.repo import jobs as job_repo
 from storage.repo import webhooks as webhook_repo
 
+from . import webhook_urls
 from .errors import UnsafeWebhookUrl
+from .webhook_urls import CheckedUrl, Resolver
 
 __all__ = [
     "EVENTS",
-    "SIGNATURE_HEADER",
+    "SECRET_PREFIX",
     "check_url",
+    "new_secret",
+    "secret_key",
+    "check_secret",
     "sign",
     "signature_header",
-    "verify_signature",
+    "signing_secrets",
     "job_summary",
     "event_for_status",
     "queue_job_event",
@@ -78,72 +83,65 @@ __all__ = [
 log = logging.getLogger("bellwether.webhooks")
 
 EVENTS = ("job.succeeded", "job.failed", "job.cancelled")
-SIGNATURE_HEADER = "Bellwether-Signature"
+SECRET_PREFIX = "whsec_"
+#: Key sizes the specification allows for a secret (24 to 64 random bytes).
+SECRET_BYTES = (24, 64)
 
-Resolver = Callable[[str, int], list[str]]
-
-
-def _resolve(host: str, port: int) -> list[str]:
-    infos = socket.getaddrinfo(host, port, type=socket.SOCK_STREAM)
-    return sorted({str(info[4][0]) for info in infos})
+# Looked up at call time, so a test can answer lookups itself (monkeypatch).
+_resolve: Resolver = webhook_urls._resolve
 
 
-def check_url(url: str, *, allow_loopback: bool = False, resolve: Resolver | None = None) -> None:
-    """Refuse a URL that is not https or that resolves to a non-public address.
+def check_url(url: str, *, allow_loopback: bool = False, resolve: Resolver | None = None) -> CheckedUrl:
+    """:func:`service.jobs.webhook_urls.check_url` with this module's resolver by default."""
+    return webhook_urls.check_url(url, allow_loopback=allow_loopback, resolve=resolve or _resolve)
 
-    With ``allow_loopback``, ``http`` and ``https`` URLs whose host resolves
-    only to loopback addresses (127.0.0.0/8, ::1) are accepted too.
+
+def new_secret() -> str:
+    """A fresh ``whsec_<base64>`` secret over 32 random bytes."""
+    return SECRET_PREFIX + base64.b64encode(secrets.token_bytes(32)).decode()
+
+
+def secret_key(secret: str) -> bytes:
+    """The HMAC key of a ``whsec_<base64>`` secret; ValueError saying what is wrong otherwise."""
+    if not secret.startswith(SECRET_PREFIX):
+        raise ValueError(f"a webhook secret is {SECRET_PREFIX!r} followed by standard base64")
+    try:
+        return base64.b64decode(secret[len(SECRET_PREFIX):], validate=True)
+    except (binascii.Error, ValueError) as exc:
+        raise ValueError(f"the part after {SECRET_PREFIX!r} must be standard base64 (with padding)") from exc
+
+
+def check_secret(secret: str) -> str:
+    """A secret chosen by the caller: ``whsec_<base64>`` of 24 to 64 bytes (ValueError otherwise).
+
+    Only new secrets are held to the length; a secret carried over from the
+    earlier scheme (any length) still signs.
     """
-    try:
-        parts = urlsplit(url)
-        port = parts.port
-    except ValueError as exc:
-        raise UnsafeWebhookUrl("the URL cannot be parsed", field="url") from exc
-    host = parts.hostname
-    if parts.scheme not in ("https", "http") or not host:
-        raise UnsafeWebhookUrl("webhook URLs must be absolute https URLs", field="url")
-    if parts.username or parts.password:
-        raise UnsafeWebhookUrl("webhook URLs must not carry credentials", field="url")
-    try:
-        addresses = (resolve or _resolve)(host, port or (443 if parts.scheme == "https" else 80))
-    except OSError as exc:
-        raise UnsafeWebhookUrl(f"the host {host!r} does not resolve", field="url") from exc
-    if not addresses:
-        raise UnsafeWebhookUrl(f"the host {host!r} does not resolve", field="url")
-    ips = [ipaddress.ip_address(a.split("%", 1)[0]) for a in addresses]
-    if allow_loopback and all(ip.is_loopback for ip in ips):
-        return
-    if parts.scheme != "https":
-        raise UnsafeWebhookUrl("webhook URLs must use https", field="url")
-    for ip in ips:
-        mapped = getattr(ip, "ipv4_mapped", None)
-        target = mapped or ip
-        if not target.is_global or target.is_multicast or target.is_reserved:
-            raise UnsafeWebhookUrl(
-                f"the host {host!r} resolves to {ip}, which is not a public address",
-                field="url",
-                address=str(ip),
-            )
+    key = secret_key(secret)
+    low, high = SECRET_BYTES
+    if not low <= len(key) <= high:
+        raise ValueError(f"the secret must decode to {low} to {high} random bytes; it decodes to {len(key)}")
+    return secret
 
 
-def sign(secret: str, timestamp: int, body: bytes) -> str:
-    """Hex HMAC-SHA256 of ``f"{timestamp}.{body}"`` under ``secret``."""
-    return hmac.new(secret.encode(), f"{timestamp}.".encode() + body, hashlib.sha256).hexdigest()
+def sign(secret: str, msg_id: str, timestamp: int, body: bytes) -> str:
+    """``v1,<base64 HMAC-SHA256>`` of ``"<msg_id>.<timestamp>.<body>"`` under the secret's key."""
+    mac = hmac.new(secret_key(secret), f"{msg_id}.{timestamp}.".encode() + body, hashlib.sha256)
+    return "v1," + base64.b64encode(mac.digest()).decode()
 
 
-def signature_header(secret: str, body: bytes, timestamp: int) -> str:
-    return f"t={timestamp},v1={sign(secret, timestamp, body)}"
+def signature_header(secrets_: Sequence[str], msg_id: str, timestamp: int, body: bytes) -> str:
+    """The ``webhook-signature`` value: one signature per secret, space-separated."""
+    return " ".join(sign(s, msg_id, timestamp, body) for s in secrets_)
 
 
-def verify_signature(secret: str, header: str, body: bytes, *, now: int, tolerance: int = 300) -> bool:
-    """The check a receiver makes (also used by the tests)."""
-    try:
-        parts = dict(p.split("=", 1) for p in header.split(","))
-        t = int(parts["t"])
-        given = parts["v1"]
-    except (KeyError, ValueError):
-        return False
-    return abs(now - t) <= tolerance and hmac.compare_digest(sign(secret, t, body), given)
+def signing_secrets(hook: Webhook, now: datetime) -> list[str]:
+    """The current secret, then the previous one while its overlap lasts."""
+    out = [hook.secret]
+    expires = hook.previous_secret_expires_at
+    if hook.previous_secret and expires is not None and expires > now:
+        out.append(hook.previous_secret)
+    return out
 
 
 def encode_body(payload: dict[str, Any]) -> bytes:
@@ -219,8 +217,8 @@ def deliver_due(
         if claimed is None:
             break
         delivery, hook = claimed
-        status_code, error = _send(client, hook.url, hook.secret, delivery.id, delivery.event,
-                                   delivery.payload, policy, now, resolve)
+        status_code, error = _send(client, hook.url, signing_secrets(hook, now()), delivery.id,
+                                   delivery.payload, policy, resolve)
         when = now()
         retry_at = None if status_code is not None and 200 <= status_code < 300 else policy.retry_at(
             delivery.attempts, when
@@ -242,29 +240,49 @@ def deliver_due(
 def _send(
     client: httpx.Client,
     url: str,
-    secret: str,
+    secrets_: list[str],
     delivery_id: str,
-    event: str,
     payload: dict[str, Any],
     policy: DeliveryPolicy,
-    now: Callable[[], datetime],
     resolve: Resolver | None,
 ) -> tuple[int | None, str | None]:
+    """One attempt: check the URL, then POST to an address the check accepted (in order)."""
     try:
-        check_url(url, allow_loopback=policy.allow_loopback, resolve=resolve)
+        checked = check_url(url, allow_loopback=policy.allow_loopback, resolve=resolve)
     except UnsafeWebhookUrl as exc:
         return None, f"refused: {exc.reason}"
     body = encode_body(payload)
+    # Wall time, not the injectable clock: receivers compare it with theirs.
+    timestamp = int(time.time())
+    try:
+        signature = signature_header(secrets_, delivery_id, timestamp, body)
+    except ValueError as exc:  # a secret stored by hand in another form; the API never stores one
+        return None, f"not sent: the webhook's secret cannot sign ({exc}); rotate it"
+    target = httpx.URL(url)
     headers = {
         "Content-Type": "application/json",
-        "User-Agent": "Bellwether-Webhooks/1",
-        "Bellwether-Event": event,
-        "Bellwether-Delivery": delivery_id,
-        # Wall time, not the injectable clock: receivers compare it with theirs.
-        SIGNATURE_HEADER: signature_header(secret, body, int(time.time())),
+        "User-Agent": "Bellwether-Webhooks/2",
+        "Host": target.netloc.decode("ascii"),
+        "webhook-id": delivery_id,
+        "webhook-timestamp": str(timestamp),
+        "webhook-signature": signature,
     }
-    try:
-        r = client.post(url, content=body, headers=headers, timeout=policy.timeout_seconds)
-    except httpx.HTTPError as exc:
-        return None, f"{type(exc).__name__}: {exc}"[:500]
-    return r.status_code, None if r.is_success else f"HTTP {r.status_code}: {r.text[:200]}"
+    # TLS checks the certificate against the URL's host, not the address connected to.
+    extensions = {"sni_hostname": target.raw_host.decode("ascii")} if checked.scheme == "https" else {}
+    error = "no address to connect to"
+    for address in checked.addresses:
+        try:
+            r = client.post(
+                target.copy_with(host=address),
+                content=body,
+                headers=headers,
+                timeout=policy.timeout_seconds,
+                extensions=extensions,
+            )
+        except httpx.ConnectError as exc:  # this address does not answer: try the next one checked
+            error = f"{type(exc).__name__} ({address}): {exc}"[:500]
+            continue
+        except httpx.HTTPError as exc:
+            return None, f"{type(exc).__name__}: {exc}"[:500]
+        return r.status_code, None if r.is_success else f"HTTP {r.status_code}: {r.text[:200]}"
+    return None, error

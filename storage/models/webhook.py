@@ -22,8 +22,12 @@ class Webhook(Base):
     tenant_id: Mapped[str] = mapped_column(String(64), index=True)
     url: Mapped[str] = mapped_column(String(2000))
     events: Mapped[list[str]] = mapped_column(JSON)
-    # Kept in the clear: the service must sign with it. Shown once, at creation.
-    secret: Mapped[str] = mapped_column(String(200))
+    # Kept in the clear: the service must sign with it. Shown once, at creation or rotation.
+    # ``whsec_<base64>`` (Standard Webhooks); the base64 part is the HMAC key.
+    secret: Mapped[str] = mapped_column(String(300))
+    # The secret before the last rotation: deliveries are signed with it too until it expires.
+    previous_secret: Mapped[str | None] = mapped_column(String(300), default=None)
+    previous_secret_expires_at: Mapped[datetime | None] = mapped_column(UtcDateTime, default=None)
     description: Mapped[str | None] = mapped_column(String(500), default=None)
     active: Mapped[bool] = mapped_column(Boolean, default=True)
     created_at: Mapped[datetime] = mapped_column(UtcDateTime, default=utcnow)

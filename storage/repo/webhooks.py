@@ -24,6 +24,7 @@ __all__ = [
     "get_webhook",
     "list_webhooks",
     "delete_webhook",
+    "rotate_secret",
     "add_event",
     "list_deliveries",
     "any_due",
@@ -74,6 +75,18 @@ def delete_webhook(db: Session, hook: Webhook) -> None:
     db.execute(delete(WebhookDelivery).where(WebhookDelivery.webhook_id == hook.id))
     db.delete(hook)
     db.flush()
+
+
+def rotate_secret(db: Session, hook: Webhook, *, secret: str, now: datetime, overlap: timedelta) -> Webhook:
+    """Make ``secret`` current; the current one stays valid (signed with too) for ``overlap``.
+
+    A secret already in its overlap is dropped: at most two are ever valid.
+    """
+    hook.previous_secret = hook.secret if overlap > timedelta(0) else None
+    hook.previous_secret_expires_at = now + overlap if overlap > timedelta(0) else None
+    hook.secret = secret
+    db.flush()
+    return hook
 
 
 def add_event(

@@ -5,11 +5,25 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, field_validator
+
+from service.jobs.webhooks import check_secret
 
 from .common import Page
 
-__all__ = ["WebhookEvent", "WebhookCreate", "WebhookRead", "WebhookCreated", "WebhookList", "DeliveryRead", "DeliveryPage"]
+__all__ = [
+    "WebhookEvent",
+    "WebhookCreate",
+    "WebhookRead",
+    "WebhookCreated",
+    "WebhookList",
+    "SecretRotate",
+    "SecretRotated",
+    "DeliveryRead",
+    "DeliveryPage",
+]
+
+MAX_OVERLAP_SECONDS = 7 * 24 * 3600
 
 WebhookEvent = Literal["job.succeeded", "job.failed", "job.cancelled"]
 
@@ -20,9 +34,17 @@ class WebhookCreate(BaseModel):
     url: str = Field(min_length=1, max_length=2000, examples=["https://crm.example.com/hooks/bellwether"])
     events: list[WebhookEvent] = Field(min_length=1, examples=[["job.succeeded", "job.failed"]])
     secret: str | None = Field(
-        default=None, min_length=16, max_length=200, description="Signing secret; generated when omitted."
+        default=None,
+        max_length=300,
+        description="Signing secret, whsec_ followed by the standard base64 of 24 to 64 random bytes; "
+        "generated when omitted.",
     )
     description: str | None = Field(default=None, max_length=500)
+
+    @field_validator("secret")
+    @classmethod
+    def _secret_form(cls, value: str | None) -> str | None:
+        return None if value is None else check_secret(value)
 
 
 class WebhookRead(BaseModel):
@@ -34,10 +56,33 @@ class WebhookRead(BaseModel):
     description: str | None
     active: bool
     created_at: datetime
+    previous_secret_expires_at: datetime | None = Field(
+        default=None, description="Until then deliveries are also signed with the secret before the last rotation."
+    )
 
 
 class WebhookCreated(WebhookRead):
-    secret: str = Field(description="The HMAC-SHA256 signing key. Shown only in this answer: keep it.")
+    secret: str = Field(description="The signing secret (whsec_<base64>). Shown only in this answer: keep it.")
+
+
+class SecretRotate(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    overlap_seconds: int | None = Field(
+        default=None,
+        ge=0,
+        le=MAX_OVERLAP_SECONDS,
+        description="How long the current secret stays valid beside the new one (default: the server's "
+        "setting, 24 hours); 0 retires it at once.",
+    )
+
+
+class SecretRotated(BaseModel):
+    id: str
+    secret: str = Field(description="The new signing secret (whsec_<base64>). Shown only in this answer: keep it.")
+    previous_secret_expires_at: datetime | None = Field(
+        description="Until then deliveries carry a second signature made with the previous secret."
+    )
 
 
 class WebhookList(BaseModel):
