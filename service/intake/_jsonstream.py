@@ -185,6 +185,8 @@ def _parser_fault(exc: Exception, line: int | None) -> UploadError:
             return UploadError("not valid UTF-8", line=line)
         return UploadError(f"invalid JSON: {first.partition(': ')[2] or first}", line=line)
     cause = exc.__cause__ or exc.__context__
+    if isinstance(exc, ArithmeticError) or isinstance(cause, ArithmeticError):
+        return _long_number(None, line)  # a number decimal cannot hold (an exponent of 200 digits)
     if isinstance(exc, (SystemError, ValueError)) and "digits" in f"{exc} {cause}":
         return _long_number(None, line)  # an integer past Python's own conversion limit
     raise exc
@@ -205,12 +207,15 @@ def _records(member: str | None, pieces: Iterable[bytes], multiple: bool = False
                 piece = piece[len(_BOM):]
         longest, run = _digit_runs(piece, run)
         if longest > MAX_DIGIT_RUN:
-            fault = _long_number(longest, line)  # the piece is not parsed
+            fault = _long_number(None, line)  # the piece is not parsed
         elif piece:  # an empty piece would end the document
             try:
                 coro.send(piece)
             except Exception as exc:  # noqa: BLE001 - sorted out by _parser_fault
                 fault = _parser_fault(exc, line)
+                # The events of a failed piece may hold a half-made entry the
+                # C backend never filled in: reading it crashes; drop them all.
+                del events[:]
         builder.feed(events, line)
         del events[:]
         yield from builder.take()
@@ -223,6 +228,7 @@ def _records(member: str | None, pieces: Iterable[bytes], multiple: bool = False
         coro.close()
     except Exception as exc:  # noqa: BLE001
         fault = _parser_fault(exc, line)
+        del events[:]
     builder.feed(events, line)
     yield from builder.take()
     if builder.fault is not None:
