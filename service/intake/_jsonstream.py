@@ -103,47 +103,91 @@ class _Builder:
         return out
 
     def _feed(self, events: Iterable[tuple[str, Any]], line: int | None) -> None:
-        stack, keys = self.stack, self.keys
-        for ev, v in events:
-            if ev == "map_key":
-                if stack:
-                    keys[-1] = v
-                elif self.depth == 1 and self.top_map:
-                    self.at_member = v == self.member
-            elif ev in _OPEN:
-                self.depth += 1
-                if self.depth > MAX_DEPTH:
-                    raise _too_deep(self.depth, line)
-                if stack or (self.in_records and self.depth == self.rec_depth + 1):
-                    self._count(line)
-                    stack.append({} if ev == "start_map" else [])
-                    keys.append("")
-                elif self.depth == 1:
-                    if ev == "start_array":
-                        self.in_records, self.rec_depth, self.found = True, 1, True
-                    else:
-                        self.top_map = True
-                elif self.depth == 2 and self.top_map and self.at_member:
-                    if ev != "start_array":
-                        raise _shape(self.member or "")
-                    self.in_records, self.rec_depth, self.found = True, 2, True
-            elif ev in _CLOSE:
-                self.depth -= 1
-                if stack:
-                    keys.pop()
-                    self._put(stack.pop())
-                elif self.in_records and self.depth == self.rec_depth - 1:
-                    self.in_records = False  # the records array closed
+        it = iter(events)
+        for ev, v in it:
+            if ev == "start_map" and not self.stack and self.in_records and self.depth == self.rec_depth:
+                self._flat_record(it, line)
             else:
-                if ev == "number":
-                    v = self._number(v, line)
-                if stack:
+                self._event(ev, v, line)
+
+    def _flat_record(self, it: Iterator[tuple[str, Any]], line: int | None) -> None:
+        """A record object read in one loop while it stays flat (the common case).
+
+        A nested value, or the end of the events mid-record, hands the record
+        over to the general path (:meth:`_event`) with its stack.
+        """
+        rec: dict[str, object] = {}
+        key = ""
+        count = 1
+        for ev, v in it:
+            if ev == "map_key":
+                key = v
+            elif ev == "end_map":
+                if count > MAX_RECORD_VALUES:
+                    self.values = count
                     self._count(line)
-                    self._put(v)
-                elif self.in_records and self.depth == self.rec_depth:
-                    self._put(v)
-                elif self.depth == 0 or (self.depth == 1 and self.top_map and self.at_member):
+                self.count += 1
+                self.out.append((self.count, rec))
+                return
+            elif ev == "number":
+                rec[key] = v if type(v) is int and -_BIG < v < _BIG else self._number(v, line, key)
+                count += 1
+            elif ev in _OPEN:
+                self._open_record(rec, key, count)
+                self._event(ev, v, line)
+                return
+            else:
+                rec[key] = v
+                count += 1
+        self._open_record(rec, key, count)  # continued in the next piece
+
+    def _open_record(self, rec: dict[str, object], key: str, count: int) -> None:
+        self.depth += 1
+        self.stack.append(rec)
+        self.keys.append(key)
+        self.values = count
+
+    def _event(self, ev: str, v: Any, line: int | None) -> None:
+        stack, keys = self.stack, self.keys
+        if ev == "map_key":
+            if stack:
+                keys[-1] = v
+            elif self.depth == 1 and self.top_map:
+                self.at_member = v == self.member
+        elif ev in _OPEN:
+            self.depth += 1
+            if self.depth > MAX_DEPTH:
+                raise _too_deep(self.depth, line)
+            if stack or (self.in_records and self.depth == self.rec_depth + 1):
+                self._count(line)
+                stack.append({} if ev == "start_map" else [])
+                keys.append("")
+            elif self.depth == 1:
+                if ev == "start_array":
+                    self.in_records, self.rec_depth, self.found = True, 1, True
+                else:
+                    self.top_map = True
+            elif self.depth == 2 and self.top_map and self.at_member:
+                if ev != "start_array":
                     raise _shape(self.member or "")
+                self.in_records, self.rec_depth, self.found = True, 2, True
+        elif ev in _CLOSE:
+            self.depth -= 1
+            if stack:
+                keys.pop()
+                self._put(stack.pop())
+            elif self.in_records and self.depth == self.rec_depth - 1:
+                self.in_records = False  # the records array closed
+        else:
+            if ev == "number":
+                v = self._number(v, line, keys[-1] if keys and keys[-1] else None)
+            if stack:
+                self._count(line)
+                self._put(v)
+            elif self.in_records and self.depth == self.rec_depth:
+                self._put(v)
+            elif self.depth == 0 or (self.depth == 1 and self.top_map and self.at_member):
+                raise _shape(self.member or "")
 
     def _count(self, line: int | None) -> None:
         self.values += 1
@@ -166,8 +210,7 @@ class _Builder:
         self.values = 0
         self.out.append((self.count, value))
 
-    def _number(self, v: int | Decimal, line: int | None) -> int | float:
-        column = self.keys[-1] if self.keys and self.keys[-1] else None
+    def _number(self, v: int | Decimal, line: int | None, column: str | None) -> int | float:
         if type(v) is int:
             if -_BIG < v < _BIG:
                 return v
