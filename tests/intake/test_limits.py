@@ -262,3 +262,27 @@ def test_folding_without_weights_counts_records(monkeypatch):
     t = read_edges_csv(io.BytesIO(body), Interner(), fold=fold_with(True, "sum"), block_bytes=64)
     s, d, w, _, _ = merge_duplicates(t.src, t.dst, t.weight, None, directed=True, rule="sum")
     assert (s.tolist(), d.tolist(), w.tolist(), t.records) == ([0, 1], [1, 2], [100.0, 1.0], 101)
+
+
+# ------------------------------------------------------------------ where faults are found
+
+
+def test_json_fault_far_into_the_body_names_its_line():
+    # Past the first 64 KiB chunk: the line comes from reading again line by line.
+    recs = ",\n".join(json.dumps({"source": f"s{i}", "target": f"t{i}"}) for i in range(5000))
+    body = ("[\n" + recs + ',\n{"source": "a", "target": }\n]').encode()
+    assert len(body) > 3 * 65536
+    err = fails(read_edges_json, body)
+    assert (err.line, err.unit) == (5002, "line") and "invalid JSON" in err.reason
+    body = ("[\n" + recs + ',\n{"source": "a", "target": "b", "weight": ' + "9" * 150 + "}\n]").encode()
+    err = fails(read_edges_json, body)
+    assert isinstance(err, TooLong) and err.line == 5002
+
+
+def test_ndjson_line_with_many_brackets_within_the_depth_is_read_alike():
+    # More brackets than the depth limit, but shallow: read by the bounded builder,
+    # it gives what json.loads gives.
+    record = {"id": "a", "pairs": [[i, i + 1] for i in range(40)], "flag": True, "none": None, "x": 0.25}
+    t = read_nodes_ndjson(io.BytesIO(json.dumps(record).encode() + b"\n"), Interner())
+    assert t.extra["pairs"] == [json.dumps(record["pairs"])]
+    assert t.extra["flag"] == ["true"] and t.extra["x"] == ["0.25"]
