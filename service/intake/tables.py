@@ -438,7 +438,7 @@ def parse_extra(v: object) -> str | None:
     if isinstance(v, str):
         return v
     if isinstance(v, float) and not math.isfinite(v):
-        raise ValueError("must be a finite number")
+        raise ValueError("must be a finite number: this one overflows (write it as text to keep it)")
     return json.dumps(v, ensure_ascii=False, allow_nan=False)
 
 
