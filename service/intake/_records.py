@@ -8,7 +8,9 @@ from . import tables
 from .errors import MissingColumn, UnknownColumn, UploadError
 from .tables import EdgeOptions, EdgeSink, Unit, json_id
 
-__all__ = ["EdgeRecords", "json_id"]
+__all__ = ["EdgeRecords"]
+
+_SCALARS = (int, float, str)  # JSON values a weight or probability may be
 
 
 class EdgeRecords:
@@ -58,13 +60,13 @@ class EdgeRecords:
             if not self.any_w:
                 self.seen.add(self.wcol)
                 self.any_w = True
-            if type(w) is bool or not isinstance(w, int | float | str):
+            if type(w) is bool or not isinstance(w, _SCALARS):
                 w = json.dumps(w)  # refused by the sink, shown as written
         p = rec_d.get(self.pcol)
         has_p = p is not None
         if has_p is not self.has_p:
             self._probability_change(has_p, where)
-        if has_p and (type(p) is bool or not isinstance(p, int | float | str)):
+        if has_p and (type(p) is bool or not isinstance(p, _SCALARS)):
             p = json.dumps(p)
         self.ids += (s, t)
         self.w.append(w)
