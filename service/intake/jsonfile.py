@@ -18,7 +18,7 @@ from ._jsonstream import json_records, ndjson_records
 from .errors import EmptyUpload, MissingColumn, UploadError
 from .interner import Interner
 from .limits import SizeLimits
-from ._records import EdgeRecords, json_id
+from ._records import EdgeRecords
 from .tables import (
     EdgeOptions,
     EdgeSink,
@@ -28,6 +28,7 @@ from .tables import (
     NodeSink,
     NodeTable,
     Unit,
+    json_id,
 )
 
 __all__ = ["read_edges_ndjson", "read_edges_json", "read_nodes_ndjson", "read_nodes_json"]
