@@ -36,7 +36,7 @@ from service.analytics.errors import EmptyGraph
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.analytics.summary import graph_summary
 from service.intake import merge
-from service.intake.tables import ExtraColumns
+from service.intake.tables import F64, I32, ExtraColumns, Fold
 from service.loader import LoadedVersion, version_arrays
 
 __all__ = ["UploadOptions", "BuiltVersion", "build_version"]
@@ -65,6 +65,8 @@ class _EdgeReadOptions(TypedDict):
     probability: str | None
     allow_self_loops: bool
     extra_columns: ExtraColumns
+    limits: intake.SizeLimits | None
+    fold: Fold | None
 
 
 @dataclass
@@ -85,8 +87,14 @@ def build_version(
     directed: bool,
     allow_self_loops: bool,
     previous: LoadedVersion | None,
+    limits: intake.SizeLimits | None = None,
 ) -> BuiltVersion:
-    """Read ``path`` and apply it to ``previous``; raise intake/analytics errors on bad input."""
+    """Read ``path`` and apply it to ``previous``; raise intake/analytics errors on bad input.
+
+    ``limits`` bounds ids, labels and values (the service's settings; the
+    readers' defaults when None). Edge readers merge repeated edges by the
+    upload's rule as they read, so memory follows the distinct edges.
+    """
     if previous is None and options.mode == "remove":
         raise intake.UploadError("the graph has no version to remove from yet")
     interner = intake.Interner.from_ids(previous.ids) if previous is not None else intake.Interner()
@@ -98,6 +106,8 @@ def build_version(
         probability=options.probability,
         allow_self_loops=allow_self_loops,
         extra_columns=options.extra_columns,
+        limits=limits,
+        fold=_folder(directed, options.duplicates),
     )
     edges: intake.EdgeTable | None = None
     nodes: intake.NodeTable | None = None
@@ -110,6 +120,8 @@ def build_version(
                 probability=options.probability,
                 allow_self_loops=allow_self_loops,
                 extra_columns=options.extra_columns,
+                limits=limits,
+                fold=edge_opts["fold"],
             )
         elif options.part == "edges":
             reader = {
@@ -124,7 +136,7 @@ def build_version(
                 "ndjson": intake.read_nodes_ndjson,
                 "json": intake.read_nodes_json,
             }[options.fmt]
-            nodes = reader_n(fh, interner, id=options.id)
+            nodes = reader_n(fh, interner, id=options.id, limits=limits)
 
     stats: dict[str, Any] = {}
     had_edges = edges is not None
@@ -137,13 +149,16 @@ def build_version(
     ids = interner.ids[:n]
     del interner  # its id -> index dict is not needed past reading
 
+    # Records the reader already merged into an earlier record of the same edge.
+    records_folded = edges.records - edges.m if edges is not None else 0
+
     # 1. Edges.
     if edges is not None and (options.mode == "replace" or previous is None):
         src, dst, w, p, merged = merge.merge_duplicates(
             edges.src, edges.dst, edges.weight, edges.probability, directed=directed, rule=options.duplicates,
             overwrite_input=True,  # the table is ours and dropped next: sort its arrays in place
         )
-        stats["duplicates_merged"] = int(merged)
+        stats["duplicates_merged"] = int(merged) + records_folded
         edges = None  # the merged arrays replace the table: free it before the summary
         graph = GraphArrays(n, directed, src, dst, w, p)
     elif edges is not None and options.mode != "replace":  # always true here; narrows the mode
@@ -194,6 +209,18 @@ def build_version(
         **stats,
     }
     return BuiltVersion(arrays, manifest, summary, origin, graph.n, graph.m, stats)
+
+
+def _folder(directed: bool, rule: merge.MergeRule) -> Fold:
+    """The readers' fold: merge repeated edges by the upload's rule, in the reader's buffers."""
+
+    def fold(src: I32, dst: I32, weight: F64, probability: F64 | None) -> tuple[I32, I32, F64, F64 | None]:
+        s, d, w, p, _ = merge.merge_duplicates(
+            src, dst, weight, probability, directed=directed, rule=rule, overwrite_input=True
+        )
+        return s, d, w, p
+
+    return fold
 
 
 def _empty_graph(directed: bool) -> GraphArrays:

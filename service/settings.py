@@ -27,6 +27,15 @@ class Settings(BaseSettings):
     # Limits
     max_upload_bytes: int = Field(default=2 * GiB, description="Upload body limit (413 past it).")
     max_body_bytes: int = Field(default=8 * MiB, description="Body limit of non-upload routes.")
+    upload_max_id_chars: int = Field(
+        default=256, ge=1, description="Longest node id an upload may carry, in characters (422 past it)."
+    )
+    upload_max_label_chars: int = Field(
+        default=512, ge=1, description="Longest segment, region, label or column name in an upload (422 past it)."
+    )
+    upload_max_value_chars: int = Field(
+        default=1024, ge=1, description="Longest other node value (a free attribute) in an upload (422 past it)."
+    )
     page_limit_max: int = 1000
     page_limit_default: int = 50
 

@@ -11,6 +11,7 @@ from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 
 
+from service.intake import SizeLimits
 from service.loader import load_version
 from storage.db import write_session
 from storage.repo import graphs as graph_repo
@@ -187,6 +188,9 @@ async def create_version(
             id=id,
             extra_columns=extra_columns,
         )
+        limits = SizeLimits(
+            settings.upload_max_id_chars, settings.upload_max_label_chars, settings.upload_max_value_chars
+        )
         route = f"POST /v1/graphs/{graph_id}/versions"
         digest = _hash(spool.sha256, options)
 
@@ -206,7 +210,8 @@ async def create_version(
                 directed, self_loops = g.directed, g.allow_self_loops
                 previous = load_version(db, graph_repo.get_version(db, g)) if based_on else None
             made = ingest.build_version(
-                spool.path, options, directed=directed, allow_self_loops=self_loops, previous=previous
+                spool.path, options, directed=directed, allow_self_loops=self_loops, previous=previous,
+                limits=limits,
             )
             with write_session(maker) as db:
                 g = graph_repo.get_graph(db, tenant, graph_id)

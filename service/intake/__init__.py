@@ -7,7 +7,12 @@ indices from an :class:`Interner`, refusing malformed input with an
 folds duplicate edges by the declared rule and applies append/remove deltas
 to a stored version's :class:`~service.analytics.graph.GraphArrays`.
 
-It imports the standard library, numpy, defusedxml and
+Limits (:mod:`.limits`) bound what one upload may hold: ids, labels and
+values in characters (settings of the service, passed in as
+:class:`SizeLimits`), JSON nesting and number length, so a hostile body is
+refused with its line instead of costing memory or time.
+
+It imports the standard library, numpy, defusedxml, ijson and
 ``service.analytics.graph`` only: no HTTP, database or pydantic code.
 """
 
@@ -21,11 +26,21 @@ from .errors import (
     InvalidOption,
     MissingColumn,
     UnknownColumn,
+    TooDeep,
+    TooLong,
     UnsafeXml,
     UploadError,
 )
 from .graphml import GRAPHML_NS, read_graphml
 from .interner import MAX_NODES, Interner
+from .limits import (
+    MAX_DEPTH,
+    MAX_LINE_BYTES,
+    MAX_NUMBER_CHARS,
+    MAX_RECORD_VALUES,
+    MAX_TOKEN_BYTES,
+    SizeLimits,
+)
 from .jsonfile import read_edges_json, read_edges_ndjson, read_nodes_json, read_nodes_ndjson
 from .merge import (
     MERGE_RULES,
@@ -49,7 +64,16 @@ __all__ = [
     "MissingColumn",
     "UnknownColumn",
     "UnsafeXml",
+    "TooDeep",
+    "TooLong",
     "MAX_VALUE_CHARS",
+    # limits
+    "SizeLimits",
+    "MAX_DEPTH",
+    "MAX_NUMBER_CHARS",
+    "MAX_RECORD_VALUES",
+    "MAX_LINE_BYTES",
+    "MAX_TOKEN_BYTES",
     # ids and tables
     "Interner",
     "MAX_NODES",

@@ -21,7 +21,8 @@ import numpy as np
 
 from .errors import EmptyUpload, MissingColumn, UnknownColumn, UploadError
 from .interner import Interner
-from .tables import EdgeOptions, EdgeSink, EdgeTable, ExtraColumns, Locate, NodeSink, NodeTable
+from .limits import SizeLimits
+from .tables import EdgeOptions, EdgeSink, EdgeTable, ExtraColumns, Fold, Locate, NodeSink, NodeTable
 
 __all__ = ["read_edges_csv", "read_nodes_csv"]
 
@@ -39,6 +40,8 @@ def read_edges_csv(
     probability: str | None = None,
     allow_self_loops: bool = False,
     extra_columns: ExtraColumns = "error",
+    limits: SizeLimits | None = None,
+    fold: Fold | None = None,
     block_bytes: int = BLOCK_BYTES,
 ) -> EdgeTable:
     """Read edges from an RFC 4180 CSV file with a header row.
@@ -54,6 +57,10 @@ def read_edges_csv(
     probability : likewise for explicit edge probabilities (``probability``).
     allow_self_loops : accept edges whose source equals their target.
     extra_columns : ``"error"`` refuses other columns, ``"ignore"`` skips them.
+    limits : longest id (and label, value) accepted; the defaults of
+        :class:`~service.intake.limits.SizeLimits` when None.
+    fold : merges repeated edges as blocks arrive (the upload's duplicate
+        rule), so memory follows distinct edges; None keeps every record.
     block_bytes : read size; only tests change it.
 
     Returns
@@ -95,7 +102,7 @@ def read_edges_csv(
     opts = EdgeOptions(source, target, weight, probability, allow_self_loops, extra_columns)
     n0 = len(interner)
     try:
-        sink = EdgeSink(interner, opts)
+        sink = EdgeSink(interner, opts, limits=limits, fold=fold)
         size, seen = _body_size(fh), 0
         blocks = _blocks(fh, block_bytes)
         header, hline, first = _header(blocks)
@@ -130,6 +137,7 @@ def read_nodes_csv(
     interner: Interner,
     *,
     id: str = "id",  # noqa: A002 - the API's query parameter name
+    limits: SizeLimits | None = None,
     block_bytes: int = BLOCK_BYTES,
 ) -> NodeTable:
     """Read node attributes from a CSV file with a header row.
@@ -155,7 +163,7 @@ def read_nodes_csv(
     """
     n0 = len(interner)
     try:
-        sink = NodeSink(interner, id_column=id)
+        sink = NodeSink(interner, id_column=id, limits=limits)
         blocks = _blocks(fh, block_bytes)
         header, hline, first = _header(blocks)
         if id not in header:

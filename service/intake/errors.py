@@ -16,6 +16,8 @@ __all__ = [
     "MissingColumn",
     "UnknownColumn",
     "UnsafeXml",
+    "TooDeep",
+    "TooLong",
     "MAX_VALUE_CHARS",
 ]
 
@@ -118,6 +120,30 @@ class UnknownColumn(UploadError):
 
 class UnsafeXml(UploadError):
     """GraphML with a DTD or entity declarations is refused."""
+
+
+class TooDeep(UploadError):
+    """JSON nested deeper than the limit; refused before it is built."""
+
+    def __init__(self, reason: str | None = None, *, depth: int, limit: int, **kw: object) -> None:
+        self.depth, self.limit = depth, limit
+        super().__init__(reason, **kw)  # type: ignore[arg-type]
+
+    def as_dict(self) -> dict[str, object]:
+        return {**super().as_dict(), "depth": self.depth, "limit": self.limit}
+
+
+class TooLong(UploadError):
+    """A node id, label, value or number longer than its limit."""
+
+    def __init__(
+        self, reason: str | None = None, *, length: int | None, limit: int, **kw: object
+    ) -> None:
+        self.length, self.limit = length, limit
+        super().__init__(reason, **kw)  # type: ignore[arg-type]
+
+    def as_dict(self) -> dict[str, object]:
+        return {**super().as_dict(), "length": self.length, "limit": self.limit}
 
 
 def _cut(value: object) -> str:

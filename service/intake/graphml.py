@@ -15,16 +15,20 @@ from typing import BinaryIO, NamedTuple
 from defusedxml import DefusedXmlException
 from defusedxml.ElementTree import DefusedXMLParser, ParseError
 
-from .errors import UnsafeXml, UploadError
+from .errors import TooLong, UnsafeXml, UploadError
 from .interner import Interner
+from .limits import MAX_TOKEN_BYTES, SizeLimits
+from ._records import EdgeRecords
 from .tables import (
+    DEFAULT_LIMITS,
     EdgeOptions,
-    EdgeRecords,
     EdgeSink,
     EdgeTable,
     ExtraColumns,
+    Fold,
     NodeSink,
     NodeTable,
+    id_too_long,
 )
 
 __all__ = ["read_graphml", "GRAPHML_NS"]
@@ -43,6 +47,8 @@ def read_graphml(
     probability: str | None = None,
     allow_self_loops: bool = False,
     extra_columns: ExtraColumns = "error",
+    limits: SizeLimits | None = None,
+    fold: Fold | None = None,
 ) -> tuple[EdgeTable, NodeTable]:
     """Read a GraphML document's edges and nodes.
 
@@ -61,6 +67,11 @@ def read_graphml(
     extra_columns : ``"error"`` refuses edge data under any other key name,
         ``"ignore"`` skips it. Data holding child elements (drawing
         information some editors write) is always skipped.
+    limits, fold : as in :func:`service.intake.read_edges_csv`. An id
+        attribute over the limit is refused at its tag; a tag or comment
+        longer than :data:`~service.intake.limits.MAX_TOKEN_BYTES` is refused
+        as soon as that much of it has arrived, before the XML parser reads
+        it whole (its time grows with the square of a token's length).
 
     Returns
     -------
@@ -107,14 +118,18 @@ def read_graphml(
     opts = EdgeOptions("source", "target", weight, probability, allow_self_loops, extra_columns)
     n0 = len(interner)
     try:
-        events = _Events(interner, opts)
+        events = _Events(interner, opts, DEFAULT_LIMITS if limits is None else limits, fold)
         parser = DefusedXMLParser(
             target=events, forbid_dtd=True, forbid_entities=True, forbid_external=True
         )
         events.expat = parser.parser
+        fed = 0
         try:
             while chunk := fh.read(READ_BYTES):
                 parser.feed(chunk)
+                fed += len(chunk)
+                if fed - events.mark > MAX_TOKEN_BYTES:
+                    events.token_too_long(fed - events.mark)
             parser.close()
         except DefusedXmlException as exc:
             raise UnsafeXml(
@@ -141,17 +156,23 @@ class _Key(NamedTuple):
 class _Events:
     """Parser target: turns start/end/data events into node and edge records."""
 
-    def __init__(self, interner: Interner, opts: EdgeOptions) -> None:
+    def __init__(
+        self, interner: Interner, opts: EdgeOptions, limits: SizeLimits, fold: Fold | None
+    ) -> None:
         self.interner = interner
         self.opts = opts
+        self.limits = limits
+        self.text_chars = max(limits.label_chars, limits.value_chars)  # longest <data> text
         self.expat: object = None
-        self.nodes = NodeSink(interner)
-        self.edges = EdgeRecords(EdgeSink(interner, opts), opts, "line")
+        self.mark = 0  # byte offset of the latest parser event
+        self.nodes = NodeSink(interner, limits=limits)
+        self.edges = EdgeRecords(EdgeSink(interner, opts, limits=limits, fold=fold), opts, "line")
         self.keys: dict[str, _Key] = {}
         self.stack: list[str] = []
         self.root_seen = False
         self.graphs = 0
         self.text: list[str] | None = None  # collecting <data>/<default> text
+        self.text_len = 0
         self.text_depth = 0
         self.nested = False
         self.key: dict[str, str] | None = None
@@ -170,9 +191,22 @@ class _Events:
     def fail(self, reason: str, line: int | None = None, **kw: object) -> None:
         raise UploadError(reason, line=self.line() if line is None else line, **kw)  # type: ignore[arg-type]
 
+    def _at(self) -> None:
+        self.mark = getattr(self.expat, "CurrentByteIndex", 0) or self.mark
+
+    def token_too_long(self, size: int) -> None:
+        """A tag or comment has run past MAX_TOKEN_BYTES without an event: refuse it now."""
+        raise TooLong(
+            f"an XML tag or comment longer than {MAX_TOKEN_BYTES // 2**20} MiB: "
+            f"node ids may be at most {self.limits.id_chars} characters and values "
+            f"{self.limits.value_chars}",
+            line=self.line(), length=size, limit=MAX_TOKEN_BYTES,
+        )
+
     # -- parser target protocol
 
     def start(self, tag: str, attrib: dict[str, str]) -> None:
+        self._at()
         name = tag.rpartition("}")[2]
         depth = len(self.stack)
         self.stack.append(name)
@@ -207,10 +241,23 @@ class _Events:
             self._collect()
 
     def data(self, text: str) -> None:
+        self._at()
         if self.text is not None and len(self.stack) == self.text_depth:
             self.text.append(text)
+            self.text_len += len(text)
+            if self.text_len > self.text_chars and not self.nested:
+                raise TooLong(
+                    f"value longer than {self.text_chars} characters: keep notes short, "
+                    "or store long text elsewhere and upload a reference to it",
+                    line=self.data_line or self.line(), column=self._key_name(self.data_key),
+                    length=self.text_len, limit=self.text_chars,
+                )
+
+    def comment(self, text: str) -> None:
+        self._at()
 
     def end(self, tag: str) -> None:
+        self._at()
         depth = len(self.stack)
         name = self.stack.pop()
         if self.text is not None:
@@ -241,6 +288,7 @@ class _Events:
 
     def _collect(self) -> None:
         self.text = []
+        self.text_len = 0
         self.text_depth = len(self.stack)
         self.nested = False
 
@@ -254,6 +302,7 @@ class _Events:
             node_id = attrib.get("id", "")
             if not node_id:
                 self.fail("<node> without an id", column="id")
+            self._check_id(node_id, "id")
             self.item_id = node_id
             self.interner.intern(node_id)
         else:
@@ -261,8 +310,19 @@ class _Events:
             for col, end in zip(("source", "target"), ends):
                 if not end:
                     self.fail(f"<edge> without a {col}", column=col)
+                self._check_id(end, col)
                 self.interner.intern(end)
             self.item_ends = ends
+
+    def _key_name(self, key_id: str | None) -> str | None:
+        key = self.keys.get(key_id or "")
+        return key.name if key is not None else key_id
+
+    def _check_id(self, node_id: str, column: str) -> None:
+        limit = self.limits.id_chars
+        if len(node_id) > limit:
+            raise TooLong(id_too_long(limit), line=self.line(), column=column, value=node_id,
+                          length=len(node_id), limit=limit)
 
     def _datum(self, key_id: str, text: str) -> None:
         key = self.keys.get(key_id)

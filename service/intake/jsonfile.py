@@ -1,8 +1,9 @@
 """NDJSON and JSON readers for edges and node attributes.
 
-NDJSON is read line by line (memory: one line plus the output). A JSON
-document is parsed whole with :func:`json.load`; that is bounded by the
-upload size limit the HTTP layer enforces before calling these readers.
+NDJSON is read line by line (memory: one line plus the output); a JSON
+document is parsed incrementally with ijson (memory: one 64 KiB chunk and
+the records completed in it). Both refuse nesting, numbers and records
+beyond the bounds of :mod:`service.intake.limits` (see ``_jsonstream``).
 Keys are the column names; ``source``/``target``/``id`` values are strings
 or integers (integers become their decimal text).
 """
@@ -11,16 +12,19 @@ from __future__ import annotations
 
 import json
 from collections.abc import Iterable, Iterator
-from typing import Any, BinaryIO
+from typing import BinaryIO
 
+from ._jsonstream import json_records, ndjson_records
 from .errors import EmptyUpload, MissingColumn, UploadError
 from .interner import Interner
+from .limits import SizeLimits
+from ._records import EdgeRecords
 from .tables import (
     EdgeOptions,
-    EdgeRecords,
     EdgeSink,
     EdgeTable,
     ExtraColumns,
+    Fold,
     NodeSink,
     NodeTable,
     Unit,
@@ -40,10 +44,12 @@ def read_edges_ndjson(
     probability: str | None = None,
     allow_self_loops: bool = False,
     extra_columns: ExtraColumns = "error",
+    limits: SizeLimits | None = None,
+    fold: Fold | None = None,
 ) -> EdgeTable:
     """Read edges from NDJSON: one JSON object per line, blank lines allowed.
 
-    Options as in :func:`service.intake.read_edges_csv`. A record without the
+    Options (``limits``, ``fold`` included) as in :func:`service.intake.read_edges_csv`. A record without the
     weight key (or with ``null``) weighs 1. Probabilities are all or nothing:
     either every record has one or none has.
 
@@ -61,7 +67,7 @@ def read_edges_ndjson(
     ([0, 1], [1, 2], [2.0, 1.0], ['a', '7', 'b'])
     """
     opts = EdgeOptions(source, target, weight, probability, allow_self_loops, extra_columns)
-    return _read_edges(_ndjson_records(fh), interner, opts, "line")
+    return _read_edges(_ndjson_records(fh), interner, opts, "line", limits, fold)
 
 
 def read_edges_json(
@@ -74,12 +80,13 @@ def read_edges_json(
     probability: str | None = None,
     allow_self_loops: bool = False,
     extra_columns: ExtraColumns = "error",
+    limits: SizeLimits | None = None,
+    fold: Fold | None = None,
 ) -> EdgeTable:
     """Read edges from a JSON array of objects, or an object with an ``edges`` array.
 
     Other members of the top-level object (``nodes``, ``directed``, ...) are
-    ignored here. The document is parsed whole with :func:`json.load`: the
-    caller bounds it by its upload size limit. Errors give the record number
+    ignored here (read past without being built). Errors give the record number
     (1-based) in ``line`` with ``unit="record"``; a syntax error gives the
     physical line with ``unit="line"``.
 
@@ -92,8 +99,7 @@ def read_edges_json(
     [0.5]
     """
     opts = EdgeOptions(source, target, weight, probability, allow_self_loops, extra_columns)
-    records = _json_records(fh, "edges")
-    return _read_edges(enumerate(records, 1), interner, opts, "record")
+    return _read_edges(_json_records(fh, "edges"), interner, opts, "record", limits, fold)
 
 
 def read_nodes_ndjson(
@@ -101,6 +107,7 @@ def read_nodes_ndjson(
     interner: Interner,
     *,
     id: str = "id",  # noqa: A002 - the API's query parameter name
+    limits: SizeLimits | None = None,
 ) -> NodeTable:
     """Read node attributes from NDJSON (see :func:`service.intake.read_nodes_csv`).
 
@@ -114,7 +121,7 @@ def read_nodes_ndjson(
     >>> t.consent.tolist(), t.extra
     ([1], {'tier': ['2']})
     """
-    return _read_nodes(_ndjson_records(fh), interner, id, "line")
+    return _read_nodes(_ndjson_records(fh), interner, id, "line", limits)
 
 
 def read_nodes_json(
@@ -122,10 +129,11 @@ def read_nodes_json(
     interner: Interner,
     *,
     id: str = "id",  # noqa: A002 - the API's query parameter name
+    limits: SizeLimits | None = None,
 ) -> NodeTable:
     """Read node attributes from a JSON array of objects or ``{"nodes": [...]}``.
 
-    Parsed whole with :func:`json.load` (bounded by the upload limit upstream).
+    Read incrementally, like :func:`read_edges_json`.
 
     Examples
     --------
@@ -134,58 +142,30 @@ def read_nodes_json(
     >>> t.segment, t.columns
     (['gold'], ('segment',))
     """
-    return _read_nodes(enumerate(_json_records(fh, "nodes"), 1), interner, id, "record")
+    return _read_nodes(_json_records(fh, "nodes"), interner, id, "record", limits)
 
 
 # ------------------------------------------------------------------ records
 
 
 def _ndjson_records(fh: BinaryIO) -> Iterator[tuple[int, object]]:
-    for line, raw in enumerate(fh, 1):
-        try:
-            text = raw.decode("utf-8")
-        except UnicodeDecodeError as exc:
-            raise UploadError(
-                "not valid UTF-8", line=line, value=repr(raw[exc.start : exc.start + 4])
-            ) from None
-        if line == 1 and text.startswith("\ufeff"):
-            text = text[1:]
-        if not text.strip():
-            continue
-        try:
-            yield line, json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise UploadError(
-                f"invalid JSON: {exc.msg} (column {exc.colno})", line=line
-            ) from None
+    return ndjson_records(fh)
 
 
-def _json_records(fh: BinaryIO, member: str) -> list[Any]:
-    raw = fh.read()
-    try:
-        doc = json.loads(raw)
-    except UnicodeDecodeError as exc:
-        line = 1 + raw.count(b"\n", 0, exc.start)
-        raise UploadError("not valid UTF-8", line=line) from None
-    except json.JSONDecodeError as exc:
-        raise UploadError(
-            f"invalid JSON: {exc.msg} (column {exc.colno})", line=exc.lineno
-        ) from None
-    records = doc.get(member) if isinstance(doc, dict) else doc
-    if isinstance(records, list):
-        return records
-    raise UploadError(f'expected a JSON array, or an object with a "{member}" array')
+def _json_records(fh: BinaryIO, member: str) -> Iterator[tuple[int, object]]:
+    return json_records(fh, member)
 
 
 # ------------------------------------------------------------------ edges
 
 
 def _read_edges(
-    records: Iterable[tuple[int, object]], interner: Interner, opts: EdgeOptions, unit: Unit
+    records: Iterable[tuple[int, object]], interner: Interner, opts: EdgeOptions, unit: Unit,
+    limits: SizeLimits | None, fold: Fold | None,
 ) -> EdgeTable:
     n0 = len(interner)
     try:
-        buf = EdgeRecords(EdgeSink(interner, opts, unit=unit), opts, unit)
+        buf = EdgeRecords(EdgeSink(interner, opts, unit=unit, limits=limits, fold=fold), opts, unit)
         for where, rec in records:
             buf.add(rec, where)
         buf.flush()
@@ -204,11 +184,12 @@ def _read_edges(
 
 
 def _read_nodes(
-    records: Iterable[tuple[int, object]], interner: Interner, id_column: str, unit: Unit
+    records: Iterable[tuple[int, object]], interner: Interner, id_column: str, unit: Unit,
+    limits: SizeLimits | None,
 ) -> NodeTable:
     n0 = len(interner)
     try:
-        sink = NodeSink(interner, id_column=id_column, unit=unit)
+        sink = NodeSink(interner, id_column=id_column, unit=unit, limits=limits)
         for where, rec in records:
             if not isinstance(rec, dict):
                 raise UploadError(

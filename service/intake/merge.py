@@ -399,7 +399,8 @@ def apply_edge_delta(
     )
     g = GraphArrays(n_nodes, base.directed, src, dst, w, p)
     added = g.m - base.m  # base edges are unique (GraphArrays' contract)
-    stats = DeltaStats("append", delta.records, added, delta.m - added, 0, 0, g.n, g.m)
+    # delta.records counts records the reader already folded into one edge.
+    stats = DeltaStats("append", delta.records, added, delta.records - added, 0, 0, g.n, g.m)
     return g, stats
 
 

@@ -17,8 +17,9 @@ from typing import Literal, TypeVar
 import numpy as np
 from numpy.typing import NDArray
 
-from .errors import EmptyUpload, InvalidOption, MissingColumn, UnknownColumn, UploadError
+from .errors import EmptyUpload, InvalidOption, TooLong, UploadError
 from .interner import Interner
+from .limits import MAX_NUMBER_CHARS, SizeLimits, first_too_long
 
 __all__ = [
     "EdgeTable",
@@ -31,7 +32,13 @@ __all__ = [
 ExtraColumns = Literal["error", "ignore"]
 Unit = Literal["line", "record"]
 Locate = Callable[[int], int]
+F64 = NDArray[np.float64]
+I32 = NDArray[np.int32]
+# Merges repeated edges of (src, dst, weight, probability) by the upload's rule.
+Fold = Callable[[I32, I32, F64, F64 | None], tuple[I32, I32, F64, F64 | None]]
 BLOCK_RECORDS = 1 << 16  # records per EdgeSink block for the dict-record formats
+FOLD_MIN = 1 << 20  # an EdgeSink with a fold merges repeats once it holds this many edges
+DEFAULT_LIMITS = SizeLimits()
 
 NODE_COLUMNS: tuple[str, ...] = ("segment", "region", "consent", "cost", "value", "label")
 CONSENT_WORDS: dict[str, int] = {
@@ -165,17 +172,36 @@ class EdgeSink:
     place (``realloc``) by a sixteenth, or at once to a size the reader
     expects (:meth:`reserve`, whose untouched room costs no resident memory),
     and :meth:`table` trims them, so the table holds the edges without a copy.
+
+    With a ``fold`` (the upload's duplicate rule), repeated edges are merged
+    whenever the buffers hold :data:`FOLD_MIN` edges and twice as many as
+    after the last merge, so memory follows the distinct edges, not the
+    records: 25 million rows over a thousand edges hold a million at most.
+    Every rule folds in parts to the same result as at once (sums and
+    products are associative; the last record of an edge stays last).
     """
 
-    def __init__(self, interner: Interner, opts: EdgeOptions, *, unit: Unit = "line") -> None:
+    def __init__(
+        self,
+        interner: Interner,
+        opts: EdgeOptions,
+        *,
+        unit: Unit = "line",
+        limits: SizeLimits | None = None,
+        fold: Fold | None = None,
+    ) -> None:
         self.interner = interner
         self.opts = opts
         self.unit: Unit = unit
+        self.limits = DEFAULT_LIMITS if limits is None else limits
+        self.fold = fold
+        self.fold_at = FOLD_MIN
         self.src: NDArray[np.int32] = np.empty(0, np.int32)
         self.dst: NDArray[np.int32] = np.empty(0, np.int32)
         self.weight: NDArray[np.float64] | None = None
         self.probability: NDArray[np.float64] | None = None
-        self.records = 0
+        self.records = 0  # records read
+        self.m = 0  # edges in the buffers (fewer than records once repeats are folded)
 
     def _columns(self) -> list[str]:
         return [c for c in ("src", "dst", "weight", "probability") if getattr(self, c) is not None]
@@ -186,12 +212,14 @@ class EdgeSink:
         Fresh arrays of that size take address space only: their pages become
         resident as edges are written into them.
         """
+        if self.fold is not None:
+            rows = min(rows, self.fold_at + BLOCK_RECORDS)  # folding keeps the buffers short
         if rows <= self.src.shape[0]:
             return
         for c in self._columns():
             old = getattr(self, c)
             new = np.empty(rows, dtype=old.dtype)
-            new[: self.records] = old[: self.records]
+            new[: self.m] = old[: self.m]
             setattr(self, c, new)
 
     def _room(self, rows: int) -> None:
@@ -218,24 +246,35 @@ class EdgeSink:
         if rows == 0:
             return
         opts = self.opts
-        faults: list[tuple[int, str, str, object]] = []  # (row, column, reason, value)
+        # (row, column, reason, value, (length, limit) for a value too long)
+        faults: list[tuple[int, str, str, object, tuple[int, int] | None]] = []
         if "" in ids:
             pos = ids.index("")
             col = opts.source if pos % 2 == 0 else opts.target
-            faults.append((pos // 2, col, "empty node id", None))
+            faults.append((pos // 2, col, "empty node id", None, None))
+        id_chars = self.limits.id_chars
+        pos = first_too_long(ids, id_chars)
+        if pos >= 0:
+            col = opts.source if pos % 2 == 0 else opts.target
+            faults.append((pos // 2, col, id_too_long(id_chars), ids[pos], (len(ids[pos]), id_chars)))
+        for col, cells in ((opts.weight_column, weight), (opts.probability_column, probability)):
+            i = -1 if cells is None else first_too_long(cells, MAX_NUMBER_CHARS)
+            if i >= 0 and cells is not None:
+                cell = str(cells[i])
+                faults.append((i, col, NUMBER_TOO_LONG, cell, (len(cell), MAX_NUMBER_CHARS)))
         w = None
         if weight is not None:
             w = to_floats(weight)
             i = _first(~((w > 0.0) & (w < math.inf)))
             if i >= 0:
-                faults.append((i, opts.weight_column, "must be a positive number", weight[i]))
+                faults.append((i, opts.weight_column, "must be a positive number", weight[i], None))
         p = None
         if probability is not None:
             p = to_floats(probability)
             i = _first(~((p >= 0.0) & (p <= 1.0)))
             if i >= 0:
                 faults.append(
-                    (i, opts.probability_column, "must be a number in [0, 1]", probability[i])
+                    (i, opts.probability_column, "must be a number in [0, 1]", probability[i], None)
                 )
         cut = min((f[0] for f in faults), default=rows)
         codes = self.interner.intern_many(ids if cut == rows else ids[: 2 * cut])
@@ -244,18 +283,16 @@ class EdgeSink:
             i = _first(s == d)
             if i >= 0:
                 faults.append(
-                    (i, opts.target, "self-loop (source equals target) not allowed", ids[2 * i])
+                    (i, opts.target, "self-loop (source equals target) not allowed", ids[2 * i], None)
                 )
         if faults:
-            row, col, reason, value = min(faults, key=lambda f: f[0])
-            raise UploadError(
-                reason,
-                line=locate(row),
-                column=col,
-                value=None if value is None else str(value),
-                unit=self.unit,
-            )
-        r0, r1 = self.records, self.records + rows
+            row, col, reason, value, size = min(faults, key=lambda f: f[0])
+            text = None if value is None else str(value)
+            if size is not None:
+                raise TooLong(reason, line=locate(row), column=col, value=text, unit=self.unit,
+                              length=size[0], limit=size[1])
+            raise UploadError(reason, line=locate(row), column=col, value=text, unit=self.unit)
+        r0, r1 = self.m, self.m + rows
         if w is not None and self.weight is None:
             # JSON records may leave the weight out: earlier edges weigh 1.
             self.weight = np.empty(self.src.shape[0])
@@ -285,7 +322,29 @@ class EdgeSink:
             self.weight[r0:r1] = w  # type: ignore[index]
         if p is not None:
             self.probability[r0:r1] = p  # type: ignore[index]
-        self.records = r1
+        self.records += rows
+        self.m = r1
+        if self.fold is not None and r1 >= self.fold_at:
+            self._fold()
+
+    def _fold(self) -> None:
+        """Merge repeated edges in the buffers by the upload's rule (see the class notes)."""
+        assert self.fold is not None
+        n = self.m
+        if self.weight is None:  # counts come out of merging: weights from here on
+            self.weight = np.empty(self.src.shape[0])
+            self.weight[:n] = 1.0
+        prob = None if self.probability is None else self.probability[:n]
+        s, d, w, p = self.fold(self.src[:n], self.dst[:n], self.weight[:n], prob)
+        k = int(s.shape[0])
+        self.src[:k] = s
+        self.dst[:k] = d
+        self.weight[:k] = w
+        if p is not None and self.probability is not None:
+            self.probability[:k] = p
+        del s, d, w, p, prob
+        self.m = k
+        self.fold_at = max(FOLD_MIN, 2 * k)
 
     def table(self) -> EdgeTable:
         """The collected edges; :class:`EmptyUpload` when there are none.
@@ -294,7 +353,7 @@ class EdgeSink:
         """
         if not self.records:
             raise EmptyUpload("the upload holds no edges", unit=self.unit)
-        n = self.records
+        n = self.m
         for c in self._columns():
             getattr(self, c).resize(n, refcheck=False)  # shrinking realloc: no copy
         weight = np.ones(n) if self.weight is None else self.weight
@@ -303,8 +362,21 @@ class EdgeSink:
             dst=self.dst,
             weight=weight,
             probability=self.probability,
-            records=n,
+            records=self.records,
         )
+
+
+NUMBER_TOO_LONG = (
+    f"a number longer than {MAX_NUMBER_CHARS} characters: "
+    "send amounts in plain decimal notation (for example 12.5 or 3e-4)"
+)
+
+
+def id_too_long(limit: int) -> str:
+    return (
+        f"node id longer than {limit} characters: use a shorter key for each person "
+        "(an account handle or a number) and put longer text in a node column"
+    )
 
 
 def json_id(v: object) -> str:
@@ -316,104 +388,6 @@ def json_id(v: object) -> str:
     if isinstance(v, int) and not isinstance(v, bool):
         return str(v)
     raise ValueError("node id must be a string or an integer")
-
-
-class EdgeRecords:
-    """Buffers dict records (JSON, GraphML) into blocks for :class:`EdgeSink`.
-
-    Checks keys on the way. A missing or ``null`` weight is 1; probabilities
-    are all or nothing. ``seen`` collects the weight/probability keys met.
-    """
-
-    def __init__(self, sink: EdgeSink, opts: EdgeOptions, unit: Unit) -> None:
-        self.sink, self.opts, self.unit = sink, opts, unit
-        self.known = opts.known
-        self.strict = opts.extra_columns == "error"
-        self.wcol, self.pcol = opts.weight_column, opts.probability_column
-        self.seen: set[str] = set()
-        self.has_p: bool | None = None
-        self._reset()
-
-    def _reset(self) -> None:
-        self.ids: list[str] = []
-        self.w: list[object] = []
-        self.p: list[object] = []
-        self.where: list[int] = []
-        self.any_w = False
-
-    def fail(self, reason: str, where: int, column: str | None = None, value: object = None,
-             cls: type[UploadError] = UploadError) -> None:
-        self.flush()  # an earlier record's fault is reported first
-        raise cls(reason, line=where, column=column, value=value, unit=self.unit)
-
-    def add(self, rec: object, where: int) -> None:
-        opts = self.opts
-        if type(rec) is not dict:
-            self.fail("an edge record must be a JSON object", where, value=json.dumps(rec))
-        rec_d: dict[str, object] = rec  # type: ignore[assignment]
-        if self.strict and not self.known.issuperset(rec_d):
-            key = next(k for k in rec_d if k not in self.known)
-            self.fail("unknown column (or pass extra_columns=ignore)", where, key,
-                      cls=UnknownColumn)
-        s, t = rec_d.get(opts.source), rec_d.get(opts.target)
-        if type(s) is not str or type(t) is not str or "\x00" in s or "\x00" in t:
-            s, t = self._ends(rec_d, where)
-        w = rec_d.get(self.wcol)
-        if w is None:
-            w = 1.0
-        else:
-            if not self.any_w:
-                self.seen.add(self.wcol)
-                self.any_w = True
-            if type(w) is bool or not isinstance(w, int | float | str):
-                w = json.dumps(w)  # refused by the sink, shown as written
-        p = rec_d.get(self.pcol)
-        has_p = p is not None
-        if has_p is not self.has_p:
-            self._probability_change(has_p, where)
-        if has_p and (type(p) is bool or not isinstance(p, int | float | str)):
-            p = json.dumps(p)
-        self.ids += (s, t)
-        self.w.append(w)
-        self.p.append(p)
-        self.where.append(where)
-        if len(self.where) >= BLOCK_RECORDS:
-            self.flush()
-
-    def _ends(self, rec: dict[str, object], where: int) -> tuple[str, str]:
-        ends = []
-        for col in (self.opts.source, self.opts.target):
-            if col not in rec:
-                self.fail(f"missing required column {col!r}", where, col, cls=MissingColumn)
-            try:
-                ends.append(json_id(rec[col]))
-            except ValueError as exc:
-                self.fail(str(exc), where, col, json.dumps(rec[col]))
-        return ends[0], ends[1]
-
-    def _probability_change(self, has_p: bool, where: int) -> None:
-        if self.has_p is None:
-            self.has_p = has_p
-            if has_p:
-                self.seen.add(self.pcol)
-            return
-        self.fail(
-            "probability missing (earlier edges have one)" if self.has_p
-            else "probability given here but not for earlier edges",
-            where, self.pcol,
-        )
-
-    def flush(self) -> None:
-        if self.where:
-            self.sink.add(
-                self.ids,
-                self.w if self.any_w else None,
-                self.p if self.has_p else None,
-                self.where.__getitem__,
-            )
-        any_w = self.any_w
-        self._reset()
-        self.any_w = any_w  # later blocks may leave weights out; the sink fills in 1
 
 
 # ---------------------------------------------------------------- node attributes
@@ -463,7 +437,9 @@ def parse_extra(v: object) -> str | None:
         return None
     if isinstance(v, str):
         return v
-    return json.dumps(v, ensure_ascii=False)
+    if isinstance(v, float) and not math.isfinite(v):
+        raise ValueError("must be a finite number: this one overflows (write it as text to keep it)")
+    return json.dumps(v, ensure_ascii=False, allow_nan=False)
 
 
 _T = TypeVar("_T")
@@ -478,9 +454,17 @@ def _put(col: list[_T | None], n: int, cell: _T | None) -> None:
 class NodeSink:
     """Collects node records; repeated ids keep the last record."""
 
-    def __init__(self, interner: Interner, *, id_column: str = "id", unit: Unit = "line") -> None:
+    def __init__(
+        self,
+        interner: Interner,
+        *,
+        id_column: str = "id",
+        unit: Unit = "line",
+        limits: SizeLimits | None = None,
+    ) -> None:
         if not id_column:
             raise InvalidOption("id must name a column", field="id")
+        self.limits = DEFAULT_LIMITS if limits is None else limits
         self.interner = interner
         self.id_column = id_column
         self.unit: Unit = unit
@@ -498,17 +482,41 @@ class NodeSink:
         """Add one record; ``values`` maps column name -> raw cell (missing keys = missing)."""
         if not node_id:
             raise UploadError("empty node id", line=where, column=self.id_column, unit=self.unit)
+        lim = self.limits
+        if len(node_id) > lim.id_chars:
+            self._too_long(id_too_long(lim.id_chars), where, self.id_column, node_id, lim.id_chars)
         n = self.records
         for col, raw in values.items():
+            if len(col) > lim.label_chars:
+                self._too_long(
+                    f"column name longer than {lim.label_chars} characters: name columns in a few words",
+                    where, col[:80], col, lim.label_chars,
+                )
             try:
                 if col in self.text:
-                    _put(self.text[col], n, parse_label(raw))
+                    label = parse_label(raw)
+                    if label is not None and len(label) > lim.label_chars:
+                        self._too_long(
+                            f"{col} longer than {lim.label_chars} characters: "
+                            "keep labels to a name or a short phrase",
+                            where, col, label, lim.label_chars,
+                        )
+                    _put(self.text[col], n, label)
                 elif col in self.amounts:
+                    if type(raw) is str and len(raw) > MAX_NUMBER_CHARS:
+                        self._too_long(NUMBER_TOO_LONG, where, col, raw, MAX_NUMBER_CHARS)
                     _put(self.amounts[col], n, parse_amount(raw))
                 elif col == "consent":
                     _put(self.consent, n, parse_consent(raw))
                 else:
-                    _put(self.extra.setdefault(col, [None] * n), n, parse_extra(raw))
+                    cell = parse_extra(raw)
+                    if cell is not None and len(cell) > lim.value_chars:
+                        self._too_long(
+                            f"value longer than {lim.value_chars} characters: keep notes short, "
+                            "or store long text elsewhere and upload a reference to it",
+                            where, col, cell, lim.value_chars,
+                        )
+                    _put(self.extra.setdefault(col, [None] * n), n, cell)
                     continue
             except ValueError as exc:
                 raise UploadError(
@@ -517,6 +525,10 @@ class NodeSink:
             self.present.add(col)
         self.index.append(self.interner.intern(node_id))
         self.records = n + 1
+
+    def _too_long(self, reason: str, where: int, column: str, value: str, limit: int) -> None:
+        raise TooLong(reason, line=where, column=column, value=value, unit=self.unit,
+                      length=len(value), limit=limit)
 
     def table(self, *, allow_empty: bool = False) -> NodeTable:
         """The node table, last record per id; :class:`EmptyUpload` when empty."""

@@ -10,6 +10,7 @@ import tracemalloc
 import numpy as np
 import pytest
 
+from service.intake.limits import SizeLimits
 from service.intake import (
     EmptyUpload,
     InvalidOption,
@@ -307,7 +308,7 @@ def test_line_numbers_across_blocks_in_the_fast_path():
 def test_quoted_field_spanning_many_blocks():
     long_id = "q" * 3000 + "\n" + "r" * 3000
     body = f'source,target\na,"{long_id}"\n"{long_id}",b\n'.encode()
-    t, it = edges(body, block_bytes=100)
+    t, it = edges(body, block_bytes=100, limits=SizeLimits(id_chars=10_000))  # ids past the default limit
     assert it.ids == ["a", long_id, "b"] and t.records == 2
 
 
