@@ -7,17 +7,28 @@ indices from an :class:`Interner`, refusing malformed input with an
 folds duplicate edges by the declared rule and applies append/remove deltas
 to a stored version's :class:`~service.analytics.graph.GraphArrays`.
 
-It imports the standard library, numpy, defusedxml and
+It imports the standard library, numpy, defusedxml, charset-normalizer and
 ``service.analytics.graph`` only: no HTTP, database or pydantic code.
 """
 
 from __future__ import annotations
 
 from .csvfile import read_edges_csv, read_nodes_csv
+from .dialect import (
+    DELIMITER_NAMES,
+    DELIMITERS,
+    CsvSource,
+    delimiter_name,
+    detect_delimiter,
+    open_csv,
+    parse_delimiter,
+)
+from .encoding import LIKELY, PREFIX_BYTES, TextSource, charset_label, guess_encoding, open_utf8
 from .errors import (
     MAX_VALUE_CHARS,
     EmptyUpload,
     IntakeError,
+    InvalidEncoding,
     InvalidOption,
     MissingColumn,
     UnknownColumn,
@@ -25,6 +36,7 @@ from .errors import (
     UploadError,
 )
 from .graphml import GRAPHML_NS, read_graphml
+from .hints import EDGE_NAMES, NODE_NAMES, ColumnHint, normalise, suggest_columns
 from .interner import MAX_NODES, Interner
 from .jsonfile import read_edges_json, read_edges_ndjson, read_nodes_json, read_nodes_ndjson
 from .merge import (
@@ -44,6 +56,7 @@ __all__ = [
     # errors
     "IntakeError",
     "InvalidOption",
+    "InvalidEncoding",
     "UploadError",
     "EmptyUpload",
     "MissingColumn",
@@ -67,6 +80,25 @@ __all__ = [
     "read_nodes_json",
     "read_graphml",
     "GRAPHML_NS",
+    # encodings, delimiters and column hints (CSV)
+    "open_csv",
+    "CsvSource",
+    "parse_delimiter",
+    "detect_delimiter",
+    "delimiter_name",
+    "DELIMITERS",
+    "DELIMITER_NAMES",
+    "open_utf8",
+    "TextSource",
+    "guess_encoding",
+    "charset_label",
+    "LIKELY",
+    "PREFIX_BYTES",
+    "suggest_columns",
+    "ColumnHint",
+    "normalise",
+    "EDGE_NAMES",
+    "NODE_NAMES",
     # merging
     "MergeRule",
     "MERGE_RULES",

@@ -39,6 +39,7 @@ def read_edges_csv(
     probability: str | None = None,
     allow_self_loops: bool = False,
     extra_columns: ExtraColumns = "error",
+    delimiter: str = ",",
     block_bytes: int = BLOCK_BYTES,
 ) -> EdgeTable:
     """Read edges from an RFC 4180 CSV file with a header row.
@@ -54,6 +55,7 @@ def read_edges_csv(
     probability : likewise for explicit edge probabilities (``probability``).
     allow_self_loops : accept edges whose source equals their target.
     extra_columns : ``"error"`` refuses other columns, ``"ignore"`` skips them.
+    delimiter : the field separator, one character (``,`` ``;`` tab ``|``).
     block_bytes : read size; only tests change it.
 
     Returns
@@ -98,7 +100,7 @@ def read_edges_csv(
         sink = EdgeSink(interner, opts)
         size, seen = _body_size(fh), 0
         blocks = _blocks(fh, block_bytes)
-        header, hline, first = _header(blocks)
+        header, hline, first = _header(blocks, delimiter)
         plan = _edge_plan(header, hline, opts)
         k = len(header)
         for raw, text, line0, quoted in chain(first, blocks):
@@ -108,9 +110,9 @@ def read_edges_csv(
                 sink.reserve(min(int(sink.records * size / seen * 1.05) + 1024, size // 2 + 1))
                 size = 0
             seen += len(raw)
-            flat = None if quoted else _plain_fields(raw, text, k)
+            flat = None if quoted else _plain_fields(raw, text, k, delimiter)
             if flat is None:
-                rows, locate = _csv_rows(text, line0)
+                rows, locate = _csv_rows(text, line0, delimiter)
                 bad = next((i for i, r in enumerate(rows) if len(r) != k), -1)
                 if bad >= 0:
                     _edge_block(sink, list(chain.from_iterable(rows[:bad])), k, plan, locate)
@@ -130,6 +132,7 @@ def read_nodes_csv(
     interner: Interner,
     *,
     id: str = "id",  # noqa: A002 - the API's query parameter name
+    delimiter: str = ",",
     block_bytes: int = BLOCK_BYTES,
 ) -> NodeTable:
     """Read node attributes from a CSV file with a header row.
@@ -157,7 +160,7 @@ def read_nodes_csv(
     try:
         sink = NodeSink(interner, id_column=id)
         blocks = _blocks(fh, block_bytes)
-        header, hline, first = _header(blocks)
+        header, hline, first = _header(blocks, delimiter)
         if id not in header:
             raise MissingColumn(
                 f"missing required column {id!r}; header found: {', '.join(header)}",
@@ -168,7 +171,7 @@ def read_nodes_csv(
         k = len(header)
         pos = header.index(id)
         for _, text, line0, _ in chain(first, blocks):
-            reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+            reader = csv.reader(io.StringIO(text, newline=""), strict=True, delimiter=delimiter)
             prev = 0
             try:
                 for row in reader:
@@ -259,11 +262,11 @@ def _decode(raw: bytes, line: int) -> str:
     return text
 
 
-def _header(blocks: Iterator[Block]) -> tuple[list[str], int, list[Block]]:
+def _header(blocks: Iterator[Block], delimiter: str) -> tuple[list[str], int, list[Block]]:
     """The header row, its line, and the rest of its block (as a one-block list)."""
     for raw, text, line0, quoted in blocks:
         sio = io.StringIO(text, newline="")
-        reader = csv.reader(iter(sio.readline, ""), strict=True)
+        reader = csv.reader(iter(sio.readline, ""), strict=True, delimiter=delimiter)
         prev = 0
         try:
             for row in reader:
@@ -287,11 +290,11 @@ def _header(blocks: Iterator[Block]) -> tuple[list[str], int, list[Block]]:
     raise EmptyUpload("the upload is empty (no header row)")
 
 
-def _plain_fields(raw: bytes, text: str, k: int) -> list[str] | None:
+def _plain_fields(raw: bytes, text: str, k: int, delimiter: str) -> list[str] | None:
     """Split a block without quotes; None when a line has the wrong field count."""
     b = np.frombuffer(raw, dtype=np.uint8)
     ends = np.flatnonzero(b == 10)
-    commas = np.flatnonzero(b == 44)
+    commas = np.flatnonzero(b == ord(delimiter))
     per_line = np.diff(np.searchsorted(commas, ends), prepend=0)
     if not bool(np.all(per_line == k - 1)):
         return None  # blank lines or a bad row: let the csv path find the line
@@ -299,7 +302,7 @@ def _plain_fields(raw: bytes, text: str, k: int) -> list[str] | None:
         text = text.replace("\r\n", "\n")
         if "\r" in text:
             return None  # a bare CR is a line break to csv; let it decide
-    flat = text.replace("\n", ",").split(",")
+    flat = text.replace("\n", delimiter).split(delimiter)
     flat.pop()  # the empty string after the final newline
     return flat
 
@@ -308,16 +311,16 @@ def _plain_locator(line0: int) -> Locate:
     return lambda i: line0 + i
 
 
-def _csv_rows(text: str, line0: int) -> tuple[list[list[str]], Locate]:
+def _csv_rows(text: str, line0: int, delimiter: str) -> tuple[list[list[str]], Locate]:
     """Rows of a block (blank lines dropped) and their first physical lines."""
-    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True, delimiter=delimiter)
     try:
         rows = list(reader)
     except csv.Error as exc:
         raise UploadError(f"broken CSV: {exc}", line=line0 + reader.line_num - 1) from None
 
     def locate(i: int) -> int:
-        again = csv.reader(io.StringIO(text, newline=""), strict=True)
+        again = csv.reader(io.StringIO(text, newline=""), strict=True, delimiter=delimiter)
         prev, j = 0, -1
         for row in again:
             j += bool(row)
@@ -362,6 +365,7 @@ def _edge_plan(
             "(or pass extra_columns=ignore)",
             line=line,
             column=unknown[0],
+            header=tuple(header),
         )
     wc, pc = opts.weight_column, opts.probability_column
     return (

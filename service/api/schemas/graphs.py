@@ -42,7 +42,14 @@ class VersionRead(BaseModel):
     nodes: int
     edges: int
     origin: dict[str, Any] = Field(description="How the version was made: part, mode, format, records.")
-    summary: dict[str, Any] = Field(description="Figures computed at ingest.")
+    summary: dict[str, Any] = Field(
+        description="Figures computed at ingest; for CSV also the `encoding` and `delimiter` the file was read with."
+    )
+    warnings: list[dict[str, Any]] = Field(
+        default_factory=list,
+        description="Things the upload accepted but the sender should check: `code`, `message`, `count` "
+        "and up to 20 `ids` (e.g. people in a node file with no edge).",
+    )
 
 
 class VersionList(BaseModel):
