@@ -113,10 +113,16 @@ def build_version(
         if options.fmt == "csv":
             source = open_csv(fh, charset=options.charset, delimiter=options.delimiter)
             read_as = {"encoding": source.encoding, "delimiter": source.delimiter_name}
-            if options.part == "edges":
-                edges = intake.read_edges_csv(source.fh, interner, **edge_opts, delimiter=source.delimiter)
-            else:
-                nodes = intake.read_nodes_csv(source.fh, interner, id=options.id, delimiter=source.delimiter)
+            try:
+                if options.part == "edges":
+                    edges = intake.read_edges_csv(source.fh, interner, **edge_opts, delimiter=source.delimiter)
+                else:
+                    nodes = intake.read_nodes_csv(source.fh, interner, id=options.id, delimiter=source.delimiter)
+            except intake.InvalidEncoding as exc:
+                if source.encoding != "utf-8" or options.charset is not None:
+                    raise
+                # Not UTF-8 after all, past the prefix that was checked: name the encoding.
+                raise intake.explain_not_utf8(fh, exc.line) from None
         elif options.fmt == "graphml":
             edges, nodes = intake.read_graphml(
                 fh,

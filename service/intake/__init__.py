@@ -23,7 +23,15 @@ from .dialect import (
     open_csv,
     parse_delimiter,
 )
-from .encoding import LIKELY, PREFIX_BYTES, TextSource, charset_label, guess_encoding, open_utf8
+from .encoding import (
+    LIKELY,
+    PREFIX_BYTES,
+    TextSource,
+    charset_label,
+    explain_not_utf8,
+    guess_encoding,
+    open_utf8,
+)
 from .errors import (
     MAX_VALUE_CHARS,
     EmptyUpload,
@@ -91,6 +99,7 @@ __all__ = [
     "open_utf8",
     "TextSource",
     "guess_encoding",
+    "explain_not_utf8",
     "charset_label",
     "LIKELY",
     "PREFIX_BYTES",

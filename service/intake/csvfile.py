@@ -19,7 +19,7 @@ from typing import BinaryIO
 
 import numpy as np
 
-from .errors import EmptyUpload, MissingColumn, UnknownColumn, UploadError
+from .errors import EmptyUpload, InvalidEncoding, MissingColumn, UnknownColumn, UploadError
 from .interner import Interner
 from .tables import EdgeOptions, EdgeSink, EdgeTable, ExtraColumns, Locate, NodeSink, NodeTable
 
@@ -253,7 +253,7 @@ def _decode(raw: bytes, line: int) -> str:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         bad = raw[exc.start : exc.start + 4]
-        raise UploadError(
+        raise InvalidEncoding(
             "not valid UTF-8", line=line + raw.count(b"\n", 0, exc.start), value=repr(bad)
         ) from None
     if "\x00" in text:

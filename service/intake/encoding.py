@@ -25,7 +25,7 @@ from typing import BinaryIO
 
 from .errors import InvalidEncoding, UploadError
 
-__all__ = ["LIKELY", "PREFIX_BYTES", "TextSource", "open_utf8", "guess_encoding", "charset_label"]
+__all__ = ["LIKELY", "PREFIX_BYTES", "explain_not_utf8", "TextSource", "open_utf8", "guess_encoding", "charset_label"]
 
 #: How much of the body the checks read: enough for detection, bounded whatever the size.
 PREFIX_BYTES = 1 << 16
@@ -201,6 +201,43 @@ def open_utf8(fh: BinaryIO, charset: str | None = None) -> tuple[BinaryIO, str]:
             likely=label,
         )
     return fh, "utf-8"
+
+
+def explain_not_utf8(fh: BinaryIO, line: int | None) -> InvalidEncoding:
+    """The problem for a body that turned out not to be UTF-8 past the prefix :func:`open_utf8`
+    checked: the encoding of the bytes around the first fault, and how to declare it.
+
+    ``fh`` is read again from the start, one block at a time (this is the failure path).
+    """
+    fh.seek(0)
+    decoder = codecs.getincrementaldecoder("utf-8")("strict")
+    previous = b""
+    while True:
+        block = fh.read(_READ)
+        try:
+            decoder.decode(block, final=not block)
+        except UnicodeDecodeError:
+            window = (previous + block + fh.read(_READ))[-3 * _READ:]
+            break
+        if not block:
+            window = b""
+            break
+        previous = block
+    likely = guess_encoding(window) if window else None
+    where = f" (line {line})" if line is not None else ""
+    if likely is None or codecs.lookup(likely).name == "utf-8":
+        return InvalidEncoding(
+            f"the file is not valid UTF-8 text{where} and its encoding could not be recognised; save it as "
+            "UTF-8 or declare its encoding, e.g. Content-Type: text/csv; charset=windows-1252",
+            line=line,
+        )
+    label = charset_label(likely)
+    return InvalidEncoding(
+        f"The file is not UTF-8{where}; it looks like {_display(label)} text. Send it with the header "
+        f"Content-Type: text/csv; charset={label} (or save it as UTF-8)",
+        likely=label,
+        line=line,
+    )
 
 
 def _wrap(fh: BinaryIO, encoding: str) -> BinaryIO:

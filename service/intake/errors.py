@@ -143,10 +143,10 @@ class InvalidEncoding(UploadError):
     """The file's text encoding is not UTF-8 and was not declared."""
 
     def __init__(self, reason: str | None = None, *, likely: str | None = None,
-                 charset: str | None = None) -> None:
+                 charset: str | None = None, **kw: object) -> None:
         self.likely = likely
         self.charset = charset
-        super().__init__(reason)
+        super().__init__(reason, **kw)  # type: ignore[arg-type]
 
     def as_dict(self) -> dict[str, object]:
         return {**super().as_dict(), "likely_encoding": self.likely, "charset": self.charset}

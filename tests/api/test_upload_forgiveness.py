@@ -158,6 +158,21 @@ async def test_windows_1252_without_charset_names_the_fix(client) -> None:  # ty
     assert await versions(client, gid) == []
 
 
+async def test_windows_1252_past_the_checked_prefix_is_named_with_its_line(client) -> None:  # type: ignore[no-untyped-def]
+    # Plain ASCII for the first ~200 KB (more than the 64 KiB checked up front), then the
+    # accented names a sorted export puts last.
+    gid = await make_graph(client)
+    head = "source,target\n" + "".join(f"a{i},b{i}\n" for i in range(20_000))
+    tail = "".join(f"Zoë{i},Renée Müller{i}\n" for i in range(50))
+    problem = await assert_problem(
+        await upload(client, gid, (head + tail).encode("cp1252")), 422, "invalid-encoding",
+        likely_encoding="windows-1252", line=20_002,
+    )
+    assert "charset=windows-1252" in problem["detail"] and "line 20002" in problem["detail"]
+    r = await upload(client, gid, (head + tail).encode("cp1252"), "text/csv; charset=windows-1252")
+    assert r.status_code == 201, r.text
+
+
 async def test_utf16_without_bom_or_charset_is_named(client) -> None:  # type: ignore[no-untyped-def]
     gid = await make_graph(client)
     problem = await assert_problem(
