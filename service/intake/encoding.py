@@ -49,7 +49,9 @@ _LABELS = {
     "utf_32": "utf-32",
     "utf_32_le": "utf-32le",
     "utf_32_be": "utf-32be",
-    "latin_1": "iso-8859-1",
+    "iso8859_1": "iso-8859-1",
+    "cp437": "ibm437",
+    "cp850": "ibm850",
     "iso8859_15": "iso-8859-15",
     "iso8859_2": "iso-8859-2",
     "mac_roman": "macintosh",
@@ -91,13 +93,15 @@ class TextSource(io.RawIOBase):
             try:
                 text = self._decoder.decode(raw, final=final)
             except UnicodeDecodeError as exc:
-                before = exc.object[: exc.start]
+                before = bytes(exc.object[: exc.start])
                 line = self.lines + 1 + before.decode(self._encoding, errors="replace").count("\n")
                 raise UploadError(
                     f"not valid {charset_label(self._encoding)} text",
                     line=line,
                     value=repr(bytes(exc.object[exc.start : exc.start + 4])),
                 ) from None
+            except UnicodeError:  # a codec that refuses everything ("undefined")
+                raise UploadError(f"not valid {charset_label(self._encoding)} text", line=self.lines + 1) from None
             self._done = final
             self._pending = text.encode("utf-8")
             self.lines += text.count("\n")
@@ -148,8 +152,10 @@ def _declared(charset: str | None) -> str | None:
     if charset is None or not charset.strip():
         return None
     try:
-        return codecs.lookup(charset.strip().strip('"')).name
-    except LookupError:
+        name = codecs.lookup(charset.strip().strip('"')).name
+        "a".encode(name)  # refuses codecs that are not text encodings (base64, rot13, undefined)
+        return name
+    except (LookupError, UnicodeError):
         raise InvalidEncoding(
             f"the declared charset {charset!r} is not one this service knows; send the file as UTF-8 "
             "or declare a standard charset such as windows-1252 or utf-16",

@@ -199,13 +199,27 @@ async def test_bom_wins_over_declared_charset(client) -> None:  # type: ignore[n
     assert await _node_exists(client, gid, "Zoë")
 
 
-async def test_unknown_charset_and_bytes_outside_the_charset(client) -> None:  # type: ignore[no-untyped-def]
+@pytest.mark.parametrize("charset", ["klingon-8", "base64", "rot13", "undefined"])
+async def test_unknown_or_non_text_charset(client, charset) -> None:  # type: ignore[no-untyped-def]
     gid = await make_graph(client)
     problem = await assert_problem(
-        await upload(client, gid, b"source,target\na,b\n", "text/csv; charset=klingon-8"), 422, "invalid-encoding",
-        charset="klingon-8",
+        await upload(client, gid, b"source,target\na,b\n", f"text/csv; charset={charset}"), 422,
+        "invalid-encoding", charset=charset,
     )
-    assert "klingon-8" in problem["detail"]
+    assert charset in problem["detail"]
+
+
+@pytest.mark.parametrize("charset", ["latin1", '"ISO-8859-1"', "UTF-16", "utf-8"])
+async def test_charset_labels_are_matched_loosely(client, charset) -> None:  # type: ignore[no-untyped-def]
+    gid = await make_graph(client)
+    body = NAMES.encode("utf-16" if "16" in charset else "utf-8" if charset == "utf-8" else "latin-1")
+    r = await upload(client, gid, body, f"text/csv; charset={charset}")
+    assert r.status_code == 201, r.text
+    assert await _node_exists(client, gid, "Zoë")
+
+
+async def test_bytes_outside_the_declared_charset(client) -> None:  # type: ignore[no-untyped-def]
+    gid = await make_graph(client)
     # 0x81 has no character in Windows-1252.
     body = "source,target\na,b\n".encode() + b"c\x81,d\n"
     await assert_problem(await upload(client, gid, body, "text/csv; charset=windows-1252"), 422, "invalid-upload",
