@@ -40,6 +40,13 @@ _BOMS: tuple[tuple[bytes, str], ...] = (
     (codecs.BOM_UTF16_BE, "utf-16-be"),
 )
 
+# Spreadsheet files sent as CSV by mistake (their first bytes): name them rather than
+# guessing an encoding for binary data.
+_WORKBOOKS = (
+    (b"PK\x03\x04", "a zip archive such as an Excel or OpenDocument workbook (.xlsx, .ods)"),
+    (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "an Excel 97-2003 workbook (.xls)"),
+)
+
 # Python codec name -> the label a client puts in ``charset=`` (WHATWG / IANA spelling).
 _LABELS = {
     "utf_8": "utf-8",
@@ -189,6 +196,12 @@ def open_utf8(fh: BinaryIO, charset: str | None = None) -> tuple[BinaryIO, str]:
                 return fh, "utf-8"
             # The BOM says the byte order: decode without it (the plain codec would keep U+FEFF).
             return _wrap(fh, name), charset_label(name)
+    for magic, what in _WORKBOOKS:
+        if prefix.startswith(magic):
+            raise UploadError(
+                f"the file is {what}, not CSV text; save it from the spreadsheet as \"CSV UTF-8\" "
+                "(or CSV) and upload that file"
+            )
     declared = _declared(charset)
     if declared is not None and declared != "utf-8":
         return _wrap(fh, declared), charset_label(declared)

@@ -226,6 +226,15 @@ async def test_bytes_outside_the_declared_charset(client) -> None:  # type: igno
                          line=3)
 
 
+@pytest.mark.parametrize("magic", [b"PK\x03\x04\x14\x00\x06\x00", b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1\x00\x00"])
+async def test_a_workbook_sent_as_csv_is_named(client, magic) -> None:  # type: ignore[no-untyped-def]
+    # Source: the zip local-file-header and OLE2 compound-file signatures (PKWARE APPNOTE 4.3.7;
+    # MS-CFB 2.2) that .xlsx/.ods and .xls files start with.
+    gid = await make_graph(client)
+    problem = await assert_problem(await upload(client, gid, magic + bytes(range(256)) * 4), 422, "invalid-upload")
+    assert "workbook" in problem["detail"] and "CSV UTF-8" in problem["detail"]
+
+
 # -- warnings --------------------------------------------------------------------------
 
 
