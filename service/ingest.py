@@ -180,6 +180,7 @@ def build_version(
         attrs = merge.merge_node_table(prev_attrs, nodes, n, mode=node_mode)
     else:
         attrs = _extend_attrs(prev_attrs if prev_attrs is not None else NodeAttributes.empty(0), n)
+    unknown_consent = upload_report.newly_unknown_consent(attrs, prev_attrs, n_before)
 
     # 3. Nodes that leave the graph.
     drop = np.zeros(n, dtype=bool)
@@ -206,6 +207,10 @@ def build_version(
         alone = upload_report.ids_without_edges(graph, ids, nodes.index)
         if alone is not None:
             warnings.append(alone)
+    if unknown_consent is not None:
+        lost = upload_report.unknown_consent(unknown_consent[~drop], ids)
+        if lost is not None:
+            warnings.append(lost)
     summary = {**graph_summary(graph), **read_as, "warnings": warnings}
     arrays, manifest = version_arrays(graph, ids, attrs)
     origin = {

@@ -8,6 +8,10 @@ Used by :mod:`service.ingest`:
 - :func:`ids_without_edges` lists the people a node file names who have no
   edge: they are kept (attributes may arrive before the edges), but the
   sender should know, since each becomes an isolated person.
+- :func:`newly_unknown_consent` / :func:`unknown_consent` list the people who
+  stop being contactable because the version now holds consent data and they
+  have no consent value (only an explicit yes counts), e.g. after the first
+  opt-out sent for a graph that had no consent data.
 - :func:`edge_digest` identifies a version's edge content (ids, arrays), so
   a later version with the same edges can reuse its scores.
 """
@@ -22,11 +26,12 @@ from urllib.parse import quote, urlencode
 import numpy as np
 from numpy.typing import NDArray
 
-from service.analytics.graph import GraphArrays
+from service.analytics.graph import GraphArrays, NodeAttributes
 from service.intake import MissingColumn, UnknownColumn
 from service.intake.hints import suggest_columns
 
-__all__ = ["MAX_LISTED", "add_column_hint", "ids_without_edges", "edge_digest"]
+__all__ = ["MAX_LISTED", "add_column_hint", "ids_without_edges", "newly_unknown_consent", "unknown_consent",
+           "edge_digest"]
 
 #: Ids listed in a warning; the count says how many there are in all.
 MAX_LISTED = 20
@@ -93,6 +98,39 @@ def ids_without_edges(
         ),
         "count": count,
         "ids": shown,
+    }
+
+
+def newly_unknown_consent(
+    attrs: NodeAttributes, previous: NodeAttributes | None, n_before: int
+) -> NDArray[np.bool_] | None:
+    """People without a consent value in a version with consent data who were contactable
+    before (or are new); None when there are none."""
+    if not attrs.has_consent_data:
+        return None
+    was = np.ones(attrs.n, dtype=bool)
+    if previous is not None and previous.has_consent_data:
+        was[:n_before] = previous.contactable()[:n_before]
+    mask = np.asarray((attrs.consent < 0) & was)
+    return mask if mask.any() else None
+
+
+def unknown_consent(mask: NDArray[np.bool_], ids: Sequence[str]) -> dict[str, Any] | None:
+    """The warning for :func:`newly_unknown_consent`'s people (``mask`` over ``ids``)."""
+    where = np.flatnonzero(mask)
+    count = int(where.size)
+    if count == 0:
+        return None
+    return {
+        "code": "unknown_consent",
+        "message": (
+            f"{count} {'person has' if count == 1 else 'people have'} no consent value while the graph now "
+            "holds consent data, so they count as not contactable (only an explicit yes does). If they may "
+            "be contacted, send their consent in a node file (part=nodes, mode=append)"
+            + (f" (first {MAX_LISTED} listed)" if count > MAX_LISTED else "")
+        ),
+        "count": count,
+        "ids": [ids[int(i)] for i in where[:MAX_LISTED]],
     }
 
 

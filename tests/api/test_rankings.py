@@ -461,3 +461,29 @@ async def test_new_person_or_attribute_based_scores_are_not_reused(client) -> No
     assert_problem(r, 404, "result-not-ready")
     plain = await run_scores(client, gid, measures=["pagerank"])  # runs on version 5 itself
     assert (await ranking(client, gid, measure="pagerank"))["job_id"] == plain
+
+
+async def test_first_opt_out_on_a_graph_without_consent_data(client) -> None:  # type: ignore[no-untyped-def]
+    # The brief's sequence on edges alone: everyone is contactable until consent data arrives;
+    # from the first opt-out on, only an explicit yes counts, and the upload says so.
+    G = karate()
+    r = await client.post("/v1/graphs", json={"name": "karate", "directed": False})
+    gid = str(r.json()["id"])
+    edges = _csv([["source", "target", "weight"]] + [[IDS[u], IDS[v], d["weight"]] for u, v, d in G.edges(data=True)])
+    r = await client.post(f"/v1/graphs/{gid}/versions", content=edges, headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    jid = await run_scores(client, gid, measures=["pagerank"])
+    assert (await ranking(client, gid, measure="pagerank", contactable="true"))["total"] == 34
+    v2 = await upload_nodes(client, gid, "id,consent\nm4,no\n")
+    (warning,) = v2["warnings"]
+    assert warning["code"] == "unknown_consent" and warning["count"] == 33 and len(warning["ids"]) == 20
+    page = await ranking(client, gid, measure="pagerank", contactable="true")
+    assert (page["version"], page["scores_version"], page["job_id"], page["total"]) == (2, 1, jid, 0)
+    out = await ranking(client, gid, measure="pagerank", contactable="false")
+    assert out["total"] == 34 and "m4" in {it["node_id"] for it in out["items"]}
+    # Consent for everyone else: all but the opted-out person are contactable again, same scores.
+    v3 = await upload_nodes(client, gid, _csv([["id", "consent"]] + [[i, "yes"] for i in IDS if i != "m4"]))
+    assert v3["warnings"] == []
+    page = await ranking(client, gid, measure="pagerank", contactable="true")
+    assert (page["version"], page["scores_version"], page["total"]) == (3, 1, 33)
+    assert "m4" not in {it["node_id"] for it in page["items"]}

@@ -247,13 +247,14 @@ async def test_node_ids_without_edges_are_kept_and_listed(client) -> None:  # ty
     r = await upload(client, gid, body, part="nodes", mode="append")
     assert r.status_code == 201, r.text
     assert r.json()["nodes"] == 27  # kept: attributes may arrive before their edges
-    (warning,) = r.json()["warnings"]
+    warning, consent = r.json()["warnings"]
+    assert consent["code"] == "unknown_consent" and (consent["count"], consent["ids"]) == (1, ["bob"])
     assert warning["code"] == "ids_without_edges"
     assert warning["count"] == 25 and warning["ids"] == stray[:20]
     assert "25 people" in warning["message"]
     assert "warnings" not in r.json()["summary"]
     stored = (await client.get(f"/v1/graphs/{gid}/versions/3")).json()
-    assert stored["warnings"] == [warning]
+    assert stored["warnings"] == [warning, consent]
     # Their contactability follows their consent, as for everyone.
     node = (await client.get(f"/v1/graphs/{gid}/nodes/m00")).json()
     assert node["attributes"]["contactable"] is True and node["degree"] == 0

@@ -36,7 +36,7 @@ class GraphPage(Page):
 
 
 class UploadWarning(BaseModel):
-    code: str = Field(description="What kind of warning: `ids_without_edges`.")
+    code: str = Field(description="What kind of warning: `ids_without_edges` or `unknown_consent`.")
     message: str
     count: int = Field(description="How many records or ids it concerns in all.")
     ids: list[str] = Field(description="The first 20 of them.")
