@@ -57,12 +57,13 @@ def add_column_hint(
     required = [r for r in asked if r in ("source", "target", "id")]
     if found.complete and params:
         query = urlencode(params, quote_via=quote)
-        mapped = ", ".join(f"{r} = {c}" for r, c in found.columns.items())
-        exc.reason += (
-            f". It looks like {mapped}"
-            + (f"; the other columns ({', '.join(leftover)}) can be skipped" if "extra_columns" in params else "")
-            + f": send the upload again with ?{query}"
-        )
+        said = []
+        if found.columns:
+            said.append("it looks like " + ", ".join(f"{r} = {c}" for r, c in found.columns.items()))
+        if "extra_columns" in params:
+            said.append(f"the other column{'s' if len(leftover) > 1 else ''} ({', '.join(leftover)}) can be skipped")
+        text = "; ".join(said)
+        exc.reason += f". {text[0].upper()}{text[1:]}: send the upload again with ?{query}"
     else:
         query = None
         template = "&".join(f"{r}=<column>" for r in required)

@@ -55,6 +55,15 @@ async def test_unknown_weight_column_is_mapped(client) -> None:  # type: ignore[
     assert problem["hint"]["query"] == "weight=Messages"
 
 
+async def test_only_an_extra_column_suggests_skipping_it(client) -> None:  # type: ignore[no-untyped-def]
+    gid = await make_graph(client)
+    problem = await assert_problem(
+        await upload(client, gid, "source,target,colour\na,b,red\n"), 422, "invalid-upload", column="colour"
+    )
+    assert problem["hint"]["query"] == "extra_columns=ignore"
+    assert "The other column (colour) can be skipped: send the upload again with ?extra_columns=ignore" in problem["detail"]
+
+
 async def test_header_without_known_names_gets_a_template(client) -> None:  # type: ignore[no-untyped-def]
     gid = await make_graph(client)
     problem = await assert_problem(await upload(client, gid, "left,right\na,b\n"), 422, "invalid-upload")
