@@ -24,6 +24,8 @@ Modes
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any, Literal, TypedDict
@@ -35,7 +37,9 @@ from service import intake
 from service.analytics.errors import EmptyGraph
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.analytics.summary import graph_summary
+from service import upload_report
 from service.intake import merge
+from service.intake.dialect import open_csv
 from service.intake.tables import F64, I32, ExtraColumns, Fold
 from service.loader import LoadedVersion, version_arrays
 
@@ -54,6 +58,8 @@ class UploadOptions:
     probability: str | None = None
     id: str = "id"
     extra_columns: ExtraColumns = "error"
+    delimiter: str | None = None  # CSV: None detects it from the first lines
+    charset: str | None = None  # CSV: the Content-Type's charset parameter
 
 
 class _EdgeReadOptions(TypedDict):
@@ -78,6 +84,7 @@ class BuiltVersion:
     nodes: int
     edges: int
     stats: dict[str, Any] = field(default_factory=dict)
+    edges_digest: str | None = None
 
 
 def build_version(
@@ -111,8 +118,24 @@ def build_version(
     )
     edges: intake.EdgeTable | None = None
     nodes: intake.NodeTable | None = None
-    with open(path, "rb") as fh:
-        if options.fmt == "graphml":
+    read_as: dict[str, str] = {}
+    with open(path, "rb") as fh, _column_hints(options):
+        if options.fmt == "csv":
+            source = open_csv(fh, charset=options.charset, delimiter=options.delimiter)
+            read_as = {"encoding": source.encoding, "delimiter": source.delimiter_name}
+            try:
+                if options.part == "edges":
+                    edges = intake.read_edges_csv(source.fh, interner, **edge_opts, delimiter=source.delimiter)
+                else:
+                    nodes = intake.read_nodes_csv(
+                        source.fh, interner, id=options.id, limits=limits, delimiter=source.delimiter
+                    )
+            except intake.InvalidEncoding as exc:
+                if source.encoding != "utf-8" or options.charset is not None:
+                    raise
+                # Not UTF-8 after all, past the prefix that was checked: name the encoding.
+                raise intake.explain_not_utf8(fh, exc.line) from None
+        elif options.fmt == "graphml":
             edges, nodes = intake.read_graphml(
                 fh,
                 interner,
@@ -125,14 +148,12 @@ def build_version(
             )
         elif options.part == "edges":
             reader = {
-                "csv": intake.read_edges_csv,
                 "ndjson": intake.read_edges_ndjson,
                 "json": intake.read_edges_json,
             }[options.fmt]
             edges = reader(fh, interner, **edge_opts)
         else:
             reader_n = {
-                "csv": intake.read_nodes_csv,
                 "ndjson": intake.read_nodes_ndjson,
                 "json": intake.read_nodes_json,
             }[options.fmt]
@@ -176,6 +197,7 @@ def build_version(
         attrs = merge.merge_node_table(prev_attrs, nodes, n, mode=node_mode)
     else:
         attrs = _extend_attrs(prev_attrs if prev_attrs is not None else NodeAttributes.empty(0), n)
+    unknown_consent = upload_report.newly_unknown_consent(attrs, prev_attrs, n_before)
 
     # 3. Nodes that leave the graph.
     drop = np.zeros(n, dtype=bool)
@@ -197,7 +219,16 @@ def build_version(
     if graph.n == 0:
         raise EmptyGraph("the upload leaves the graph with no nodes", field="body")
 
-    summary = graph_summary(graph)
+    warnings: list[dict[str, Any]] = []
+    if nodes is not None and options.part == "nodes" and options.mode != "remove":
+        alone = upload_report.ids_without_edges(graph, ids, nodes.index)
+        if alone is not None:
+            warnings.append(alone)
+    if unknown_consent is not None:
+        lost = upload_report.unknown_consent(unknown_consent[~drop], ids)
+        if lost is not None:
+            warnings.append(lost)
+    summary = {**graph_summary(graph), **read_as, "warnings": warnings}
     arrays, manifest = version_arrays(graph, ids, attrs)
     origin = {
         "part": options.part,
@@ -208,7 +239,23 @@ def build_version(
         "based_on": previous.number if previous is not None else None,
         **stats,
     }
-    return BuiltVersion(arrays, manifest, summary, origin, graph.n, graph.m, stats)
+    digest = upload_report.edge_digest(graph, ids)
+    return BuiltVersion(arrays, manifest, summary, origin, graph.n, graph.m, stats, digest)
+
+
+@contextmanager
+def _column_hints(options: UploadOptions) -> Iterator[None]:
+    """Complete a header error with the columns the header probably means."""
+    try:
+        yield
+    except (intake.MissingColumn, intake.UnknownColumn) as exc:
+        asked: dict[str, str | None] = (
+            {"id": options.id} if options.part == "nodes" and options.fmt != "graphml" else
+            {"source": options.source, "target": options.target, "weight": options.weight,
+             "probability": options.probability}
+        )
+        upload_report.add_column_hint(exc, part=options.part, asked=asked, extra_columns=options.extra_columns)
+        raise
 
 
 def _folder(directed: bool, rule: merge.MergeRule) -> Fold:

@@ -324,18 +324,24 @@ def safe_cell(text: str | None) -> str | None:
     return text
 
 
-def encode_cursor(result_id: str, position: int, query: str) -> str:
-    raw = json.dumps([result_id, position, query], separators=(",", ":")).encode()
+def encode_cursor(result_id: str, position: int, query: str, nodes: str | None = None) -> str:
+    """``nodes``: the version whose people the page shows, when it is not the result's own
+    (a later version with the same edges reusing the result)."""
+    parts: list[object] = [result_id, position, query] + ([nodes] if nodes is not None else [])
+    raw = json.dumps(parts, separators=(",", ":")).encode()
     return base64.urlsafe_b64encode(raw).decode().rstrip("=")
 
 
-def decode_cursor(cursor: str) -> tuple[str, int, str]:
-    """(result id, position, query digest); ValueError when it is not one we issued."""
+def decode_cursor(cursor: str) -> tuple[str, int, str, str | None]:
+    """(result id, position, query digest, nodes version id or None); ValueError when it is
+    not one we issued."""
     try:
-        rid, pos, query = json.loads(base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)))
-        if not (isinstance(rid, str) and isinstance(pos, int) and isinstance(query, str) and pos >= 0):
+        rid, pos, query, *rest = json.loads(base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)))
+        nodes = rest[0] if rest else None
+        if not (isinstance(rid, str) and isinstance(pos, int) and isinstance(query, str) and pos >= 0
+                and len(rest) <= 1 and (nodes is None or isinstance(nodes, str))):
             raise ValueError
-        return rid, pos, query
+        return rid, pos, query, nodes
     except (ValueError, TypeError, binascii.Error):
         raise ValueError("cursor is not one this service issued") from None
 

@@ -12,6 +12,7 @@ from fastapi.responses import JSONResponse
 
 
 from service.intake import SizeLimits
+from service.intake.dialect import parse_delimiter
 from service.loader import load_version
 from storage.db import write_session
 from storage.repo import graphs as graph_repo
@@ -48,6 +49,8 @@ def graph_read(g: object) -> GraphRead:
 
 
 def version_read(graph_id: str, v: object) -> VersionRead:
+    summary = dict(v.summary)  # type: ignore[attr-defined]
+    warnings = summary.pop("warnings", [])
     return VersionRead(
         graph_id=graph_id,
         number=v.number,  # type: ignore[attr-defined]
@@ -55,7 +58,8 @@ def version_read(graph_id: str, v: object) -> VersionRead:
         nodes=v.nodes,  # type: ignore[attr-defined]
         edges=v.edges,  # type: ignore[attr-defined]
         origin=v.origin,  # type: ignore[attr-defined]
-        summary=v.summary,  # type: ignore[attr-defined]
+        summary=summary,
+        warnings=warnings,
     )
 
 
@@ -156,9 +160,14 @@ async def create_version(
     probability: Annotated[str | None, Query(max_length=200)] = None,
     id: Annotated[str, Query(min_length=1, max_length=200)] = "id",
     extra_columns: Literal["error", "ignore"] = "error",
+    delimiter: Annotated[
+        str | None,
+        Query(max_length=20, description="CSV field separator: comma, semicolon, tab or pipe (or the "
+              "character); detected from the first lines when absent."),
+    ] = None,
     idempotency_key: IdemKey = None,
 ) -> JSONResponse:
-    ctype = (request.headers.get("content-type") or "").split(";")[0].strip().lower()
+    ctype, charset = media_type(request.headers.get("content-type"))
     fmt = FORMATS.get(ctype)
     if fmt is None:
         raise UnsupportedMediaType(
@@ -166,6 +175,8 @@ async def create_version(
             + ", ".join(sorted({"text/csv", "application/x-ndjson", "application/json", "application/graphml+xml"})),
             field="Content-Type",
         )
+    if delimiter is not None:
+        parse_delimiter(delimiter)  # refuse a bad value before reading the body
     if fmt == "graphml" and part == "nodes":
         part = "edges"  # a GraphML file carries both; its nodes are applied with its edges
     from service import ingest
@@ -187,6 +198,8 @@ async def create_version(
             probability=probability,
             id=id,
             extra_columns=extra_columns,
+            delimiter=delimiter,
+            charset=charset,
         )
         limits = SizeLimits(
             settings.upload_max_id_chars, settings.upload_max_label_chars, settings.upload_max_value_chars
@@ -229,6 +242,7 @@ async def create_version(
                     origin=made.origin,
                     nodes=made.nodes,
                     edges=made.edges,
+                    edges_digest=made.edges_digest,
                 )
                 body = version_read(g.id, version).model_dump(mode="json")
                 location = f"/v1/graphs/{g.id}/versions/{version.number}"
@@ -263,6 +277,17 @@ def list_versions(graph_id: str, db: DbDep, tenant: TenantDep) -> VersionList:
 def read_version(graph_id: str, number: str, db: DbDep, tenant: TenantDep) -> VersionRead:
     graph = graph_repo.get_graph(db, tenant, graph_id)
     return version_read(graph.id, graph_repo.get_version(db, graph, parse_version(number)))
+
+
+def media_type(header: str | None) -> tuple[str, str | None]:
+    """``"text/csv; charset=windows-1252"`` -> ``("text/csv", "windows-1252")`` (RFC 9110 section 8.3.1)."""
+    ctype, *params = (header or "").split(";")
+    charset = None
+    for param in params:
+        name, _, value = param.partition("=")
+        if name.strip().lower() == "charset":
+            charset = value.strip().strip('"') or None
+    return ctype.strip().lower(), charset
 
 
 def parse_version(number: str | int | None) -> int | None:

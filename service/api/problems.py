@@ -42,6 +42,7 @@ PROBLEM_TYPES: list[tuple[type[Exception], ProblemType]] = [
     (serr.LeaseLost, ProblemType(409, "lease-lost", "Job lease lost")),
     (ierr.UnsafeXml, ProblemType(422, "unsafe-xml", "XML with DTD or entities refused")),
     (ierr.EmptyUpload, ProblemType(422, "empty-upload", "Upload holds no records")),
+    (ierr.InvalidEncoding, ProblemType(422, "invalid-encoding", "Text encoding not declared")),
     (ierr.UploadError, ProblemType(422, "invalid-upload", "Upload could not be read")),
     (ierr.InvalidOption, ProblemType(422, "invalid-parameter", "Invalid parameter")),
     (ierr.IntakeError, ProblemType(422, "invalid-upload", "Upload could not be read")),

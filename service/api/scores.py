@@ -1,7 +1,10 @@
 """Rankings, the node view and communities, read from the newest ``scores`` result.
 
 Each read finds, in one query, the newest succeeded ``scores`` job of the
-version that holds the arrays it needs, answers 304 when ``If-None-Match``
+version that holds the arrays it needs (or, when that version has none, of
+the newest earlier version with the same edge content: scores depend on the
+edges only, so an upload that changed only attributes keeps its rankings,
+filtered by the new attributes), answers 304 when ``If-None-Match``
 matches (before touching any array), and otherwise slices the result's
 stored arrays, cached per result id in :mod:`service.rankings`. Handlers are
 ``async`` and do their work in one thread-pool call: sync dependencies
@@ -62,7 +65,11 @@ router = APIRouter(prefix="/v1/graphs", tags=["scores"], responses=PROBLEM_RESPO
 
 @dataclass(frozen=True)
 class _Found:
-    """A scores result and the version it was computed on."""
+    """A scores result, and the version whose people it is shown for.
+
+    ``version``/``version_id`` is that version; ``scores_version`` the one the
+    job ran on: the same, or an earlier version with the same edge content.
+    """
 
     job_id: str
     version: int
@@ -71,6 +78,15 @@ class _Found:
     created_at: datetime
     manifest: dict[str, Any]
     data: dict[str, Any]
+    scores_version: int
+
+    @property
+    def reused(self) -> bool:
+        return self.scores_version != self.version
+
+    def cursor_nodes(self) -> str | None:
+        """The version id a cursor must carry (None when it is the result's own)."""
+        return self.version_id if self.reused else None
 
     def ranked(self) -> list[str]:
         return [m for m in self.data.get("measures", {}) if R.key("score", m) in self.manifest]
@@ -93,20 +109,61 @@ def _find_statement(which: str) -> Any:
         .where(Graph.id == bindparam("gid"), Graph.tenant_id == bindparam("tenant"), Job.kind == "scores",
                Job.status == "succeeded")
     )
+    if which == "earlier":  # versions with the same edges, newest first; params to skip attribute-based runs
+        return (q.add_columns(Job.params).where(Job.version.in_(bindparam("numbers", expanding=True)))
+                .order_by(Job.version.desc(), Job.finished_at.desc(), Job.id.desc()).limit(100))
     where = {"pinned": Job.id == bindparam("rid"), "latest": Job.version == Graph.latest_version,
              "version": Job.version == bindparam("number")}[which]
     return q.where(where).order_by(Job.finished_at.desc(), Job.id.desc()).limit(100)
 
 
 # Built once: composing the statement costs more than running it on a warm connection.
-_FIND = {which: _find_statement(which) for which in ("pinned", "latest", "version")}
+_FIND = {which: _find_statement(which) for which in ("pinned", "latest", "version", "earlier")}
+
+
+def _uses_attributes(params: dict[str, Any] | None) -> bool:
+    """A scores job whose result depends on node attributes (PageRank jumping by an attribute)."""
+    personalization = (params or {}).get("personalization") or {}
+    return bool(personalization.get("attribute"))
+
+
+def _data(db: Session, jid: str) -> dict[str, Any]:
+    def load() -> dict[str, Any]:
+        return dict(db.execute(select(JobResult.data).where(JobResult.job_id == jid)).scalar_one())
+
+    data: dict[str, Any] = R.cached(("data", jid), load)
+    return data
+
+
+def _earlier(db: Session, tenant: str, graph_id: str, target: GraphVersion, need: Sequence[str]) -> _Found | None:
+    """The newest usable result of an earlier version whose edges equal ``target``'s."""
+    numbers = graph_repo.list_same_edges(db, target)
+    if not numbers:
+        return None
+    rows = db.execute(_FIND["earlier"], {"gid": graph_id, "tenant": tenant, "numbers": numbers}).all()
+    for jid, number, _, etag, created, manifest, params in rows:
+        if all(n in manifest for n in need) and not _uses_attributes(params):
+            return _Found(jid, target.number, target.id, etag, created, manifest, _data(db, jid), number)
+    return None
+
+
+def _shown_version(db: Session, graph_id: str, nodes_id: str, scores_version_id: str) -> GraphVersion:
+    """The version a reusing cursor names, checked to have the result's edges."""
+    shown, own = db.get(GraphVersion, nodes_id), db.get(GraphVersion, scores_version_id)
+    if (shown is None or own is None or shown.graph_id != graph_id or shown.edges_digest is None
+            or shown.edges_digest != own.edges_digest):
+        raise NotFound("the cursor's version no longer exists; start again without a cursor",
+                       resource="version", id=nodes_id)
+    return shown
 
 
 def _find(
     db: Session, tenant: str, graph_id: str, version: int | None, need: Sequence[str], *,
-    result_id: str | None = None, what: Sequence[str] = (),
+    result_id: str | None = None, nodes_id: str | None = None, what: Sequence[str] = (),
 ) -> _Found:
-    """The newest succeeded scores result of the version holding every array in ``need``."""
+    """The newest succeeded scores result of the version holding every array in ``need``,
+    else of the newest earlier version with the same edges (see the module notes).
+    ``nodes_id``: a pinned cursor's version, when it reused an earlier result."""
     args: dict[str, Any] = {"gid": graph_id, "tenant": tenant}
     if result_id is not None:
         stmt, args["rid"] = _FIND["pinned"], result_id
@@ -118,16 +175,19 @@ def _find(
         stmt, args
     ).all():
         if all(n in manifest for n in need):
-            def load(j: str = jid) -> dict[str, Any]:
-                return dict(db.execute(select(JobResult.data).where(JobResult.job_id == j)).scalar_one())
-
-            data: dict[str, Any] = R.cached(("data", jid), load)
-            return _Found(jid, number, vid, etag, created, manifest, data)
+            if nodes_id is not None and nodes_id != vid:
+                shown = _shown_version(db, graph_id, nodes_id, vid)
+                return _Found(jid, shown.number, shown.id, etag, created, manifest, _data(db, jid), number)
+            return _Found(jid, number, vid, etag, created, manifest, _data(db, jid), number)
     graph = graph_repo.get_graph(db, tenant, graph_id)
     if result_id is not None:
         raise NotFound("the cursor's scores result no longer exists; start again without a cursor",
                        resource="result", id=result_id)
-    number = graph_repo.get_version(db, graph, version).number
+    target = graph_repo.get_version(db, graph, version)
+    reused = _earlier(db, tenant, graph_id, target, need)
+    if reused is not None:
+        return reused
+    number = target.number
     params = f', "params": {{"measures": {json.dumps(list(what))}}}' if what else ""
     raise ResultNotReady(
         f"no succeeded scores job on version {number} of this graph has "
@@ -166,17 +226,18 @@ def _digest(*parts: object) -> str:
     return hashlib.sha256(json.dumps([ETAG_SALT, *parts], sort_keys=True, default=str).encode()).hexdigest()
 
 
-def _cursor(cursor: str | None, query: str) -> tuple[str | None, int]:
-    """(pinned result id, position) of a cursor issued for this query (``query``: its digest)."""
+def _cursor(cursor: str | None, query: str) -> tuple[str | None, int, str | None]:
+    """(pinned result id, position, version id shown) of a cursor issued for this query
+    (``query``: its digest)."""
     if cursor is None:
-        return None, 0
+        return None, 0, None
     try:
-        pinned, position, issued_for = R.decode_cursor(cursor)
+        pinned, position, issued_for, nodes_id = R.decode_cursor(cursor)
     except ValueError as exc:
         raise InvalidParams(str(exc), field="cursor") from exc
     if issued_for != query[:16]:
         raise InvalidParams("the cursor belongs to another query; repeat that query's parameters", field="cursor")
-    return pinned, position
+    return pinned, position, nodes_id
 
 
 def _not_modified(if_none_match: str | None, *parts: object) -> tuple[dict[str, str], Response | None]:
@@ -246,11 +307,12 @@ def _ranking(db: Session, found: _Found, q: _RankingQuery) -> R.Ranking:
 
 def _read_ranking(db: Session, tenant: str, q: _RankingQuery, cursor: str | None,
                   if_none_match: str | None) -> Response:
-    pinned, position = _cursor(cursor, q.digest)
+    pinned, position, nodes_id = _cursor(cursor, q.digest)
     need = [R.key("pct" if q.weights else "order", m) for m in q.names]
     need += [R.key("community", "membership")] if q.community is not None else []
-    found = _find(db, tenant, q.graph_id, q.version, need, result_id=pinned, what=q.names)
-    headers, unchanged = _not_modified(if_none_match, found.job_id, found.etag, q.digest, q.limit, position, q.format)
+    found = _find(db, tenant, q.graph_id, q.version, need, result_id=pinned, nodes_id=nodes_id, what=q.names)
+    headers, unchanged = _not_modified(if_none_match, found.job_id, found.etag, found.version_id, q.digest, q.limit,
+                                       position, q.format)
     if unchanged is not None:
         return unchanged
     nodes = _nodes(db, found.version_id)
@@ -262,7 +324,7 @@ def _read_ranking(db: Session, tenant: str, q: _RankingQuery, cursor: str | None
     except ValueError as exc:
         raise InvalidParams(str(exc), field="segment") from exc
     order: NDArray[np.int32] = ranking.order if mask is None else R.cached(
-        ("filtered", found.job_id, q.digest), lambda: ranking.order[mask[ranking.order]])
+        ("filtered", found.job_id, found.version_id, q.digest), lambda: ranking.order[mask[ranking.order]])
     if q.format == "csv":
         name = f"rankings-{q.graph_id}-v{found.version}-{q.measure}.csv"
         headers["Content-Disposition"] = f'attachment; filename="{name}"'
@@ -272,7 +334,8 @@ def _read_ranking(db: Session, tenant: str, q: _RankingQuery, cursor: str | None
     cols = R.columns(page, ranking, nodes, membership)
     measures = found.data["measures"]
     body = {
-        "graph_id": q.graph_id, "version": found.version, "job_id": found.job_id,
+        "graph_id": q.graph_id, "version": found.version, "scores_version": found.scores_version,
+        "job_id": found.job_id,
         "computed_at": found.created_at.isoformat().replace("+00:00", "Z"),
         "measure": q.measure, "weights": q.weights, "total": int(order.shape[0]),
         "meta": measures[q.measure] if q.weights is None else
@@ -282,7 +345,7 @@ def _read_ranking(db: Session, tenant: str, q: _RankingQuery, cursor: str | None
              "contactable": ct, "label": lb, "community": cm}
             for k, (nid, sc, p, sg, ct, lb, cm) in enumerate(zip(*cols))
         ],
-        "next_cursor": R.encode_cursor(found.job_id, position + q.limit, q.digest[:16])
+        "next_cursor": R.encode_cursor(found.job_id, position + q.limit, q.digest[:16], found.cursor_nodes())
         if position + q.limit < order.shape[0] else None,
     }
     return JSONResponse(body, headers=headers)
@@ -381,6 +444,7 @@ def _read_node(db: Session, tenant: str, graph_id: str, nid: str, version: int |
         "degree": out_deg + in_deg,  # undirected: each edge once as src or dst; a self-loop twice
         "in_degree": in_deg if g.directed else None, "out_degree": out_deg if g.directed else None,
         "job_id": found.job_id if found else None, "computed_at": found.created_at if found else None,
+        "scores_version": found.scores_version if found else None,
         "scores": scores, "community": community,
     })
 
@@ -411,13 +475,14 @@ def _read_communities(
     db: Session, tenant: str, graph_id: str, version: int | None, measure: str | None, top: int, limit: int,
     cursor: str | None, digest: str, if_none_match: str | None,
 ) -> Response:
-    pinned, position = _cursor(cursor, digest)
+    pinned, position, nodes_id = _cursor(cursor, digest)
     need = [R.key("community", "membership")] + ([R.key("order", measure)] if measure else [])
-    found = _find(db, tenant, graph_id, version, need, result_id=pinned,
+    found = _find(db, tenant, graph_id, version, need, result_id=pinned, nodes_id=nodes_id,
                   what=["community"] + ([measure] if measure else []))
     ranked = found.ranked()
     by = measure or ("degree" if "degree" in ranked else (ranked[0] if ranked else None))
-    headers, unchanged = _not_modified(if_none_match, found.job_id, found.etag, digest, top, limit, position)
+    headers, unchanged = _not_modified(if_none_match, found.job_id, found.etag, found.version_id, digest, top, limit,
+                                       position)
     if unchanged is not None:
         return unchanged
     nodes = _nodes(db, found.version_id)
@@ -446,10 +511,11 @@ def _read_communities(
         })
     meta = found.data["measures"].get("community", {})
     body = CommunityPage(
-        graph_id=graph_id, version=found.version, job_id=found.job_id, computed_at=found.created_at,
+        graph_id=graph_id, version=found.version, scores_version=found.scores_version, job_id=found.job_id,
+        computed_at=found.created_at,
         count=int(labels.shape[0]), modularity=meta.get("modularity"), measure=by or "node_id", meta=meta,
         items=items,  # type: ignore[arg-type]
-        next_cursor=R.encode_cursor(found.job_id, position + limit, digest[:16])
+        next_cursor=R.encode_cursor(found.job_id, position + limit, digest[:16], found.cursor_nodes())
         if position + limit < labels.shape[0] else None,
     )
     return JSONResponse(body.model_dump(mode="json"), headers=headers)

@@ -12,17 +12,36 @@ values in characters (settings of the service, passed in as
 :class:`SizeLimits`), JSON nesting and number length, so a hostile body is
 refused with its line instead of costing memory or time.
 
-It imports the standard library, numpy, defusedxml, ijson and
+It imports the standard library, numpy, defusedxml, ijson, charset-normalizer and
 ``service.analytics.graph`` only: no HTTP, database or pydantic code.
 """
 
 from __future__ import annotations
 
 from .csvfile import read_edges_csv, read_nodes_csv
+from .dialect import (
+    DELIMITER_NAMES,
+    DELIMITERS,
+    CsvSource,
+    delimiter_name,
+    detect_delimiter,
+    open_csv,
+    parse_delimiter,
+)
+from .encoding import (
+    LIKELY,
+    PREFIX_BYTES,
+    TextSource,
+    charset_label,
+    explain_not_utf8,
+    guess_encoding,
+    open_utf8,
+)
 from .errors import (
     MAX_VALUE_CHARS,
     EmptyUpload,
     IntakeError,
+    InvalidEncoding,
     InvalidOption,
     MissingColumn,
     UnknownColumn,
@@ -32,6 +51,7 @@ from .errors import (
     UploadError,
 )
 from .graphml import GRAPHML_NS, read_graphml
+from .hints import EDGE_NAMES, NODE_NAMES, ColumnHint, normalise, suggest_columns
 from .interner import MAX_NODES, Interner
 from .limits import (
     MAX_DEPTH,
@@ -59,6 +79,7 @@ __all__ = [
     # errors
     "IntakeError",
     "InvalidOption",
+    "InvalidEncoding",
     "UploadError",
     "EmptyUpload",
     "MissingColumn",
@@ -91,6 +112,26 @@ __all__ = [
     "read_nodes_json",
     "read_graphml",
     "GRAPHML_NS",
+    # encodings, delimiters and column hints (CSV)
+    "open_csv",
+    "CsvSource",
+    "parse_delimiter",
+    "detect_delimiter",
+    "delimiter_name",
+    "DELIMITERS",
+    "DELIMITER_NAMES",
+    "open_utf8",
+    "TextSource",
+    "guess_encoding",
+    "explain_not_utf8",
+    "charset_label",
+    "LIKELY",
+    "PREFIX_BYTES",
+    "suggest_columns",
+    "ColumnHint",
+    "normalise",
+    "EDGE_NAMES",
+    "NODE_NAMES",
     # merging
     "MergeRule",
     "MERGE_RULES",

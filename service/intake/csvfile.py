@@ -19,7 +19,7 @@ from typing import BinaryIO
 
 import numpy as np
 
-from .errors import EmptyUpload, MissingColumn, UnknownColumn, UploadError
+from .errors import EmptyUpload, InvalidEncoding, MissingColumn, UnknownColumn, UploadError
 from .interner import Interner
 from .limits import SizeLimits
 from .tables import EdgeOptions, EdgeSink, EdgeTable, ExtraColumns, Fold, Locate, NodeSink, NodeTable
@@ -42,6 +42,7 @@ def read_edges_csv(
     extra_columns: ExtraColumns = "error",
     limits: SizeLimits | None = None,
     fold: Fold | None = None,
+    delimiter: str = ",",
     block_bytes: int = BLOCK_BYTES,
 ) -> EdgeTable:
     """Read edges from an RFC 4180 CSV file with a header row.
@@ -61,6 +62,7 @@ def read_edges_csv(
         :class:`~service.intake.limits.SizeLimits` when None.
     fold : merges repeated edges as blocks arrive (the upload's duplicate
         rule), so memory follows distinct edges; None keeps every record.
+    delimiter : the field separator, one character (``,`` ``;`` tab ``|``).
     block_bytes : read size; only tests change it.
 
     Returns
@@ -105,7 +107,7 @@ def read_edges_csv(
         sink = EdgeSink(interner, opts, limits=limits, fold=fold)
         size, seen = _body_size(fh), 0
         blocks = _blocks(fh, block_bytes)
-        header, hline, first = _header(blocks)
+        header, hline, first = _header(blocks, delimiter)
         plan = _edge_plan(header, hline, opts)
         k = len(header)
         for raw, text, line0, quoted in chain(first, blocks):
@@ -115,9 +117,9 @@ def read_edges_csv(
                 sink.reserve(min(int(sink.records * size / seen * 1.05) + 1024, size // 2 + 1))
                 size = 0
             seen += len(raw)
-            flat = None if quoted else _plain_fields(raw, text, k)
+            flat = None if quoted else _plain_fields(raw, text, k, delimiter)
             if flat is None:
-                rows, locate = _csv_rows(text, line0)
+                rows, locate = _csv_rows(text, line0, delimiter)
                 bad = next((i for i, r in enumerate(rows) if len(r) != k), -1)
                 if bad >= 0:
                     _edge_block(sink, list(chain.from_iterable(rows[:bad])), k, plan, locate)
@@ -138,6 +140,7 @@ def read_nodes_csv(
     *,
     id: str = "id",  # noqa: A002 - the API's query parameter name
     limits: SizeLimits | None = None,
+    delimiter: str = ",",
     block_bytes: int = BLOCK_BYTES,
 ) -> NodeTable:
     """Read node attributes from a CSV file with a header row.
@@ -165,7 +168,7 @@ def read_nodes_csv(
     try:
         sink = NodeSink(interner, id_column=id, limits=limits)
         blocks = _blocks(fh, block_bytes)
-        header, hline, first = _header(blocks)
+        header, hline, first = _header(blocks, delimiter)
         if id not in header:
             raise MissingColumn(
                 f"missing required column {id!r}; header found: {', '.join(header)}",
@@ -176,7 +179,7 @@ def read_nodes_csv(
         k = len(header)
         pos = header.index(id)
         for _, text, line0, _ in chain(first, blocks):
-            reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+            reader = csv.reader(io.StringIO(text, newline=""), strict=True, delimiter=delimiter)
             prev = 0
             try:
                 for row in reader:
@@ -258,7 +261,7 @@ def _decode(raw: bytes, line: int) -> str:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         bad = raw[exc.start : exc.start + 4]
-        raise UploadError(
+        raise InvalidEncoding(
             "not valid UTF-8", line=line + raw.count(b"\n", 0, exc.start), value=repr(bad)
         ) from None
     if "\x00" in text:
@@ -267,11 +270,11 @@ def _decode(raw: bytes, line: int) -> str:
     return text
 
 
-def _header(blocks: Iterator[Block]) -> tuple[list[str], int, list[Block]]:
+def _header(blocks: Iterator[Block], delimiter: str) -> tuple[list[str], int, list[Block]]:
     """The header row, its line, and the rest of its block (as a one-block list)."""
     for raw, text, line0, quoted in blocks:
         sio = io.StringIO(text, newline="")
-        reader = csv.reader(iter(sio.readline, ""), strict=True)
+        reader = csv.reader(iter(sio.readline, ""), strict=True, delimiter=delimiter)
         prev = 0
         try:
             for row in reader:
@@ -295,11 +298,11 @@ def _header(blocks: Iterator[Block]) -> tuple[list[str], int, list[Block]]:
     raise EmptyUpload("the upload is empty (no header row)")
 
 
-def _plain_fields(raw: bytes, text: str, k: int) -> list[str] | None:
+def _plain_fields(raw: bytes, text: str, k: int, delimiter: str) -> list[str] | None:
     """Split a block without quotes; None when a line has the wrong field count."""
     b = np.frombuffer(raw, dtype=np.uint8)
     ends = np.flatnonzero(b == 10)
-    commas = np.flatnonzero(b == 44)
+    commas = np.flatnonzero(b == ord(delimiter))
     per_line = np.diff(np.searchsorted(commas, ends), prepend=0)
     if not bool(np.all(per_line == k - 1)):
         return None  # blank lines or a bad row: let the csv path find the line
@@ -307,7 +310,7 @@ def _plain_fields(raw: bytes, text: str, k: int) -> list[str] | None:
         text = text.replace("\r\n", "\n")
         if "\r" in text:
             return None  # a bare CR is a line break to csv; let it decide
-    flat = text.replace("\n", ",").split(",")
+    flat = text.replace("\n", delimiter).split(delimiter)
     flat.pop()  # the empty string after the final newline
     return flat
 
@@ -316,16 +319,16 @@ def _plain_locator(line0: int) -> Locate:
     return lambda i: line0 + i
 
 
-def _csv_rows(text: str, line0: int) -> tuple[list[list[str]], Locate]:
+def _csv_rows(text: str, line0: int, delimiter: str) -> tuple[list[list[str]], Locate]:
     """Rows of a block (blank lines dropped) and their first physical lines."""
-    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True, delimiter=delimiter)
     try:
         rows = list(reader)
     except csv.Error as exc:
         raise UploadError(f"broken CSV: {exc}", line=line0 + reader.line_num - 1) from None
 
     def locate(i: int) -> int:
-        again = csv.reader(io.StringIO(text, newline=""), strict=True)
+        again = csv.reader(io.StringIO(text, newline=""), strict=True, delimiter=delimiter)
         prev, j = 0, -1
         for row in again:
             j += bool(row)
@@ -370,6 +373,7 @@ def _edge_plan(
             "(or pass extra_columns=ignore)",
             line=line,
             column=unknown[0],
+            header=tuple(header),
         )
     wc, pc = opts.weight_column, opts.probability_column
     return (

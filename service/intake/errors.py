@@ -18,6 +18,7 @@ __all__ = [
     "UnsafeXml",
     "TooDeep",
     "TooLong",
+    "InvalidEncoding",
     "MAX_VALUE_CHARS",
 ]
 
@@ -54,6 +55,8 @@ class UploadError(IntakeError):
     reason : what is wrong, in a few words.
     value : the offending text, cut to 80 characters.
     unit : ``"line"`` or ``"record"``.
+    hint : how to fix it, as data (set by the caller that knows the options),
+        e.g. ``{"header": [...], "query": "source=From&target=To"}``.
     """
 
     def __init__(
@@ -69,6 +72,7 @@ class UploadError(IntakeError):
         self.column = column
         self.value = None if value is None else _cut(value)
         self.unit: Unit = unit
+        self.hint: dict[str, object] | None = None
         super().__init__(reason)
 
     def __str__(self) -> str:
@@ -84,13 +88,16 @@ class UploadError(IntakeError):
 
     def as_dict(self) -> dict[str, object]:
         """The error's data, for a problem document's extension members."""
-        return {
+        out: dict[str, object] = {
             "line": self.line,
             "column": self.column,
             "reason": self.reason,
             "value": self.value,
             "unit": self.unit,
         }
+        if self.hint is not None:
+            out["hint"] = self.hint
+        return out
 
 
 class EmptyUpload(UploadError):
@@ -116,6 +123,35 @@ class MissingColumn(UploadError):
 
 class UnknownColumn(UploadError):
     """The upload has a column this part does not use."""
+
+    def __init__(
+        self,
+        reason: str | None = None,
+        *,
+        header: tuple[str, ...] = (),
+        **kw: object,
+    ) -> None:
+        self.header = header
+        super().__init__(reason, **kw)  # type: ignore[arg-type]
+
+    def as_dict(self) -> dict[str, object]:
+        out = super().as_dict()
+        if self.header:
+            out["header"] = list(self.header)
+        return out
+
+
+class InvalidEncoding(UploadError):
+    """The file's text encoding is not UTF-8 and was not declared."""
+
+    def __init__(self, reason: str | None = None, *, likely: str | None = None,
+                 charset: str | None = None, **kw: object) -> None:
+        self.likely = likely
+        self.charset = charset
+        super().__init__(reason, **kw)  # type: ignore[arg-type]
+
+    def as_dict(self) -> dict[str, object]:
+        return {**super().as_dict(), "likely_encoding": self.likely, "charset": self.charset}
 
 
 class UnsafeXml(UploadError):

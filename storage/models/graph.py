@@ -5,7 +5,7 @@ from __future__ import annotations
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import JSON, Boolean, ForeignKey, Integer, LargeBinary, String, Text, UniqueConstraint
+from sqlalchemy import JSON, Boolean, ForeignKey, Index, Integer, LargeBinary, String, Text, UniqueConstraint
 from sqlalchemy.orm import Mapped, mapped_column, relationship
 
 from .base import Base, UtcDateTime, utcnow
@@ -34,7 +34,10 @@ class GraphVersion(Base):
     """One immutable version. Its arrays live in :class:`VersionArray` chunks."""
 
     __tablename__ = "graph_version"
-    __table_args__ = (UniqueConstraint("graph_id", "number"),)
+    __table_args__ = (
+        UniqueConstraint("graph_id", "number"),
+        Index("ix_graph_version_graph_id_edges_digest", "graph_id", "edges_digest"),
+    )
 
     id: Mapped[str] = mapped_column(String(40), primary_key=True)
     graph_id: Mapped[str] = mapped_column(ForeignKey("graph.id", ondelete="CASCADE"), index=True)
@@ -47,6 +50,9 @@ class GraphVersion(Base):
     summary: Mapped[dict[str, Any]] = mapped_column(JSON)
     # name -> {"dtype": ..., "length": ...} for every stored array, plus labels.
     manifest: Mapped[dict[str, Any]] = mapped_column(JSON)
+    # SHA-256 of the edge content (node ids in order, edge arrays): versions with
+    # equal digests have equal scores, so a later one can reuse an earlier one's.
+    edges_digest: Mapped[str | None] = mapped_column(String(64), default=None)
 
     graph: Mapped[Graph] = relationship(back_populates="versions")
 

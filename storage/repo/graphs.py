@@ -25,6 +25,7 @@ __all__ = [
     "get_version",
     "list_versions",
     "get_version_arrays",
+    "list_same_edges",
     "encode_cursor",
     "decode_cursor",
 ]
@@ -108,6 +109,7 @@ def add_version(
     origin: dict[str, Any],
     nodes: int,
     edges: int,
+    edges_digest: str | None = None,
 ) -> GraphVersion:
     """Write a new version numbered ``based_on + 1``.
 
@@ -135,6 +137,7 @@ def add_version(
         origin=origin,
         summary=summary,
         manifest={},
+        edges_digest=edges_digest,
     )
     db.add(version)
     db.flush()
@@ -172,3 +175,20 @@ def get_version_arrays(
     return read_arrays(db, VersionArray, version.id, manifest, wanted)
 
 
+
+
+def list_same_edges(db: Session, version: GraphVersion) -> list[int]:
+    """Numbers of the earlier versions of the graph with the same edge content, newest first."""
+    if version.edges_digest is None:
+        return []
+    return list(
+        db.execute(
+            select(GraphVersion.number)
+            .where(
+                GraphVersion.graph_id == version.graph_id,
+                GraphVersion.edges_digest == version.edges_digest,
+                GraphVersion.number < version.number,
+            )
+            .order_by(GraphVersion.number.desc())
+        ).scalars()
+    )

@@ -378,8 +378,113 @@ def test_percentiles_orders_and_helpers() -> None:
     assert R.safe_cell("=1+1") == "'=1+1" and R.safe_cell("\tx") == "'\tx" and R.safe_cell("\rx") == "'\rx"
     assert R.safe_cell("a=b") == "a=b" and R.safe_cell(None) is None
     c = R.encode_cursor("j_1", 40, "abc")
-    assert R.decode_cursor(c) == ("j_1", 40, "abc")
+    assert R.decode_cursor(c) == ("j_1", 40, "abc", None)
+    assert R.decode_cursor(R.encode_cursor("j_1", 40, "abc", "v_2")) == ("j_1", 40, "abc", "v_2")
     with pytest.raises(ValueError):
         R.decode_cursor("bm90IGpzb24")
     with pytest.raises(ValueError):
         R.parse_weights("pagerank:-1", ["pagerank"])
+
+
+# -- scores reused after an attribute-only upload --------------------------------------
+
+
+async def upload_nodes(client: httpx.AsyncClient, gid: str, body: str) -> dict[str, Any]:
+    r = await client.post(f"/v1/graphs/{gid}/versions", content=body, params={"part": "nodes", "mode": "append"},
+                          headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    return dict(r.json())
+
+
+async def test_opt_out_keeps_rankings_filtered_by_the_new_consent(client) -> None:  # type: ignore[no-untyped-def]
+    gid = await upload_karate(client)  # version 1 edges, version 2 attributes
+    jid = await run_scores(client, gid, measures=["pagerank", "community"])
+    before = await ranking(client, gid, measure="pagerank", contactable="true")
+    assert (before["version"], before["scores_version"]) == (2, 2)
+    out = "m4"
+    assert consent(4) and out in {it["node_id"] for it in before["items"]}
+    v3 = await upload_nodes(client, gid, f"id,consent\n{out},no\n")
+    assert v3["number"] == 3 and v3["warnings"] == []
+    # Source: the same result filtered by the new consent, so exactly the old list without m4.
+    after = await ranking(client, gid, measure="pagerank", contactable="true")
+    assert (after["version"], after["scores_version"], after["job_id"]) == (3, 2, jid)
+    assert [it["node_id"] for it in after["items"]] == [it["node_id"] for it in before["items"] if it["node_id"] != out]
+    assert after["total"] == before["total"] - 1
+    full = await ranking(client, gid, measure="pagerank")
+    m4 = next(it for it in full["items"] if it["node_id"] == out)
+    assert m4["contactable"] is False
+    # The version-2 view is unchanged, and the two views have different ETags.
+    url, q = f"/v1/graphs/{gid}/rankings", {"measure": "pagerank", "contactable": "true", "limit": 5}
+    assert (await ranking(client, gid, measure="pagerank", contactable="true", version=2))["items"] == before["items"]
+    old = await client.get(url, params={**q, "version": 2})
+    new = await client.get(url, params=q)
+    assert new.headers["etag"] != old.headers["etag"]
+    # Paging keeps showing version 3's people.
+    seen, cursor = [], None
+    while True:
+        r = await client.get(url, params={**q, **({"cursor": cursor} if cursor else {})})
+        assert r.status_code == 200 and r.json()["version"] == 3, r.text
+        seen += [it["node_id"] for it in r.json()["items"]]
+        cursor = r.json()["next_cursor"]
+        if not cursor:
+            break
+    assert seen == [it["node_id"] for it in after["items"]]
+    # The node view and the communities read the same result for version 3.
+    node = (await client.get(f"/v1/graphs/{gid}/nodes/{out}")).json()
+    assert (node["version"], node["scores_version"], node["job_id"]) == (3, 2, jid)
+    assert node["attributes"]["contactable"] is False and node["scores"]["pagerank"]["rank"] == m4["rank"]
+    comms = (await client.get(f"/v1/graphs/{gid}/communities")).json()
+    assert (comms["version"], comms["scores_version"]) == (3, 2)
+    # New edges: nothing to reuse, until scores run again.
+    r = await client.post(f"/v1/graphs/{gid}/versions", content="source,target\nm4,m9\n", params={"mode": "append"},
+                          headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    assert_problem(await client.get(url, params=q), 404, "result-not-ready")
+
+
+async def test_new_person_or_attribute_based_scores_are_not_reused(client) -> None:  # type: ignore[no-untyped-def]
+    gid = await upload_karate(client)
+    await run_scores(client, gid, measures=["pagerank"])
+    # A node file naming someone new adds a person: the node set changes, so do the scores.
+    v3 = await upload_nodes(client, gid, "id,consent\nnewcomer,yes\n")
+    assert v3["warnings"][0]["ids"] == ["newcomer"]
+    r = await client.get(f"/v1/graphs/{gid}/rankings", params={"measure": "pagerank"})
+    assert_problem(r, 404, "result-not-ready")
+    # PageRank jumping by an attribute depends on the attributes: never reused.
+    await upload_nodes(client, gid, "id,value\nm1,2\nm2,1\n")  # version 4
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={
+        "kind": "scores", "params": {"measures": ["pagerank"], "personalization": {"attribute": "value"}}})
+    assert r.status_code == 202, r.text
+    outcome = await run_worker_once(worker_for(client))
+    assert outcome is not None and outcome.status == "succeeded"
+    await upload_nodes(client, gid, "id,consent\nm1,no\n")  # version 5: same edges as version 4
+    r = await client.get(f"/v1/graphs/{gid}/rankings", params={"measure": "pagerank"})
+    assert_problem(r, 404, "result-not-ready")
+    plain = await run_scores(client, gid, measures=["pagerank"])  # runs on version 5 itself
+    assert (await ranking(client, gid, measure="pagerank"))["job_id"] == plain
+
+
+async def test_first_opt_out_on_a_graph_without_consent_data(client) -> None:  # type: ignore[no-untyped-def]
+    # The brief's sequence on edges alone: everyone is contactable until consent data arrives;
+    # from the first opt-out on, only an explicit yes counts, and the upload says so.
+    G = karate()
+    r = await client.post("/v1/graphs", json={"name": "karate", "directed": False})
+    gid = str(r.json()["id"])
+    edges = _csv([["source", "target", "weight"]] + [[IDS[u], IDS[v], d["weight"]] for u, v, d in G.edges(data=True)])
+    r = await client.post(f"/v1/graphs/{gid}/versions", content=edges, headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    jid = await run_scores(client, gid, measures=["pagerank"])
+    assert (await ranking(client, gid, measure="pagerank", contactable="true"))["total"] == 34
+    v2 = await upload_nodes(client, gid, "id,consent\nm4,no\n")
+    (warning,) = v2["warnings"]
+    assert warning["code"] == "unknown_consent" and warning["count"] == 33 and len(warning["ids"]) == 20
+    page = await ranking(client, gid, measure="pagerank", contactable="true")
+    assert (page["version"], page["scores_version"], page["job_id"], page["total"]) == (2, 1, jid, 0)
+    out = await ranking(client, gid, measure="pagerank", contactable="false")
+    assert out["total"] == 34 and "m4" in {it["node_id"] for it in out["items"]}
+    # Consent for everyone else: all but the opted-out person are contactable again, same scores.
+    v3 = await upload_nodes(client, gid, _csv([["id", "consent"]] + [[i, "yes"] for i in IDS if i != "m4"]))
+    assert v3["warnings"] == []
+    page = await ranking(client, gid, measure="pagerank", contactable="true")
+    assert (page["version"], page["scores_version"], page["total"]) == (3, 1, 33)
+    assert "m4" not in {it["node_id"] for it in page["items"]}

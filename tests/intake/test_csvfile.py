@@ -424,3 +424,129 @@ def test_node_id_column_mapping_and_field_count():
 def test_node_header_only_is_empty():
     with pytest.raises(EmptyUpload):
         nodes(b"id,segment\n")
+
+
+# ------------------------------------------------------------------ delimiters and encodings
+# (service/intake/dialect.py and encoding.py prepare the body these readers read)
+
+from service.intake.dialect import detect_delimiter, open_csv, parse_delimiter  # noqa: E402
+from service.intake import PREFIX_BYTES, InvalidEncoding  # noqa: E402
+
+
+@pytest.mark.parametrize("sep", [";", "\t", "|"])
+@pytest.mark.parametrize("alphabet", [SPECIAL, PLAIN], ids=["quoted", "plain"])
+def test_other_delimiters_agree_with_the_csv_module(sep, alphabet):
+    # Source: Python's csv module with the same delimiter reading the same text whole,
+    # computed in this test; small blocks cross many block boundaries.
+    rng = random.Random(7)
+    pool = list(dict.fromkeys(_random_ids(rng, 40, alphabet + [sep, ","])))
+    rows = [[*rng.sample(pool, 2), str(rng.randint(1, 9))] for _ in range(300)]
+    out = io.StringIO(newline="")
+    w = csv.writer(out, delimiter=sep, lineterminator="\r\n")
+    w.writerow(["source", "target", "weight"])
+    w.writerows(rows)
+    text = out.getvalue()
+    assert detect_delimiter(text[:2000]) == sep
+    t, it = edges(text.encode(), delimiter=sep, block_bytes=97)
+    expected = list(csv.reader(io.StringIO(text, newline=""), delimiter=sep))[1:]
+    got = [[it.ids[s], it.ids[d], x] for s, d, x in zip(t.src.tolist(), t.dst.tolist(), t.weight.tolist())]
+    assert got == [[s, d, float(x)] for s, d, x in expected]
+    n, it2 = nodes(b"id" + sep.encode() + b"segment\n\"a" + sep.encode() + b"b\"" + sep.encode() + b"gold\n",
+                   delimiter=sep)
+    assert it2.ids == ["a" + sep + "b"] and n.segment == ["gold"]
+
+
+@pytest.mark.parametrize(
+    "text,expected",
+    [
+        ("source,target\na,b\n", ","),
+        ("source;target;weight\na;b;2,5\nb;c;1,0\n", ";"),  # decimal commas inside the rows
+        ('id;name\n1;"Smith; Ann"\n', ";"),
+        ("id\nann\n", ","),  # one column: nothing to count, comma
+        ("a\tb|c\nx\ty|z\n1\t2\n", "\t"),  # the pipe is not on every line
+        ("", ","),
+    ],
+)
+def test_detect_delimiter(text, expected):
+    assert detect_delimiter(text) == expected
+
+
+@pytest.mark.parametrize("word", ["comma", "Semicolon", "TAB", "pipe", ",", ";", "\t", "|", "\\t"])
+def test_parse_delimiter_words_and_characters(word):
+    assert parse_delimiter(word) in {",", ";", "\t", "|"}
+
+
+def test_parse_delimiter_refuses_others():
+    with pytest.raises(InvalidOption) as info:
+        parse_delimiter("space")
+    assert info.value.field == "delimiter"
+
+
+def _prepared(body: bytes, charset: str | None = None, **kw: object):
+    src = open_csv(io.BytesIO(body), charset=charset)
+    it = Interner()
+    return read_edges_csv(src.fh, it, delimiter=src.delimiter, **kw), it, src  # type: ignore[arg-type]
+
+
+@pytest.mark.parametrize("codec,bom", [("utf-16-le", b"\xff\xfe"), ("utf-16-be", b"\xfe\xff"),
+                                       ("utf-32-le", b"\xff\xfe\x00\x00")])
+def test_utf16_and_32_with_bom_stream_across_many_blocks(codec, bom):
+    # Ids with characters outside the BMP (surrogate pairs in UTF-16) cut anywhere by the
+    # 64 KiB reads; expected: the same ids read from the UTF-8 encoding of the same text.
+    rng = random.Random(3)
+    pool = list(dict.fromkeys(_random_ids(rng, 500, PLAIN)))
+    rows = [f"{rng.choice(pool)},{rng.choice(pool)}\n" for _ in range(20_000)]
+    text = "source,target\n" + "".join(rows)
+    assert len(text.encode(codec)) > 4 * PREFIX_BYTES
+    t, it, src = _prepared(bom + text.encode(codec), allow_self_loops=True)
+    ref, ref_it = edges(text.encode("utf-8"), allow_self_loops=True)
+    assert src.encoding == codec.replace("-le", "le").replace("-be", "be")
+    assert it.ids == ref_it.ids and t.src.tolist() == ref.src.tolist() and t.dst.tolist() == ref.dst.tolist()
+
+
+def test_declared_charset_is_decoded():
+    t, it, src = _prepared("source;target\nZoë;Renée\n€;Œuvre\n".encode("cp1252"), "windows-1252")
+    assert (src.encoding, src.delimiter) == ("windows-1252", ";")
+    assert it.ids == ["Zoë", "Renée", "€", "Œuvre"]
+
+
+def test_undeclared_non_utf8_names_the_likely_encoding():
+    with pytest.raises(InvalidEncoding) as info:
+        _prepared("id,name\n1,Zoë Müller\n2,Renée Brontë\n".encode("cp1252"))
+    assert info.value.likely == "windows-1252"
+    assert "charset=windows-1252" in info.value.reason
+
+
+def test_bytes_outside_the_declared_charset_name_their_line():
+    body = b"source,target\n" + b"a,b\n" * 30_000 + b"c\x81,d\n"  # 0x81: no character in Windows-1252
+    with pytest.raises(UploadError) as info:
+        _prepared(body, "windows-1252")
+    assert info.value.line == 30_002 and "Windows-1252" not in info.value.reason
+
+
+def test_invalid_utf8_after_the_prefix_still_names_its_line():
+    body = b"source,target\n" + b"a,b\n" * 30_000 + b"c\xff,d\n"
+    with pytest.raises(UploadError) as info:
+        _prepared(body)
+    assert info.value.line == 30_002 and "UTF-8" in info.value.reason
+
+
+def test_transcoding_streams(tmp_path):
+    """A ~30 MB UTF-16 body is decoded block by block: memory stays far below its size."""
+    path = tmp_path / "wide16.csv"
+    filler = "f" * 120
+    with open(path, "w", encoding="utf-16", newline="") as f:  # "utf-16" writes a BOM
+        f.write("source,target,note\n")
+        f.writelines(f"u{i % 1000},v{i % 997},{filler}\n" for i in range(120_000))
+    size = path.stat().st_size
+    assert size > 28_000_000
+    tracemalloc.start()
+    try:
+        with open(path, "rb") as fh:
+            src = open_csv(fh)
+            t = read_edges_csv(src.fh, Interner(), extra_columns="ignore", delimiter=src.delimiter)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert t.records == 120_000 and src.encoding == "utf-16le"
+    assert peak < 12_000_000, f"peak {peak / 1e6:.1f} MB for a {size / 1e6:.0f} MB body"

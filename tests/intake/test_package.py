@@ -8,9 +8,11 @@ import pathlib
 
 import service.intake as pkg
 
-MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "graphml", "merge"]
+MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "graphml", "merge", "dialect",
+           "encoding", "hints"]
 ALLOWED = {"__future__", "array", "collections", "csv", "dataclasses", "decimal", "io", "itertools",
-           "json", "math", "typing", "numpy", "defusedxml", "ijson", "service"}
+           "json", "math", "typing", "numpy", "defusedxml", "ijson", "service",
+           "codecs", "re", "charset_normalizer"}
 
 
 def test_all_agrees_with_the_modules():

@@ -9,7 +9,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from .common import Page
 
-__all__ = ["GraphCreate", "GraphRead", "GraphPage", "VersionRead", "VersionList"]
+__all__ = ["GraphCreate", "GraphRead", "GraphPage", "UploadWarning", "VersionRead", "VersionList"]
 
 
 class GraphCreate(BaseModel):
@@ -35,6 +35,13 @@ class GraphPage(Page):
     items: list[GraphRead]
 
 
+class UploadWarning(BaseModel):
+    code: str = Field(description="What kind of warning: `ids_without_edges` or `unknown_consent`.")
+    message: str
+    count: int = Field(description="How many records or ids it concerns in all.")
+    ids: list[str] = Field(description="The first 20 of them.")
+
+
 class VersionRead(BaseModel):
     graph_id: str
     number: int
@@ -42,7 +49,14 @@ class VersionRead(BaseModel):
     nodes: int
     edges: int
     origin: dict[str, Any] = Field(description="How the version was made: part, mode, format, records.")
-    summary: dict[str, Any] = Field(description="Figures computed at ingest.")
+    summary: dict[str, Any] = Field(
+        description="Figures computed at ingest; for CSV also the `encoding` and `delimiter` the file was read with."
+    )
+    warnings: list[UploadWarning] = Field(
+        default_factory=list,
+        description="Things the upload accepted but the sender should check (e.g. people in a node file "
+        "with no edge).",
+    )
 
 
 class VersionList(BaseModel):

@@ -25,6 +25,11 @@ __all__ = [
 class _FromResult(BaseModel):
     graph_id: str
     version: int
+    scores_version: int = Field(
+        description="The version that scores job ran on: `version` itself, or an earlier version with the "
+        "same edges (after an upload that changed only attributes), whose scores are then shown with this "
+        "version's attributes."
+    )
     job_id: str = Field(description="The scores job whose result this is read from.")
     computed_at: datetime = Field(description="When that result was stored.")
 
@@ -84,6 +89,10 @@ class NodeRead(BaseModel):
     out_degree: int | None = Field(description="Directed graphs only.")
     job_id: str | None = Field(description="The scores job the scores come from; null when none has run.")
     computed_at: datetime | None
+    scores_version: int | None = Field(
+        default=None,
+        description="The version that job ran on: `version`, or an earlier version with the same edges.",
+    )
     scores: dict[str, NodeScore] = Field(description="Every ranked measure of that result.")
     community: NodeCommunity | None
 
