@@ -27,6 +27,7 @@ from storage.repo import results as result_repo
 from .deps import DbDep, SettingsDep, TenantDep
 from .errors import InvalidParams, TooManyJobs
 from .schemas.common import PROBLEM_RESPONSES
+from .schemas.results import JobResult as JobResultDocument
 from .schemas.jobs import JobCreate, JobKindList, JobKindRead, JobPage, JobRead, JobSpec, JobStatus
 
 __all__ = ["router", "clock_of", "resolve_job_spec", "result_response", "etag_matches"]
@@ -40,7 +41,7 @@ RESULT_RESPONSES: dict[int | str, dict[str, Any]] = {
     200: {
         "description": "The result document: `job_id`, `kind`, `graph_id`, `version`, `params`, "
         "`random_seed`, `created_at`, `arrays` (stored arrays: dtype and length) and the kind's fields.",
-        "content": {"application/json": {"schema": {"type": "object"}}},
+        "model": JobResultDocument,
     },
     304: {"description": "Not modified (If-None-Match matched the ETag)."},
 }

@@ -129,6 +129,7 @@ def _recommendation_items(v: LoadedVersion, recs: list[Recommendation]) -> list[
 )
 async def list_recommendations(
     graph_id: str,
+    node_id: str,
     request: Request,
     tenant: TenantDep,
     method: Method = "adamic_adar",
@@ -138,8 +139,6 @@ async def list_recommendations(
     explain: Annotated[int, Query(ge=0, le=20, description="Shared contacts per recommendation.")] = 3,
     if_none_match: IfNoneMatch = None,
 ) -> Response:
-    # Read here, not declared as a parameter, so the OpenAPI document stays as it was.
-    node_id = str(request.path_params["node_id"])
     maker = _maker(request)
     name = METHOD_ALIASES.get(method, method)
 
@@ -314,7 +313,7 @@ async def create_next_contacts(
                 field=next(iter([*options, *prob, "id"])),
             )
         try:
-            req = NextContactsRequest.model_validate_json(raw)
+            req = NextContactsRequest.model_validate_json(raw, strict=True)  # 0 is no boolean
         except ValidationError as exc:
             raise _validation(exc, ("body",)) from exc
     else:

@@ -32,7 +32,9 @@ IdemKey = Annotated[str | None, Header(alias="Idempotency-Key", min_length=1, ma
 ROUTE = "POST /v1/schedules"
 
 
-@router.post("", status_code=status.HTTP_201_CREATED, summary="Create a schedule", response_model=ScheduleRead)
+@router.post("", status_code=status.HTTP_201_CREATED, summary="Create a schedule", response_model=ScheduleRead,
+    responses={200: {"description": "Replay of an earlier request with the same Idempotency-Key", "model": ScheduleRead}},
+)
 def create_schedule(
     body: ScheduleCreate, request: Request, tenant: TenantDep, settings: SettingsDep, idempotency_key: IdemKey = None
 ) -> JSONResponse:

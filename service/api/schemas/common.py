@@ -6,19 +6,44 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field
 
-__all__ = ["Problem", "PROBLEM_RESPONSES", "Page"]
+__all__ = ["FieldError", "Problem", "PROBLEM_RESPONSES", "Page"]
+
+
+class FieldError(BaseModel):
+    """One failed check of a request or job params (``validation-error``, ``invalid-parameter``)."""
+
+    loc: list[str] = Field(description="Where: `body`, `query` or `params`, then the field names.")
+    msg: str
+    type: str
 
 
 class Problem(BaseModel):
-    """RFC 9457 problem details."""
+    """RFC 9457 problem details: what went wrong and how to fix it.
+
+    The five standard members are always present; the others are extension members
+    that appear when they apply. Unlisted extension members may appear too.
+    """
 
     model_config = ConfigDict(extra="allow")
 
-    type: str = Field(examples=["/problems/not-found"])
-    title: str
-    status: int
-    detail: str
-    instance: str
+    type: str = Field(examples=["/problems/not-found"], description="The problem type; README lists them all.")
+    title: str = Field(description="Short summary of the problem type.")
+    status: int = Field(description="The HTTP status code.")
+    detail: str = Field(description="What went wrong with this request, and how to fix it.")
+    instance: str = Field(description="The request path.")
+    errors: list[FieldError] | None = Field(default=None, description="Every failed check (validation).")
+    field: str | None = Field(default=None, description="The parameter, header or column at fault.")
+    value: Any = Field(default=None, description="The value at fault.")
+    line: int | None = Field(default=None, description="Uploads: the line at fault (1-based).")
+    column: str | int | None = Field(default=None, description="Uploads: the column at fault.")
+    resource: str | None = Field(default=None, description="not-found: the kind of resource.")
+    id: str | None = Field(default=None, description="not-found: the id looked for.")
+    limit: int | None = Field(default=None, description="payload-too-large: the limit in bytes.")
+    retry_after: int | None = Field(default=None, description="rate-limited, too-many-jobs: seconds to wait.")
+    job_id: str | None = Field(default=None, description="result-not-ready: the job.")
+    job_status: str | None = Field(default=None, description="result-not-ready: the job's status.")
+    depth: int | None = Field(default=None, description="json-limit: how deep the body nests.")
+    max_depth: int | None = Field(default=None, description="json-limit: the deepest nesting accepted.")
 
 
 def _problem(description: str) -> dict[str, Any]:

@@ -17,7 +17,7 @@ JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
 class JobSpec(BaseModel):
     """What to run: a kind, its params, and optionally a version (default: the newest)."""
 
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     kind: str = Field(min_length=1, max_length=40, examples=["profile"])
     version: int | None = Field(default=None, ge=1, description="Version number; the newest when omitted.")

@@ -14,7 +14,7 @@ __all__ = ["ScheduleCreate", "ScheduleRead", "SchedulePage"]
 
 
 class ScheduleCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     graph_id: str = Field(min_length=1, max_length=40)
     cron: str = Field(

@@ -15,7 +15,7 @@ WebhookEvent = Literal["job.succeeded", "job.failed", "job.cancelled"]
 
 
 class WebhookCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     url: str = Field(min_length=1, max_length=2000, examples=["https://crm.example.com/hooks/bellwether"])
     events: list[WebhookEvent] = Field(min_length=1, examples=[["job.succeeded", "job.failed"]])

@@ -1,0 +1,137 @@
+"""The OpenAPI document: FastAPI's, finished in one place so a generated client can use all of it.
+
+What is added to what FastAPI writes from the routes:
+
+- **Operation ids**: short verbs (``create_graph``, ``upload_version``, ``get_rankings``)
+  from :data:`OPERATION_IDS`, the route function's name otherwise.
+- **Problems**: every 4xx and 5xx answer of every operation is
+  ``application/problem+json`` with the ``Problem`` schema (RFC 9457 members and the
+  extension members this service uses); every operation also lists ``500`` and, on
+  ``/v1``, ``405`` with its ``Allow`` header.
+- **Headers**: ``Location`` on the 201, 202 and replayed 200 answers of POST
+  operations, ``ETag`` and ``Cache-Control`` on the answers of operations that honour
+  ``If-None-Match`` (those that list ``304``), ``Retry-After`` on every ``429``.
+- **Security**: the bearer API key (RFC 6750) on every ``/v1`` operation.
+- **Text bodies**: a media type declared without a schema (``text/csv``) gets
+  ``{"type": "string"}``.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from fastapi import FastAPI
+from fastapi.openapi.utils import get_openapi
+from fastapi.routing import APIRoute
+
+from .schemas.common import Problem
+
+__all__ = ["OPERATION_IDS", "install_openapi", "build_openapi", "operation_id"]
+
+#: Route function name -> operation id, where the function's own name is not the verb a caller wants.
+OPERATION_IDS = {
+    "healthz": "get_health",
+    "readyz": "get_readiness",
+    "read_metrics": "get_metrics",
+    "read_graph": "get_graph",
+    "create_version": "upload_version",
+    "read_version": "get_version",
+    "read_job": "get_job",
+    "read_job_result": "get_job_result",
+    "read_job_result_csv": "export_job_result_csv",
+    "read_plot": "get_plot",
+    "read_schedule": "get_schedule",
+    "read_latest_result": "get_schedule_latest_result",
+    "read_webhook": "get_webhook",
+    "list_recommendations": "get_recommendations",
+    "create_next_contacts": "rank_next_contacts",
+    "list_rankings": "get_rankings",
+    "read_node": "get_node",
+    "list_communities": "get_communities",
+}
+
+PROBLEM_REF = {"$ref": "#/components/schemas/Problem"}
+_STRING = {"type": "string"}
+_HEADERS = {
+    "Location": {"description": "The URL of the resource made (or found again, on a replay).", "schema": _STRING},
+    "ETag": {"description": "Send it back as `If-None-Match` to get a 304 while it holds.", "schema": _STRING},
+    "Cache-Control": {"description": "`no-cache`: revalidate with `If-None-Match`.", "schema": _STRING},
+    "Retry-After": {"description": "Seconds to wait before trying again.", "schema": {"type": "integer"}},
+    "Allow": {"description": "The methods this path answers.", "schema": _STRING},
+}
+
+
+def _header(*names: str) -> dict[str, Any]:
+    return {n: _HEADERS[n] for n in names}
+
+
+def _finish_operation(path: str, method: str, op: dict[str, Any]) -> None:
+    responses: dict[str, Any] = op.setdefault("responses", {})
+    responses.setdefault("500", {"description": "Internal error"})
+    if path.startswith("/v1/"):
+        responses.setdefault("405", {"description": "Method not allowed on this path"})
+        op["security"] = [{"bearerAuth": []}]
+    revalidates = "304" in responses
+    for code, answer in responses.items():
+        if code[0] in "45":
+            answer["content"] = {"application/problem+json": {"schema": PROBLEM_REF}}
+            if code == "429":
+                answer["headers"] = {**answer.get("headers", {}), **_header("Retry-After")}
+            if code == "405":
+                answer["headers"] = {**answer.get("headers", {}), **_header("Allow")}
+            continue
+        for media in (answer.get("content") or {}).values():
+            if not media.get("schema"):
+                media["schema"] = dict(_STRING)
+        if method == "post" and code in ("200", "201", "202"):
+            answer["headers"] = {**answer.get("headers", {}), **_header("Location")}
+        if revalidates and code in ("200", "304"):
+            answer["headers"] = {**answer.get("headers", {}), **_header("ETag", "Cache-Control")}
+    body = op.get("requestBody", {}).get("content", {})
+    for media in body.values():
+        if not media.get("schema"):
+            media["schema"] = dict(_STRING)
+
+
+def build_openapi(app: FastAPI) -> dict[str, Any]:
+    schema = get_openapi(
+        title=app.title,
+        version=app.version,
+        summary=app.summary,
+        description=app.description,
+        routes=app.routes,
+    )
+    components = schema.setdefault("components", {})
+    schemas = components.setdefault("schemas", {})
+    schemas["Problem"] = Problem.model_json_schema(ref_template="#/components/schemas/{model}")
+    for name, sub in schemas["Problem"].pop("$defs", {}).items():
+        schemas.setdefault(name, sub)
+    components.setdefault("securitySchemes", {})["bearerAuth"] = {
+        "type": "http",
+        "scheme": "bearer",
+        "description": "An API key from `bellwether keys create`.",
+    }
+    paths: dict[str, Any] = schema.get("paths", {})
+    for path, operations in paths.items():
+        for method, op in operations.items():
+            _finish_operation(path, method, op)
+    # FastAPI's own validation-error schemas are not used: a 422 is a Problem.
+    for unused in ("HTTPValidationError", "ValidationError"):
+        schemas.pop(unused, None)
+    return schema
+
+
+def operation_id(route: APIRoute) -> str:
+    """The operation id of a route (FastAPI's ``generate_unique_id_function``)."""
+    return OPERATION_IDS.get(route.name, route.name)
+
+
+def install_openapi(app: FastAPI) -> None:
+    """Serve :func:`build_openapi`'s document at ``/openapi.json`` (built once, on first use)."""
+
+    def openapi() -> dict[str, Any]:
+        if not app.openapi_schema:
+            app.openapi_schema = build_openapi(app)
+        return app.openapi_schema
+
+    app.openapi = openapi  # type: ignore[method-assign]
