@@ -123,12 +123,16 @@ def delete_graph(graph_id: str, db: WriteDbDep, tenant: TenantDep) -> Response:
 UPLOAD_BODY = {
     "requestBody": {
         "required": True,
-        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML.",
+        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML. A JSON file is an "
+        "array of records, or an object whose `edges` (or `nodes`) member is that array. (CSV is listed "
+        "last so that clients generated from this document, which pick the last file type they know, "
+        "send CSV.)",
         "content": {
-            "text/csv": {"schema": {"type": "string"}},
-            "application/x-ndjson": {"schema": {"type": "string"}},
-            "application/json": {"schema": {}},
-            "application/graphml+xml": {"schema": {"type": "string"}},
+            # Declared as the object form only: generated clients cannot tell an array body from a file.
+            "application/json": {"schema": {"type": "object", "additionalProperties": True}},
+            "application/graphml+xml": {"schema": {"type": "string", "format": "binary"}},
+            "application/x-ndjson": {"schema": {"type": "string", "format": "binary"}},
+            "text/csv": {"schema": {"type": "string", "format": "binary"}},
         },
     }
 }

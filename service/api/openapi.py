@@ -12,8 +12,8 @@ What is added to what FastAPI writes from the routes:
   operations, ``ETag`` and ``Cache-Control`` on the answers of operations that honour
   ``If-None-Match`` (those that list ``304``), ``Retry-After`` on every ``429``.
 - **Security**: the bearer API key (RFC 6750) on every ``/v1`` operation.
-- **Text bodies**: a media type declared without a schema (``text/csv``) gets
-  ``{"type": "string"}``.
+- **Files**: every body that is not JSON (CSV, NDJSON, GraphML uploads, CSV exports,
+  SVG plots) is ``{"type": "string", "format": "binary"}`` under its own media type.
 """
 
 from __future__ import annotations
@@ -73,24 +73,37 @@ def _finish_operation(path: str, method: str, op: dict[str, Any]) -> None:
         op["security"] = [{"bearerAuth": []}]
     revalidates = "304" in responses
     for code, answer in responses.items():
-        if code[0] in "45":
+        if code[0] in "45" and not _own_error_body(answer):
             answer["content"] = {"application/problem+json": {"schema": PROBLEM_REF}}
             if code == "429":
                 answer["headers"] = {**answer.get("headers", {}), **_header("Retry-After")}
             if code == "405":
                 answer["headers"] = {**answer.get("headers", {}), **_header("Allow")}
             continue
-        for media in (answer.get("content") or {}).values():
-            if not media.get("schema"):
-                media["schema"] = dict(_STRING)
+        for kind, media in (answer.get("content") or {}).items():
+            _text_schema(kind, media)
         if method == "post" and code in ("200", "201", "202"):
             answer["headers"] = {**answer.get("headers", {}), **_header("Location")}
         if revalidates and code in ("200", "304"):
             answer["headers"] = {**answer.get("headers", {}), **_header("ETag", "Cache-Control")}
-    body = op.get("requestBody", {}).get("content", {})
-    for media in body.values():
-        if not media.get("schema"):
-            media["schema"] = dict(_STRING)
+    for kind, media in op.get("requestBody", {}).get("content", {}).items():
+        _text_schema(kind, media)
+
+
+def _own_error_body(answer: dict[str, Any]) -> bool:
+    """An error answer a route declared with its own JSON model (``/readyz``'s 503), not a problem."""
+    ref = (answer.get("content") or {}).get("application/json", {}).get("schema", {}).get("$ref", "")
+    return bool(ref) and ref != PROBLEM_REF["$ref"]
+
+
+def _is_json(media_type: str) -> bool:
+    return media_type == "application/json" or media_type.endswith("+json")
+
+
+def _text_schema(media_type: str, media: dict[str, Any]) -> None:
+    """A body that is not JSON is a string of bytes: a file to send or to save."""
+    if not _is_json(media_type):
+        media["schema"] = {**_STRING, "format": "binary"}
 
 
 def build_openapi(app: FastAPI) -> dict[str, Any]:
