@@ -6,7 +6,7 @@ import hashlib
 import json
 from typing import Annotated, Literal
 
-from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 
@@ -16,7 +16,7 @@ from storage.db import write_session
 from storage.repo import graphs as graph_repo
 from storage.repo import idempotency as idem_repo
 
-from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep
+from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep, require_graph
 from .errors import InvalidParams, UnsupportedMediaType
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.graphs import GraphCreate, GraphPage, GraphRead, VersionList, VersionRead
@@ -258,7 +258,8 @@ def list_versions(graph_id: str, db: DbDep, tenant: TenantDep) -> VersionList:
     return VersionList(items=[version_read(graph.id, v) for v in graph_repo.list_versions(db, graph)])
 
 
-@router.get("/{graph_id}/versions/{number}", summary="Read a version's stored summary")
+@router.get("/{graph_id}/versions/{number}", summary="Read a version's stored summary",
+            dependencies=[Depends(require_graph)])
 def read_version(graph_id: str, number: str, db: DbDep, tenant: TenantDep) -> VersionRead:
     graph = graph_repo.get_graph(db, tenant, graph_id)
     return version_read(graph.id, graph_repo.get_version(db, graph, parse_version(number)))

@@ -8,7 +8,7 @@ import json
 import time
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 from sqlalchemy import select
@@ -24,7 +24,7 @@ from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
-from .deps import DbDep, SettingsDep, TenantDep
+from .deps import DbDep, SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, TooManyJobs
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.results import JobResult as JobResultDocument
@@ -60,9 +60,9 @@ def maker_of(request: Request) -> sessionmaker[Session]:
 
 def resolve_job_spec(db: Session, tenant: str, graph_id: str, spec: JobSpec) -> tuple[Graph, int, dict[str, Any]]:
     """Check the kind, params and version of a job spec; return (graph, version, normalised params)."""
+    graph = graph_repo.get_graph(db, tenant, graph_id)  # an unknown graph is a 404 before anything else
     kind = registry.get_kind(spec.kind)
     params = registry.parse_params(kind, spec.params)
-    graph = graph_repo.get_graph(db, tenant, graph_id)
     if spec.version is None:
         if graph.latest_version < 1:
             raise InvalidParams("the graph has no versions yet; upload its edges first", field="version")
@@ -85,6 +85,7 @@ def _request_hash(*parts: object) -> str:
 
 @router.post(
     "/v1/graphs/{graph_id}/jobs",
+    dependencies=[Depends(require_graph)],
     status_code=status.HTTP_202_ACCEPTED,
     summary="Queue a job on a graph version",
     response_model=JobRead,

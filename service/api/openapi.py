@@ -12,6 +12,8 @@ What is added to what FastAPI writes from the routes:
   operations, ``ETag`` and ``Cache-Control`` on the answers of operations that honour
   ``If-None-Match`` (those that list ``304``), ``Retry-After`` on every ``429``.
 - **Security**: the bearer API key (RFC 6750) on every ``/v1`` operation.
+- **Cursors**: every ``cursor`` query parameter has the custom format ``cursor``:
+  a string only the service makes (a page's ``next_cursor``).
 - **Files**: every body that is not JSON (CSV, NDJSON, GraphML uploads, CSV exports,
   SVG plots) is ``{"type": "string", "format": "binary"}`` under its own media type.
 """
@@ -65,7 +67,19 @@ def _header(*names: str) -> dict[str, Any]:
     return {n: _HEADERS[n] for n in names}
 
 
+def _mark_cursor(param: dict[str, Any]) -> None:
+    """A page cursor is opaque: declared as the custom format ``cursor`` (only the service makes them)."""
+    schema = param.get("schema", {})
+    for branch in [schema, *schema.get("anyOf", [])]:
+        if branch.get("type") == "string":
+            branch["format"] = "cursor"
+    param["description"] = "`next_cursor` of the previous page, as given (it is opaque)."
+
+
 def _finish_operation(path: str, method: str, op: dict[str, Any]) -> None:
+    for param in op.get("parameters", []):
+        if param.get("in") == "query" and param.get("name") == "cursor":
+            _mark_cursor(param)
     responses: dict[str, Any] = op.setdefault("responses", {})
     responses.setdefault("500", {"description": "Internal error"})
     if path.startswith("/v1/"):

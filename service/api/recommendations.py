@@ -17,7 +17,7 @@ from collections.abc import Callable, Iterator
 from typing import Annotated, Any, TypeVar
 
 import numpy as np
-from fastapi import APIRouter, Header, HTTPException, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, HTTPException, Query, Request, Response, status
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, StreamingResponse
 from pydantic import ValidationError
@@ -40,7 +40,7 @@ from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
-from .deps import SettingsDep, TenantDep
+from .deps import SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
 from .jobs import etag_matches
@@ -114,6 +114,7 @@ def _recommendation_items(v: LoadedVersion, recs: list[Recommendation]) -> list[
 @node_route(
     router,
     "/v1/graphs/{graph_id}/nodes/{node_id}/recommendations",
+    dependencies=[Depends(require_graph)],
     summary="Whom to introduce a person to, with the shared contacts that explain it",
     description=(
         "People the node is not yet tied to, best first. `node_id` is one path segment, "
@@ -259,6 +260,7 @@ NEXT_CONTACTS_BODY = {
 
 @router.post(
     "/v1/graphs/{graph_id}/next-contacts",
+    dependencies=[Depends(require_graph)],
     summary="Which non-adopters to contact next, and which adopter should ask each",
     description=(
         "Non-adopters ranked by exposure, their chance of being reached in the next round from the "

@@ -46,12 +46,12 @@ def create_schedule(
             replay = idem_repo.get_replay(db, tenant, idempotency_key, ROUTE, digest)
             if replay is not None:
                 return JSONResponse(replay.body, status_code=200, headers={"Location": replay.location or ""})
+        graph_repo.get_graph(db, tenant, body.graph_id)  # an unknown graph is a 404 before anything else
         next_run = next_run_after(body.cron, body.timezone, now)
         spec = body.job
         if spec.version is None:
             # A schedule without a version follows the newest; only the kind and params are checked now.
             params = registry.parse_params(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
-            graph_repo.get_graph(db, tenant, body.graph_id)
         else:
             _, _, params = resolve_job_spec(db, tenant, body.graph_id, spec)
         schedule = schedule_repo.add_schedule(

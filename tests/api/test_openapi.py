@@ -107,17 +107,17 @@ async def test_booleans_and_integers_are_strict_in_json_bodies(client: Any) -> N
         r = await client.post("/v1/graphs", json=body)
         assert assert_problem(r, 422, "validation-error")["errors"][0]["type"] == "bool_type", body
     for body in ({"kind": "profile", "priority": False}, {"kind": "profile", "priority": "3"},
-                 {"kind": "profile", "version": 1.0}):
+                 {"kind": "profile", "version": "1"}, {"kind": "profile", "priority": 2.5}):
         r = await client.post(f"/v1/graphs/{gid}/jobs", json=body)
-        assert assert_problem(r, 422, "validation-error")["errors"][0]["type"] == "int_type", body
+        assert assert_problem(r, 422, "validation-error")["errors"][0]["loc"][1] in ("priority", "version"), body
     r = await client.post(f"/v1/graphs/{gid}/next-contacts", json={"adopters": ["a"], "strict": 1})
     assert assert_problem(r, 422, "validation-error")["errors"][0]["loc"] == ["body", "strict"]
     r = await client.post("/v1/schedules", json={"graph_id": gid, "cron": "0 2 * * *", "priority": True,
                                                  "job": {"kind": "profile"}})
     assert assert_problem(r, 422, "validation-error")["errors"][0]["loc"] == ["body", "priority"]
-    # The same values with their declared types pass.
-    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile", "priority": 3, "version": 1})
-    assert r.status_code == 202, r.text
+    # The same values with their declared types pass; 3.0 is the integer 3, as in JSON Schema.
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile", "priority": 3.0, "version": 1})
+    assert r.status_code == 202 and r.json()["priority"] == 3, r.text
 
 
 async def test_schedule_replay_answers_200_as_declared(client: Any) -> None:
@@ -127,3 +127,28 @@ async def test_schedule_replay_answers_200_as_declared(client: Any) -> None:
     again = await client.post("/v1/schedules", json=body, headers={"Idempotency-Key": "s-1"})
     assert (first.status_code, again.status_code) == (201, 200)
     assert again.json()["id"] == first.json()["id"] and again.headers["location"] == first.headers["location"]
+
+
+async def test_unknown_query_parameters_are_named_in_a_problem(client: Any) -> None:
+    r = await client.get("/v1/graphs", params={"limt": "5"})
+    body = assert_problem(r, 422, "invalid-parameter")
+    assert body["field"] == "limt" and "limit" in body["detail"]
+    gid = await make_graph(client)
+    r = await client.get(f"/v1/graphs/{gid}/rankings", params={"measure": "degree", "sort": "asc"})
+    assert assert_problem(r, 422, "invalid-parameter")["field"] == "sort"
+    assert (await client.get("/v1/graphs", params={"limit": "5"})).status_code == 200
+
+
+async def test_an_unknown_graph_is_a_404_before_the_other_checks(client: Any) -> None:
+    missing = "g_missing"
+    for method, path, kwargs in [
+        ("post", f"/v1/graphs/{missing}/jobs", {"json": {"kind": "astrology"}}),
+        ("get", f"/v1/graphs/{missing}/rankings", {"params": {"measure": "fame", "version": "x"}}),
+        ("get", f"/v1/graphs/{missing}/communities", {"params": {"measure": ""}}),
+        ("get", f"/v1/graphs/{missing}/nodes/a", {"params": {"version": "0"}}),
+        ("get", f"/v1/graphs/{missing}/versions/abc", {}),
+        ("post", f"/v1/graphs/{missing}/next-contacts", {"json": {"adopters": ["a"]}, "params": {"limit": "3"}}),
+        ("post", "/v1/schedules", {"json": {"graph_id": missing, "cron": "bad", "job": {"kind": "astrology"}}}),
+    ]:
+        r = await client.request(method.upper(), path, **kwargs)
+        assert assert_problem(r, 404, "not-found")["resource"] == "graph", (method, path)

@@ -50,8 +50,13 @@ def no_dns() -> Iterator[None]:
     """Webhook URLs are checked by resolving their host: answer locally, never with a real lookup."""
     from service.jobs import webhooks
 
+    import ipaddress
+
     def resolve(host: str, port: int) -> list[str]:
-        return [host] if host.replace(".", "").isdigit() else ["192.0.2.1"]  # documentation address
+        try:
+            return [str(ipaddress.ip_address(host))]
+        except ValueError:
+            return ["127.0.0.1"]  # every name is this machine (and the app allows loopback hooks)
 
     with pytest.MonkeyPatch.context() as mp:
         mp.setattr(webhooks, "_resolve", resolve)
@@ -63,11 +68,25 @@ def fuzz_schema(fuzz_db: tuple[str, Path], fuzz_key: str) -> Any:
     url, folder = fuzz_db
     app = create_app(
         make_settings(url, folder, auth_disabled=False, rate_limit_per_second=0,
-                      max_body_bytes=64 * 1024, max_upload_bytes=1024 * 1024, wait_max_seconds=0.5)
+                      max_body_bytes=64 * 1024, max_upload_bytes=1024 * 1024, wait_max_seconds=0.5,
+                      webhook_allow_loopback=True)
     )
     return schemathesis.openapi.from_asgi("/openapi.json", app)
 
 
+def _cursors() -> Any:
+    """Page cursors as the service makes them (the document's custom format ``cursor``)."""
+    from datetime import UTC, datetime
+
+    from hypothesis import strategies as st
+
+    from storage.repo.graphs import encode_cursor
+
+    when = st.datetimes(min_value=datetime(2000, 1, 1), max_value=datetime(2100, 1, 1), timezones=st.just(UTC))
+    return st.builds(encode_cursor, when, st.text("abcdefghijklmnopqrstuvwxyz0123456789_", min_size=1, max_size=30))
+
+
+schemathesis.openapi.format("cursor", _cursors())
 schema = schemathesis.pytest.from_fixture("fuzz_schema")
 
 

@@ -2,11 +2,29 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Annotated, Any
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, BeforeValidator, ConfigDict, Field
 
-__all__ = ["FieldError", "Problem", "PROBLEM_RESPONSES", "Page"]
+__all__ = ["JsonInt", "PositiveInt", "Priority", "Seed", "PerAdopter", "FieldError", "Problem", "PROBLEM_RESPONSES", "Page"]
+
+
+def _whole_number(value: object) -> object:
+    """61.0 is the integer 61 in JSON (JSON Schema agrees); 61.5, "61" and true stay refused."""
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    return value
+
+
+# Integers in JSON bodies: under strict validation (the request models' ``strict=True``) a JSON number
+# without a fraction, never a string or a boolean. Bounds go before the validator, so the document
+# shows them as minimum and maximum.
+_Whole = BeforeValidator(_whole_number)
+JsonInt = Annotated[int, _Whole]
+PositiveInt = Annotated[int, Field(ge=1), _Whole]
+Priority = Annotated[int, Field(ge=-100, le=100), _Whole]
+Seed = Annotated[int, Field(ge=0, le=2**63 - 1), _Whole]
+PerAdopter = Annotated[int, Field(ge=1, le=1000), _Whole]
 
 
 class FieldError(BaseModel):

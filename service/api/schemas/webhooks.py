@@ -11,13 +11,21 @@ from .common import Page
 
 __all__ = ["WebhookEvent", "WebhookCreate", "WebhookRead", "WebhookCreated", "WebhookList", "DeliveryRead", "DeliveryPage"]
 
+_PORT = r"([1-9][0-9]{0,3}|[1-5][0-9]{4}|6[0-4][0-9]{3}|65[0-4][0-9]{2}|655[0-2][0-9]|6553[0-5])"
+#: An absolute URL: scheme, host, a port (1 to 65535), a path; the rest is checked when the host resolves.
+URL_PATTERN = r"^https?://[A-Za-z0-9.-]+(:" + _PORT + r")?(/[!-~]*)?$"
+
 WebhookEvent = Literal["job.succeeded", "job.failed", "job.cancelled"]
 
 
 class WebhookCreate(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
-    url: str = Field(min_length=1, max_length=2000, examples=["https://crm.example.com/hooks/bellwether"])
+    url: str = Field(
+        min_length=1, max_length=2000, pattern=URL_PATTERN, examples=["https://crm.example.com/hooks/bellwether"],
+        description="An https URL whose host resolves to public addresses only (http is accepted only "
+        "for loopback hosts, on servers that allow them).",
+    )
     events: list[WebhookEvent] = Field(min_length=1, examples=[["job.succeeded", "job.failed"]])
     secret: str | None = Field(
         default=None, min_length=16, max_length=200, description="Signing secret; generated when omitted."
