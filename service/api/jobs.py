@@ -11,12 +11,13 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
+from pydantic import BaseModel, ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.jobs import registry, webhooks
 from service.jobs.clock import Clock, SystemClock
-from service.jobs.errors import ResultNotReady
+from service.jobs.errors import InvalidJobParams, ResultNotReady
 from service.loader import load_version
 from storage.errors import NotFound
 from storage.models import FINISHED_STATUSES, Graph, Job, JobResult
@@ -58,11 +59,37 @@ def maker_of(request: Request) -> sessionmaker[Session]:
     return maker
 
 
+def parse_params_strictly(kind: registry.JobKind, raw: dict[str, Any]) -> BaseModel:
+    """The kind's params as the registry reads them, after a strict pass over the JSON as sent.
+
+    Strict as the request bodies are: ``0`` is no boolean and ``"3"`` no integer (``3.0`` is 3).
+    """
+    params = registry.parse_params(kind, raw)  # the kind's own messages for anything else
+    try:
+        kind.params.model_validate_json(json.dumps(_whole_numbers(raw)), strict=True)
+    except ValidationError as exc:
+        errors = registry.validation_errors(exc)
+        raise InvalidJobParams(f"{'.'.join(errors[0]['loc'])}: {errors[0]['msg']}", field="params",
+                               errors=errors) from exc
+    return params
+
+
+def _whole_numbers(value: Any) -> Any:
+    """3.0 as 3 throughout (JSON Schema's integers); a float field takes an int as well."""
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    if isinstance(value, list):
+        return [_whole_numbers(v) for v in value]
+    if isinstance(value, dict):
+        return {k: _whole_numbers(v) for k, v in value.items()}
+    return value
+
+
 def resolve_job_spec(db: Session, tenant: str, graph_id: str, spec: JobSpec) -> tuple[Graph, int, dict[str, Any]]:
     """Check the kind, params and version of a job spec; return (graph, version, normalised params)."""
     graph = graph_repo.get_graph(db, tenant, graph_id)  # an unknown graph is a 404 before anything else
     kind = registry.get_kind(spec.kind)
-    params = registry.parse_params(kind, spec.params)
+    params = parse_params_strictly(kind, spec.params)
     if spec.version is None:
         if graph.latest_version < 1:
             raise InvalidParams("the graph has no versions yet; upload its edges first", field="version")

@@ -20,7 +20,15 @@ from storage.repo import schedules as schedule_repo
 
 from .deps import DbDep, SettingsDep, TenantDep
 from .errors import InvalidParams
-from .jobs import RESULT_RESPONSES, IfNoneMatch, clock_of, maker_of, resolve_job_spec, result_response
+from .jobs import (
+    RESULT_RESPONSES,
+    IfNoneMatch,
+    clock_of,
+    maker_of,
+    parse_params_strictly,
+    resolve_job_spec,
+    result_response,
+)
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.schedules import ScheduleCreate, SchedulePage, ScheduleRead
 
@@ -51,7 +59,7 @@ def create_schedule(
         spec = body.job
         if spec.version is None:
             # A schedule without a version follows the newest; only the kind and params are checked now.
-            params = registry.parse_params(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
+            params = parse_params_strictly(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
         else:
             _, _, params = resolve_job_spec(db, tenant, body.graph_id, spec)
         schedule = schedule_repo.add_schedule(

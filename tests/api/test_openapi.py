@@ -115,6 +115,12 @@ async def test_booleans_and_integers_are_strict_in_json_bodies(client: Any) -> N
     r = await client.post("/v1/schedules", json={"graph_id": gid, "cron": "0 2 * * *", "priority": True,
                                                  "job": {"kind": "profile"}})
     assert assert_problem(r, 422, "validation-error")["errors"][0]["loc"] == ["body", "priority"]
+    # A kind's params are as strict: its model's booleans and integers take no 0, "7" or false.
+    for params in ({"random_seed": "7"}, {"bootstrap": False}, {"bootstrap": 1.5}):
+        r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile", "params": params})
+        assert assert_problem(r, 422, "invalid-parameter")["errors"][0]["loc"][0] == "params", params
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "recommendations", "params": {"contactable": 0}})
+    assert assert_problem(r, 422, "invalid-parameter")["errors"][0]["loc"] == ["params", "contactable"]
     # The same values with their declared types pass; 3.0 is the integer 3, as in JSON Schema.
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile", "priority": 3.0, "version": 1})
     assert r.status_code == 202 and r.json()["priority"] == 3, r.text
