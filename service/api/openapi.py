@@ -14,6 +14,8 @@ What is added to what FastAPI writes from the routes:
 - **Security**: the bearer API key (RFC 6750) on every ``/v1`` operation.
 - **Cursors**: every ``cursor`` query parameter has the custom format ``cursor``:
   a string only the service makes (a page's ``next_cursor``).
+- **Results**: a kind registered from ``job_kind_modules`` with a ``result_model``
+  joins the ``JobResult`` union (the built-in kinds' models are in ``schemas/results.py``).
 - **Files**: every body that is not JSON (CSV, NDJSON, GraphML uploads, CSV exports,
   SVG plots) is ``{"type": "string", "format": "binary"}`` under its own media type.
 """
@@ -25,6 +27,8 @@ from typing import Any
 from fastapi import FastAPI
 from fastapi.openapi.utils import get_openapi
 from fastapi.routing import APIRoute
+
+from service.jobs import registry
 
 from .schemas.common import Problem
 
@@ -142,10 +146,33 @@ def build_openapi(app: FastAPI) -> dict[str, Any]:
     for path, operations in paths.items():
         for method, op in operations.items():
             _finish_operation(path, method, op)
+    _add_kind_results(app, schemas)
     # FastAPI's own validation-error schemas are not used: a 422 is a Problem.
     for unused in ("HTTPValidationError", "ValidationError"):
         schemas.pop(unused, None)
     return schema
+
+
+def _add_kind_results(app: FastAPI, schemas: dict[str, Any]) -> None:
+    """Kinds from ``job_kind_modules`` that set ``result_model`` join the ``JobResult`` union.
+
+    Their model must have ``kind: Literal["<name>"]``, as the built-in result models do.
+    """
+    union = schemas.get("JobResult")
+    if union is None:
+        return
+    registry.import_kind_modules(app.state.settings.job_kind_modules)
+    for kind in sorted(registry.REGISTRY.values(), key=lambda k: k.name):
+        model = kind.result_model
+        if model is None or kind.name in union["discriminator"]["mapping"]:
+            continue
+        own = model.model_json_schema(ref_template="#/components/schemas/{model}")
+        for name, sub in own.pop("$defs", {}).items():
+            schemas.setdefault(name, sub)
+        schemas[model.__name__] = own
+        ref = f"#/components/schemas/{model.__name__}"
+        union["oneOf"].append({"$ref": ref})
+        union["discriminator"]["mapping"][kind.name] = ref
 
 
 def operation_id(route: APIRoute) -> str:

@@ -103,3 +103,30 @@ def test_document_declares_the_union_by_kind() -> None:
     assert set(union["discriminator"]["mapping"]) == set(RESULT_MODELS)
     for name in ("ShortlistSeed", "SeedSetForecast", "Interval", "ForecastParams", "ShortlistParams"):
         assert name in doc["components"]["schemas"], name
+
+
+def test_a_registered_kind_with_a_result_model_joins_the_union(monkeypatch: pytest.MonkeyPatch) -> None:
+    from typing import Literal
+
+    from pydantic import ConfigDict
+
+    from service.app import create_app
+    from service.jobs import registry
+    from service.jobs.kinds import JobKind, TaskOutput
+
+    class CountParams(BaseModel):
+        model_config = ConfigDict(extra="forbid")
+
+    class CountResult(BaseModel):
+        kind: Literal["count_people"]
+        people: int
+
+    kind = JobKind(name="count_people", params=CountParams, run=lambda ctx, p: TaskOutput(data={}),
+                   summary="Count", result_description="people", result_model=CountResult)
+    monkeypatch.setitem(registry.REGISTRY, kind.name, kind)
+    doc = create_app(make_settings("sqlite://", Path("/nonexistent"))).openapi()
+    union = doc["components"]["schemas"]["JobResult"]
+    assert union["discriminator"]["mapping"]["count_people"] == "#/components/schemas/CountResult"
+    assert {"$ref": "#/components/schemas/CountResult"} in union["oneOf"]
+    assert doc["components"]["schemas"]["CountResult"]["properties"]["people"]["type"] == "integer"
+    assert set(RESULT_MODELS) < set(union["discriminator"]["mapping"])
