@@ -8,8 +8,8 @@ What is added to what FastAPI writes from the routes:
   ``application/problem+json`` with the ``Problem`` schema (RFC 9457 members and the
   extension members this service uses); every operation also lists ``500`` and, on
   ``/v1``, ``405`` with its ``Allow`` header.
-- **Headers**: ``Location`` on the 201, 202 and replayed 200 answers of POST
-  operations, ``ETag`` and ``Cache-Control`` on the answers of operations that honour
+- **Headers**: ``Location`` on the 201, 202 and replayed 200 answers of the
+  operations that create (:data:`CREATES`), ``ETag`` and ``Cache-Control`` on the answers of operations that honour
   ``If-None-Match`` (those that list ``304``), ``Retry-After`` on every ``429``.
 - **Security**: the bearer API key (RFC 6750) on every ``/v1`` operation.
 - **Cursors**: every ``cursor`` query parameter has the custom format ``cursor``:
@@ -56,6 +56,9 @@ OPERATION_IDS = {
     "list_communities": "get_communities",
 }
 
+#: Operations whose 201 (202 for a job), and 200 on an idempotent replay, carry ``Location``.
+CREATES = {"create_graph", "upload_version", "create_job", "create_schedule", "create_webhook"}
+
 PROBLEM_REF = {"$ref": "#/components/schemas/Problem"}
 _STRING = {"type": "string"}
 _HEADERS = {
@@ -100,7 +103,7 @@ def _finish_operation(path: str, method: str, op: dict[str, Any]) -> None:
             continue
         for kind, media in (answer.get("content") or {}).items():
             _text_schema(kind, media)
-        if method == "post" and code in ("200", "201", "202"):
+        if op.get("operationId") in CREATES and code in ("200", "201", "202"):
             answer["headers"] = {**answer.get("headers", {}), **_header("Location")}
         if revalidates and code in ("200", "304"):
             answer["headers"] = {**answer.get("headers", {}), **_header("ETag", "Cache-Control")}

@@ -158,3 +158,11 @@ async def test_an_unknown_graph_is_a_404_before_the_other_checks(client: Any) ->
     ]:
         r = await client.request(method.upper(), path, **kwargs)
         assert assert_problem(r, 404, "not-found")["resource"] == "graph", (method, path)
+
+
+def test_location_only_where_something_is_made(doc: dict[str, Any]) -> None:
+    for path, method, op in operations(doc):
+        for code, answer in op["responses"].items():
+            if "Location" in answer.get("headers", {}):
+                assert op["operationId"].startswith(("create_", "upload_")), (method, path, code)
+    assert "headers" not in doc["paths"]["/v1/graphs/{graph_id}/next-contacts"]["post"]["responses"]["200"]
