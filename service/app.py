@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
-from typing import Any
 
 from fastapi import FastAPI
 
@@ -13,6 +12,7 @@ from storage.db import make_engine, make_sessionmaker
 from .api import api_router
 from .api import metrics as metrics_api
 from .api.middleware import OperationsMiddleware, configure_logging
+from .api.openapi import install_openapi, operation_id
 from .api.problems import install_problem_handlers
 from .api.spool import remove_stale_spool
 from .settings import Settings
@@ -49,6 +49,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         summary="Outreach seeds, reach forecasts and contact recommendations over relationship graphs.",
         description=DESCRIPTION,
         lifespan=lifespan,
+        generate_unique_id_function=operation_id,
     )
     app.state.settings = settings
     install_problem_handlers(app)
@@ -56,34 +57,5 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.include_router(metrics_api.router)
     # Request ids, access log, metrics, body and rate limits (service/api/middleware.py).
     app.add_middleware(OperationsMiddleware, settings=settings, routes=lambda: app.routes)
-    install_security_scheme(app)
+    install_openapi(app)
     return app
-
-
-def install_security_scheme(app: FastAPI) -> None:
-    """Declare the bearer API key (RFC 6750) on every /v1 operation of the OpenAPI document."""
-    from fastapi.openapi.utils import get_openapi
-
-    def openapi() -> dict[str, Any]:
-        if app.openapi_schema:
-            return app.openapi_schema
-        schema = get_openapi(
-            title=app.title,
-            version=app.version,
-            summary=app.summary,
-            description=app.description,
-            routes=app.routes,
-        )
-        schema.setdefault("components", {}).setdefault("securitySchemes", {})["bearerAuth"] = {
-            "type": "http",
-            "scheme": "bearer",
-            "description": "An API key from `bellwether keys create`.",
-        }
-        for path, operations in schema.get("paths", {}).items():
-            if path.startswith("/v1/"):
-                for op in operations.values():
-                    op["security"] = [{"bearerAuth": []}]
-        app.openapi_schema = schema
-        return schema
-
-    app.openapi = openapi  # type: ignore[method-assign]

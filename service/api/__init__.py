@@ -11,6 +11,7 @@ from fastapi import APIRouter, Depends
 
 from . import graphs, health, jobs, plots, recommendations, schedules, scores, webhooks
 from .auth import authorize
+from .deps import reject_unknown_query
 
 __all__ = ["api_router", "ROUTERS", "OPEN_ROUTERS"]
 
@@ -23,4 +24,4 @@ api_router = APIRouter()
 for _r in OPEN_ROUTERS:
     api_router.include_router(_r)
 for _r in ROUTERS:
-    api_router.include_router(_r, dependencies=[Depends(authorize)])
+    api_router.include_router(_r, dependencies=[Depends(authorize), Depends(reject_unknown_query)])

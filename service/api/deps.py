@@ -4,15 +4,19 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from dataclasses import dataclass
-from typing import Annotated
+from typing import Annotated, Any
 
 from fastapi import Depends, Request
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.settings import Settings
 from storage.db import write_session
+from storage.repo import graphs as graph_repo
 
-__all__ = ["DbDep", "WriteDbDep", "get_write_db", "SettingsDep", "TenantDep", "Principal", "get_db", "get_settings", "get_principal"]
+from .errors import InvalidParams
+
+__all__ = ["DbDep", "WriteDbDep", "get_write_db", "SettingsDep", "TenantDep", "Principal", "get_db", "get_settings", "get_principal",
+           "reject_unknown_query", "require_graph"]
 
 
 @dataclass(frozen=True)
@@ -66,3 +70,31 @@ def get_tenant(principal: PrincipalDep) -> str:
 
 
 TenantDep = Annotated[str, Depends(get_tenant)]
+
+
+def _query_names(dependant: Any) -> set[str]:
+    names = {str(getattr(f, "alias", None) or f.name) for f in getattr(dependant, "query_params", ())}
+    for sub in getattr(dependant, "dependencies", ()):
+        names |= _query_names(sub)
+    return names
+
+
+def reject_unknown_query(request: Request) -> None:
+    """A query parameter the route does not read is a 422, not silently ignored (a misspelt filter)."""
+    dependant = getattr(request.scope.get("route"), "dependant", None)
+    if dependant is None or not request.query_params:
+        return
+    unknown = sorted(set(request.query_params) - _query_names(dependant))
+    if unknown:
+        raise InvalidParams(
+            f"unknown query parameter {unknown[0]!r}; this route reads "
+            + (", ".join(sorted(_query_names(dependant))) or "none"),
+            field=unknown[0],
+        )
+
+
+def require_graph(graph_id: str, request: Request, tenant: TenantDep) -> None:
+    """404 for a graph the tenant does not have, before the route checks anything else it was sent."""
+    maker: sessionmaker[Session] = request.app.state.sessionmaker
+    with maker() as db:
+        graph_repo.get_graph(db, tenant, graph_id)

@@ -12,6 +12,7 @@ __all__ = [
     "RateLimited",
     "InvalidParams",
     "TooManyJobs",
+    "JsonLimit",
 ]
 
 
@@ -54,3 +55,7 @@ class RateLimited(ApiError):
 
 class TooManyJobs(ApiError):
     """The tenant has too many queued jobs; wait for some to finish."""
+
+
+class JsonLimit(ApiError):
+    """The JSON body nests too deeply or holds too long a number or string."""

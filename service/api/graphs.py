@@ -6,7 +6,7 @@ import hashlib
 import json
 from typing import Annotated, Literal
 
-from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 
@@ -18,7 +18,7 @@ from storage.db import write_session
 from storage.repo import graphs as graph_repo
 from storage.repo import idempotency as idem_repo
 
-from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep
+from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep, require_graph
 from .errors import InvalidParams, UnsupportedMediaType
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.graphs import GraphCreate, GraphPage, GraphRead, VersionList, VersionRead
@@ -128,12 +128,16 @@ def delete_graph(graph_id: str, db: WriteDbDep, tenant: TenantDep) -> Response:
 UPLOAD_BODY = {
     "requestBody": {
         "required": True,
-        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML.",
+        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML. A JSON file is an "
+        "array of records, or an object whose `edges` (or `nodes`) member is that array. (CSV is listed "
+        "last so that clients generated from this document, which pick the last file type they know, "
+        "send CSV.)",
         "content": {
-            "text/csv": {"schema": {"type": "string"}},
-            "application/x-ndjson": {"schema": {"type": "string"}},
-            "application/json": {"schema": {}},
-            "application/graphml+xml": {"schema": {"type": "string"}},
+            # Declared as the object form only: generated clients cannot tell an array body from a file.
+            "application/json": {"schema": {"type": "object", "additionalProperties": True}},
+            "application/graphml+xml": {"schema": {"type": "string", "format": "binary"}},
+            "application/x-ndjson": {"schema": {"type": "string", "format": "binary"}},
+            "text/csv": {"schema": {"type": "string", "format": "binary"}},
         },
     }
 }
@@ -273,7 +277,8 @@ def list_versions(graph_id: str, db: DbDep, tenant: TenantDep) -> VersionList:
     return VersionList(items=[version_read(graph.id, v) for v in graph_repo.list_versions(db, graph)])
 
 
-@router.get("/{graph_id}/versions/{number}", summary="Read a version's stored summary")
+@router.get("/{graph_id}/versions/{number}", summary="Read a version's stored summary",
+            dependencies=[Depends(require_graph)])
 def read_version(graph_id: str, number: str, db: DbDep, tenant: TenantDep) -> VersionRead:
     graph = graph_repo.get_graph(db, tenant, graph_id)
     return version_read(graph.id, graph_repo.get_version(db, graph, parse_version(number)))

@@ -8,15 +8,16 @@ import json
 import time
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
+from pydantic import BaseModel, ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.jobs import registry, webhooks
 from service.jobs.clock import Clock, SystemClock
-from service.jobs.errors import ResultNotReady
+from service.jobs.errors import InvalidJobParams, ResultNotReady
 from service.loader import load_version
 from storage.errors import NotFound
 from storage.models import FINISHED_STATUSES, Graph, Job, JobResult
@@ -24,10 +25,11 @@ from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
-from .deps import DbDep, SettingsDep, TenantDep
+from .deps import DbDep, SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, TooManyJobs
 from .rendering import round_document
 from .schemas.common import PROBLEM_RESPONSES
+from .schemas.results import JobResult as JobResultDocument
 from .schemas.jobs import JobCreate, JobKindList, JobKindRead, JobPage, JobRead, JobSpec, JobStatus
 
 __all__ = ["router", "clock_of", "resolve_job_spec", "result_response", "etag_matches"]
@@ -41,7 +43,7 @@ RESULT_RESPONSES: dict[int | str, dict[str, Any]] = {
     200: {
         "description": "The result document: `job_id`, `kind`, `graph_id`, `version`, `params`, "
         "`random_seed`, `created_at`, `arrays` (stored arrays: dtype and length) and the kind's fields.",
-        "content": {"application/json": {"schema": {"type": "object"}}},
+        "model": JobResultDocument,
     },
     304: {"description": "Not modified (If-None-Match matched the ETag)."},
 }
@@ -58,11 +60,37 @@ def maker_of(request: Request) -> sessionmaker[Session]:
     return maker
 
 
+def parse_params_strictly(kind: registry.JobKind, raw: dict[str, Any]) -> BaseModel:
+    """The kind's params as the registry reads them, after a strict pass over the JSON as sent.
+
+    Strict as the request bodies are: ``0`` is no boolean and ``"3"`` no integer (``3.0`` is 3).
+    """
+    params = registry.parse_params(kind, raw)  # the kind's own messages for anything else
+    try:
+        kind.params.model_validate_json(json.dumps(_whole_numbers(raw)), strict=True)
+    except ValidationError as exc:
+        errors = registry.validation_errors(exc)
+        raise InvalidJobParams(f"{'.'.join(errors[0]['loc'])}: {errors[0]['msg']}", field="params",
+                               errors=errors) from exc
+    return params
+
+
+def _whole_numbers(value: Any) -> Any:
+    """3.0 as 3 throughout (JSON Schema's integers); a float field takes an int as well."""
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    if isinstance(value, list):
+        return [_whole_numbers(v) for v in value]
+    if isinstance(value, dict):
+        return {k: _whole_numbers(v) for k, v in value.items()}
+    return value
+
+
 def resolve_job_spec(db: Session, tenant: str, graph_id: str, spec: JobSpec) -> tuple[Graph, int, dict[str, Any]]:
     """Check the kind, params and version of a job spec; return (graph, version, normalised params)."""
+    graph = graph_repo.get_graph(db, tenant, graph_id)  # an unknown graph is a 404 before anything else
     kind = registry.get_kind(spec.kind)
-    params = registry.parse_params(kind, spec.params)
-    graph = graph_repo.get_graph(db, tenant, graph_id)
+    params = parse_params_strictly(kind, spec.params)
     if spec.version is None:
         if graph.latest_version < 1:
             raise InvalidParams("the graph has no versions yet; upload its edges first", field="version")
@@ -85,6 +113,7 @@ def _request_hash(*parts: object) -> str:
 
 @router.post(
     "/v1/graphs/{graph_id}/jobs",
+    dependencies=[Depends(require_graph)],
     status_code=status.HTTP_202_ACCEPTED,
     summary="Queue a job on a graph version",
     response_model=JobRead,

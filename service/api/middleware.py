@@ -18,6 +18,8 @@ for every request, in order:
    (``max_upload_bytes``); every other body is read here up to
    ``max_body_bytes``, counted on the stream (a missing or false
    ``Content-Length`` does not get past it), and answered ``413`` past it.
+   A JSON body is then measured (:mod:`service.api.json_limits`): too deep
+   a nesting, too long a number or string is the ``json-limit`` problem.
 5. **Metrics and the access log**: one JSON line per request (route
    template, not the raw path, so node ids, which may be personal data,
    stay out of the logs) and the request counters and histograms of
@@ -48,7 +50,8 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service.logs import JsonFormatter, RequestIdFilter, configure_logging, request_id_var
 from service.metrics import service_metrics
 
-from .errors import Forbidden, PayloadTooLarge, RateLimited
+from .errors import Forbidden, JsonLimit, PayloadTooLarge, RateLimited
+from .json_limits import is_json_body, measure
 from .problems import INTERNAL, problem_body, problem_for
 
 __all__ = [
@@ -290,7 +293,12 @@ class OperationsMiddleware:
                 raise _Rejected(PayloadTooLarge(f"body exceeds the limit of {limit} bytes", limit=limit))
             chunks.append(body)
             if not message.get("more_body", False):
-                pending = [{"type": "http.request", "body": b"".join(chunks), "more_body": False}]
+                whole = b"".join(chunks)
+                if whole and is_json_body(_header(scope, b"content-type")):
+                    found = measure(whole).problem()
+                    if found is not None:
+                        raise _Rejected(JsonLimit(found[0], **found[1]))
+                pending = [{"type": "http.request", "body": whole, "more_body": False}]
                 break
 
         async def replay() -> Message:

@@ -59,6 +59,7 @@ PROBLEM_TYPES: list[tuple[type[Exception], ProblemType]] = [
     (jerr.ResultNotReady, ProblemType(404, "result-not-ready", "Result not available")),
     (apierr.BadRequest, ProblemType(400, "bad-request", "Bad request")),
     (apierr.InvalidParams, ProblemType(422, "invalid-parameter", "Invalid parameter")),
+    (apierr.JsonLimit, ProblemType(422, "json-limit", "JSON body too deep or too large a value")),
     (apierr.PayloadTooLarge, ProblemType(413, "payload-too-large", "Request body too large")),
     (apierr.UnsupportedMediaType, ProblemType(415, "unsupported-media-type", "Unsupported media type")),
     (apierr.Unauthorized, ProblemType(401, "unauthorized", "Authentication required")),

@@ -17,7 +17,7 @@ from collections.abc import Callable, Iterator
 from typing import Annotated, Any, TypeVar
 
 import numpy as np
-from fastapi import APIRouter, Header, HTTPException, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, HTTPException, Query, Request, Response, status
 from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse, StreamingResponse
 from pydantic import ValidationError
@@ -41,7 +41,7 @@ from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
 from . import result_csv
-from .deps import SettingsDep, TenantDep
+from .deps import SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
 from .jobs import etag_matches
@@ -118,6 +118,7 @@ def _recommendation_items(v: LoadedVersion, recs: list[Recommendation]) -> list[
 @node_route(
     router,
     "/v1/graphs/{graph_id}/nodes/{node_id}/recommendations",
+    dependencies=[Depends(require_graph)],
     summary="Whom to introduce a person to, with the shared contacts that explain it",
     description=(
         "People the node is not yet tied to, best first. `node_id` is one path segment, "
@@ -133,6 +134,7 @@ def _recommendation_items(v: LoadedVersion, recs: list[Recommendation]) -> list[
 )
 async def list_recommendations(
     graph_id: str,
+    node_id: str,
     request: Request,
     tenant: TenantDep,
     method: Method = "adamic_adar",
@@ -142,8 +144,6 @@ async def list_recommendations(
     explain: Annotated[int, Query(ge=0, le=20, description="Shared contacts per recommendation.")] = 3,
     if_none_match: IfNoneMatch = None,
 ) -> Response:
-    # Read here, not declared as a parameter, so the OpenAPI document stays as it was.
-    node_id = str(request.path_params["node_id"])
     maker = _maker(request)
     name = METHOD_ALIASES.get(method, method)
 
@@ -267,6 +267,7 @@ NEXT_CONTACTS_BODY = {
 
 @router.post(
     "/v1/graphs/{graph_id}/next-contacts",
+    dependencies=[Depends(require_graph)],
     summary="Which non-adopters to contact next, and which adopter should ask each",
     description=(
         "Non-adopters with contact consent, those with an adopter who may ask them first, then by "
@@ -323,7 +324,7 @@ async def create_next_contacts(
                 field=next(iter([*options, *prob, "id"])),
             )
         try:
-            req = NextContactsRequest.model_validate_json(raw)
+            req = NextContactsRequest.model_validate_json(raw, strict=True)  # 0 is no boolean
         except ValidationError as exc:
             raise _validation(exc, ("body",)) from exc
     else:

@@ -20,7 +20,15 @@ from storage.repo import schedules as schedule_repo
 
 from .deps import DbDep, SettingsDep, TenantDep
 from .errors import InvalidParams
-from .jobs import RESULT_RESPONSES, IfNoneMatch, clock_of, maker_of, resolve_job_spec, result_response
+from .jobs import (
+    RESULT_RESPONSES,
+    IfNoneMatch,
+    clock_of,
+    maker_of,
+    parse_params_strictly,
+    resolve_job_spec,
+    result_response,
+)
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.schedules import ScheduleCreate, SchedulePage, ScheduleRead
 
@@ -32,7 +40,9 @@ IdemKey = Annotated[str | None, Header(alias="Idempotency-Key", min_length=1, ma
 ROUTE = "POST /v1/schedules"
 
 
-@router.post("", status_code=status.HTTP_201_CREATED, summary="Create a schedule", response_model=ScheduleRead)
+@router.post("", status_code=status.HTTP_201_CREATED, summary="Create a schedule", response_model=ScheduleRead,
+    responses={200: {"description": "Replay of an earlier request with the same Idempotency-Key", "model": ScheduleRead}},
+)
 def create_schedule(
     body: ScheduleCreate, request: Request, tenant: TenantDep, settings: SettingsDep, idempotency_key: IdemKey = None
 ) -> JSONResponse:
@@ -44,12 +54,12 @@ def create_schedule(
             replay = idem_repo.get_replay(db, tenant, idempotency_key, ROUTE, digest)
             if replay is not None:
                 return JSONResponse(replay.body, status_code=200, headers={"Location": replay.location or ""})
+        graph_repo.get_graph(db, tenant, body.graph_id)  # an unknown graph is a 404 before anything else
         next_run = next_run_after(body.cron, body.timezone, now)
         spec = body.job
         if spec.version is None:
             # A schedule without a version follows the newest; only the kind and params are checked now.
-            params = registry.parse_params(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
-            graph_repo.get_graph(db, tenant, body.graph_id)
+            params = parse_params_strictly(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
         else:
             _, _, params = resolve_job_spec(db, tenant, body.graph_id, spec)
         schedule = schedule_repo.add_schedule(

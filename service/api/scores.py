@@ -22,7 +22,7 @@ from functools import partial
 from typing import Annotated, Any, Literal
 
 import numpy as np
-from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse, StreamingResponse
 from numpy.typing import NDArray
@@ -39,7 +39,7 @@ from storage.errors import NotFound
 from storage.models import Graph, GraphVersion, Job, JobResult, ResultArray
 from storage.repo import graphs as graph_repo
 
-from .deps import get_principal
+from .deps import get_principal, require_graph
 from .errors import InvalidParams
 from .graphs import parse_version
 from .jobs import etag_matches
@@ -353,6 +353,7 @@ def _read_ranking(db: Session, tenant: str, q: _RankingQuery, cursor: str | None
 
 @router.get(
     "/{graph_id}/rankings",
+    dependencies=[Depends(require_graph)],
     summary="Rank people by a measure or a weighted composite, filtered, paged or exported as CSV",
     description=(
         "From the newest succeeded `scores` job of the version (default: newest) that has the measure. "
@@ -452,6 +453,7 @@ def _read_node(db: Session, tenant: str, graph_id: str, nid: str, version: int |
 @node_route(
     router,
     "/{graph_id}/nodes/{node_id}",
+    dependencies=[Depends(require_graph)],
     summary="Read a person: attributes, degree, every score with its percentile and rank, community",
     description="`node_id` is one percent-encoded path segment (`/` as `%2F`). Scores come from the "
     "newest succeeded `scores` job of the version; `scores` is empty and `job_id` null when none has run.",
@@ -523,6 +525,7 @@ def _read_communities(
 
 @router.get(
     "/{graph_id}/communities",
+    dependencies=[Depends(require_graph)],
     summary="Communities: size, internal density, top members by a measure, and modularity",
     description="From the newest succeeded `scores` job of the version with `community` (Leiden, "
     "modularity objective). Largest first; members ranked by `measure` (default `degree` when the "

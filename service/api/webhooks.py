@@ -43,6 +43,7 @@ ROUTE = "POST /v1/webhooks"
     status_code=status.HTTP_201_CREATED,
     summary="Subscribe a URL to job events (the answer shows the signing secret, once)",
     response_model=WebhookCreated,
+    responses={200: {"description": "Replay of an earlier request with the same Idempotency-Key", "model": WebhookCreated}},
 )
 def create_webhook(
     body: WebhookCreate, request: Request, tenant: TenantDep, settings: SettingsDep, idempotency_key: IdemKey = None

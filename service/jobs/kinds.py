@@ -70,6 +70,8 @@ class JobKind:
     summary: str
     result_description: str
     needs_graph: bool = True
+    # The result document's model, for the OpenAPI document (``kind: Literal[name]`` plus the task's
+    # fields). Built-in kinds leave it None: their models live with the API (service/api/schemas/results.py).
     result_model: type[BaseModel] | None = None
     # Checks that need the version, run at job creation in the API process:
     # ``precheck(params, load, edges=...)`` raises an analytics error (a 422) or returns.

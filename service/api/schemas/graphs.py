@@ -13,7 +13,7 @@ __all__ = ["GraphCreate", "GraphRead", "GraphPage", "UploadWarning", "VersionRea
 
 
 class GraphCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     name: str = Field(min_length=1, max_length=200)
     directed: bool

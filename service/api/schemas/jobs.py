@@ -7,7 +7,7 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from .common import Page
+from .common import Page, PositiveInt, Priority
 
 __all__ = ["JobStatus", "JobSpec", "JobCreate", "JobRead", "JobPage", "JobKindRead", "JobKindList"]
 
@@ -17,15 +17,17 @@ JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
 class JobSpec(BaseModel):
     """What to run: a kind, its params, and optionally a version (default: the newest)."""
 
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     kind: str = Field(min_length=1, max_length=40, examples=["profile"])
-    version: int | None = Field(default=None, ge=1, description="Version number; the newest when omitted.")
+    version: PositiveInt | None = Field(
+        default=None, description="Version number; the newest when omitted."
+    )
     params: dict[str, Any] = Field(default_factory=dict, description="The kind's parameters.")
 
 
 class JobCreate(JobSpec):
-    priority: int = Field(default=0, ge=-100, le=100, description="Higher runs first.")
+    priority: Priority = Field(default=0, description="Higher runs first.")
 
 
 class JobRead(BaseModel):

@@ -8,6 +8,7 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from service.jobs.tasks.diffusion_settings import ProbabilitySettings
 from service.jobs.tasks.referral_asks import FollowOn
+from .common import JsonInt, PerAdopter, PositiveInt, Seed
 
 __all__ = [
     "Method",
@@ -70,13 +71,13 @@ class NextContactsRequest(BaseModel):
     adopters: list[str] = Field(
         min_length=1, description="Ids of the people who have adopted; duplicates are ignored."
     )
-    limit: int | None = Field(
-        default=50, ge=1, description="At most this many people (grouped: adopters); null for all."
+    limit: PositiveInt | None = Field(
+        default=50, description="At most this many people (grouped: adopters); null for all."
     )
     model: Literal["ic", "lt"] = Field(default="ic", description="Independent Cascade or Linear Threshold.")
     probability: ProbabilitySettings = Field(default_factory=ProbabilitySettings)
-    random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds the trivalency draw.")
-    version: int | Literal["latest"] | None = Field(default=None, description="Version number; newest by default.")
+    random_seed: Seed = Field(default=0, description="Seeds the trivalency draw.")
+    version: JsonInt | Literal["latest"] | None = Field(default=None, description="Version number; newest by default.")
     follow_on: FollowOn | None = Field(
         default=None, description="Blend in this per-node measure of onward reach (scaled to its maximum)."
     )
@@ -88,7 +89,7 @@ class NextContactsRequest(BaseModel):
     group_by: Literal["adopter"] | None = Field(
         default=None, description="'adopter': for each adopter, whom they should be asked to refer."
     )
-    per_adopter: int = Field(default=5, ge=1, le=1000, description="Targets per adopter (group_by=adopter).")
+    per_adopter: PerAdopter = Field(default=5, description="Targets per adopter (group_by=adopter).")
     strict: bool = Field(
         default=True, description="Unknown adopter ids are an error (true) or skipped and counted (false)."
     )

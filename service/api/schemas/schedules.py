@@ -7,14 +7,14 @@ from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from .common import Page
+from .common import Priority, Page
 from .jobs import JobSpec
 
 __all__ = ["ScheduleCreate", "ScheduleRead", "SchedulePage"]
 
 
 class ScheduleCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     graph_id: str = Field(min_length=1, max_length=40)
     cron: str = Field(
@@ -23,7 +23,7 @@ class ScheduleCreate(BaseModel):
     )
     timezone: str = Field(default="UTC", max_length=64, examples=["Europe/Paris"], description="IANA zone.")
     job: JobSpec
-    priority: int = Field(default=0, ge=-100, le=100)
+    priority: Priority = 0
 
 
 class ScheduleRead(BaseModel):

@@ -25,13 +25,21 @@ __all__ = [
 
 MAX_OVERLAP_SECONDS = 7 * 24 * 3600
 
+_PORT = r"([1-9][0-9]{0,3}|[1-5][0-9]{4}|6[0-4][0-9]{3}|65[0-4][0-9]{2}|655[0-2][0-9]|6553[0-5])"
+#: An absolute URL: scheme, host, a port (1 to 65535), a path; the rest is checked when the host resolves.
+URL_PATTERN = r"^https?://[A-Za-z0-9.-]+(:" + _PORT + r")?(/[!-~]*)?$"
+
 WebhookEvent = Literal["job.succeeded", "job.failed", "job.cancelled"]
 
 
 class WebhookCreate(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+    model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
-    url: str = Field(min_length=1, max_length=2000, examples=["https://crm.example.com/hooks/bellwether"])
+    url: str = Field(
+        min_length=1, max_length=2000, pattern=URL_PATTERN, examples=["https://crm.example.com/hooks/bellwether"],
+        description="An https URL whose host resolves to public addresses only (http is accepted only "
+        "for loopback hosts, on servers that allow them).",
+    )
     events: list[WebhookEvent] = Field(min_length=1, examples=[["job.succeeded", "job.failed"]])
     secret: str | None = Field(
         default=None,
