@@ -124,7 +124,10 @@ def percentile_ranks(values: NDArray[np.float64], order: NDArray[np.int32]) -> N
     if valid == 0:
         return out
     ranked = values[order[:valid]]
-    starts = np.concatenate(([0], np.flatnonzero(ranked[1:] != ranked[:-1]) + 1))
+    # Equal scores share a percentile even when two computations of the same value differ in
+    # the last bits (1/3 reached by two sums of floats): within 1e-9 relative is equal.
+    differs = ~np.isclose(ranked[1:], ranked[:-1], rtol=1e-9, atol=0.0)
+    starts = np.concatenate(([0], np.flatnonzero(differs) + 1))
     lengths = np.diff(np.append(starts, valid))
     below = valid - starts - lengths
     out[order[:valid]] = np.repeat(100.0 * (below + 0.5 * lengths) / valid, lengths)
@@ -279,17 +282,20 @@ def as_number(x: float) -> float | None:
 
 
 def columns(
-    idx: NDArray[np.int32], ranking: Ranking, nodes: NodeTable, membership: NDArray[np.int32] | None
+    idx: NDArray[np.int32], ranking: Ranking, nodes: NodeTable, membership: NDArray[np.int32] | None,
+    shown: Callable[[float], float] | None = None,
 ) -> tuple[list[Any], ...]:
     """Columns of the rows ``idx`` (node indices): node_id, score, percentile (4 decimals),
-    segment, contactable, label, community; NaN becomes None."""
+    segment, contactable, label, community; NaN becomes None. ``shown`` rounds scores and
+    percentiles for the caller (the API's rounding rule); None leaves them whole."""
     rows = idx.tolist()
+    keep: Callable[[float], float] = shown or (lambda x: x)
     seg_labels, labels = nodes.segment_labels, nodes.labels
     none = [None] * len(rows)
     return (
         [nodes.ids[i] for i in rows],
-        [as_number(x) for x in ranking.values[idx].tolist()],
-        [as_number(x) for x in np.round(ranking.pct[idx], 4).tolist()],
+        [as_number(keep(x)) for x in ranking.values[idx].tolist()],
+        [as_number(keep(x)) for x in np.round(ranking.pct[idx], 4).tolist()],
         [seg_labels[s] if s >= 0 else None for s in nodes.segment[idx].tolist()],
         nodes.contactable[idx].tolist(),
         [labels[i] for i in rows] if labels else none,
@@ -298,7 +304,8 @@ def columns(
 
 
 def csv_chunks(
-    order: NDArray[np.int32], ranking: Ranking, nodes: NodeTable, membership: NDArray[np.int32] | None
+    order: NDArray[np.int32], ranking: Ranking, nodes: NodeTable, membership: NDArray[np.int32] | None,
+    shown: Callable[[float], float] | None = None,
 ) -> Iterator[str]:
     """The ranking ``order`` as RFC 4180 CSV text, :data:`CSV_HEADER` first, in chunks;
     text cells pass through :func:`safe_cell`."""
@@ -306,7 +313,7 @@ def csv_chunks(
     out = csv.writer(buf, lineterminator="\r\n")
     out.writerow(CSV_HEADER)
     for start in range(0, order.shape[0], CSV_CHUNK):
-        nid, sc, p, sg, ct, lb, cm = columns(order[start:start + CSV_CHUNK], ranking, nodes, membership)
+        nid, sc, p, sg, ct, lb, cm = columns(order[start:start + CSV_CHUNK], ranking, nodes, membership, shown)
         out.writerows(zip(
             range(start + 1, start + len(nid) + 1), [safe_cell(s) for s in nid], sc, p,
             [safe_cell(s) for s in sg], ["true" if c else "false" for c in ct], [safe_cell(s) for s in lb], cm,

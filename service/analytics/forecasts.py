@@ -343,8 +343,11 @@ def _interval(values: NDArray[np.generic], z: float) -> IntervalEstimate:
     return IntervalEstimate(mean, se, mean - z * se, mean + z * se)
 
 
-def outcome_histogram(values: ArrayLike, bins: int = 30) -> dict[str, list[float] | list[int]]:
+def outcome_histogram(values: ArrayLike, bins: int = 200) -> dict[str, list[float] | list[int]]:
     """Counts of simulated outcomes in at most ``bins`` equal bins of whole numbers of people.
+
+    The bins are fine (200 by default) so that a plot can merge them into
+    coarser bars, on edges shared by several seed sets, without artefacts.
 
     Bin ``i`` holds ``edges[i] <= x < edges[i + 1]`` (the last bin includes its
     right edge).

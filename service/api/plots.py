@@ -192,6 +192,27 @@ def _z(confidence: float) -> float:
     return NormalDist().inv_cdf(0.5 + confidence / 2.0)
 
 
+def _rebin(src_edges: list[float], src_counts: list[int], edges: list[float]) -> list[int]:
+    """Counts moved onto ``edges``, each stored bin shared out by how much of it each new bin covers.
+
+    Sets are stored on bins of their own; moving a whole bin by its left edge piles two
+    source bins into one bar now and then (a spike that is not in the data).
+    """
+    out = [0.0] * (len(edges) - 1)
+    for left, right, c in zip(src_edges[:-1], src_edges[1:], src_counts):
+        span = max(float(right) - float(left), 1e-12)
+        for j in range(len(out)):
+            overlap = min(right, edges[j + 1]) - max(left, edges[j])
+            if overlap > 0:
+                out[j] += c * overlap / span
+    # Whole campaigns per bar, keeping the total (largest remainders get the leftovers).
+    floors = [int(x) for x in out]
+    rest = int(round(sum(src_counts))) - sum(floors)
+    for j in sorted(range(len(out)), key=lambda j: out[j] - floors[j], reverse=True)[:max(rest, 0)]:
+        floors[j] += 1
+    return floors
+
+
 def _outcomes(data: dict[str, Any]) -> str:
     sets = [f for f in _forecast_sets(data) if f.get("outcome_histogram")]
     if not sets:
@@ -207,10 +228,7 @@ def _outcomes(data: dict[str, Any]) -> str:
     marks: dict[str, dict[str, float]] = {}
     for f in sets:
         h = f["outcome_histogram"]
-        # Re-bin onto common edges by each bin's left edge (the stored bins are whole people wide).
-        cs = [0] * (len(edges) - 1)
-        for left, c in zip(h["edges"][:-1], h["counts"]):
-            cs[min(int((left - lo) // width), len(cs) - 1)] += int(c)
+        cs = _rebin(h["edges"], h["counts"], edges)
         name = _set_name(f)
         counts[name] = cs
         p = f.get("percentiles") or {}

@@ -39,6 +39,7 @@ from storage.errors import NotFound
 from storage.models import Graph, GraphVersion, Job, JobResult, ResultArray
 from storage.repo import graphs as graph_repo
 
+from .rendering import round_value
 from .deps import get_principal, require_graph
 from .errors import InvalidParams
 from .graphs import parse_version
@@ -328,10 +329,10 @@ def _read_ranking(db: Session, tenant: str, q: _RankingQuery, cursor: str | None
     if q.format == "csv":
         name = f"rankings-{q.graph_id}-v{found.version}-{q.measure}.csv"
         headers["Content-Disposition"] = f'attachment; filename="{name}"'
-        return StreamingResponse(R.csv_chunks(order, ranking, nodes, membership),
+        return StreamingResponse(R.csv_chunks(order, ranking, nodes, membership, _shown),
                                  media_type="text/csv; charset=utf-8", headers=headers)
     page = order[position:position + q.limit]
-    cols = R.columns(page, ranking, nodes, membership)
+    cols = R.columns(page, ranking, nodes, membership, _shown)
     measures = found.data["measures"]
     body = {
         "graph_id": q.graph_id, "version": found.version, "scores_version": found.scores_version,
@@ -400,6 +401,11 @@ async def list_rankings(
 # -- one person -----------------------------------------------------------------------
 
 
+def _shown(x: float) -> float:
+    """Scores and percentiles to four significant digits, as every answer rounds shares."""
+    return round_value(x, "share")
+
+
 def _inverse(order: NDArray[np.int32]) -> NDArray[np.int32]:
     rank_of = np.empty(order.shape[0], dtype=np.int32)
     rank_of[order] = np.arange(1, order.shape[0] + 1, dtype=np.int32)
@@ -425,8 +431,8 @@ def _read_node(db: Session, tenant: str, graph_id: str, nid: str, version: int |
         for m in found.ranked():
             order = found.array(db, R.key("order", m))
             rank_of: NDArray[np.int32] = R.cached(("rank_of", found.job_id, m), partial(_inverse, order))
-            scores[m] = {"score": R.as_number(float(found.array(db, R.key("score", m))[i])),
-                         "percentile": R.as_number(round(float(found.array(db, R.key("pct", m))[i]), 4)),
+            scores[m] = {"score": R.as_number(_shown(float(found.array(db, R.key("score", m))[i]))),
+                         "percentile": R.as_number(_shown(round(float(found.array(db, R.key("pct", m))[i]), 4))),
                          "rank": int(rank_of[i])}
         if found.has("community.membership"):
             c = int(found.array(db, R.key("community", "membership"))[i])
@@ -507,9 +513,10 @@ def _read_communities(
         members = grouped[starts[c]:starts[c] + min(top, size)].tolist()
         items.append({
             "community": c, "size": size, "internal_edges": inner,
-            "density": inner / (size * (size - 1) / 2) if size > 1 else None,
+            "density": _shown(inner / (size * (size - 1) / 2)) if size > 1 else None,
             "top_members": [{"node_id": nodes.ids[j], "label": nodes.labels[j] if nodes.labels else None,
-                             "score": R.as_number(float(values[j])) if values is not None else None} for j in members],
+                             "score": R.as_number(_shown(float(values[j]))) if values is not None else None}
+                            for j in members],
         })
     meta = found.data["measures"].get("community", {})
     body = CommunityPage(

@@ -20,7 +20,8 @@ SECTIONS = [
     "## Profile",
     "## Who is central",
     "## Shortlist",
-    "## Forecast",
+    "## Where the shortlist gains, store by store",
+    "## The same campaign on a money budget",
     "## First wave",
     "## Cautions",
 ]
@@ -40,6 +41,17 @@ def test_demo_report_has_every_section_and_valid_plots(tmp_path: Path) -> None:
         assert section in report, section
     assert "Relationship data is personal data" in proc.stdout
     assert "Guarantee" in report and "interval" in report
+    # The shortlist is compared with each obvious choice by a paired verdict, and the forecast of
+    # the same list on the shortlist's own campaigns repeats its figure.
+    shortlist = report[report.index("## Shortlist"):report.index("## Where the shortlist gains")]
+    verdicts = [line for line in shortlist.splitlines() if line.startswith("- ")]
+    assert len(verdicts) >= 2 and all("95% interval" in v for v in verdicts)
+    headline = re.search(r"Expected reach of the shortlist: ([\d,]+) people", shortlist)
+    forecast = report[report.index("## Where the shortlist gains"):]
+    row = re.search(r"\| optimised shortlist \| ([\d,.]+) \|", forecast)
+    assert headline and row and round(float(row.group(1).replace(",", ""))) == int(headline.group(1).replace(",", ""))
+    assert "-0 " not in report and "| -0 |" not in report
+    assert str(tmp_path) not in report  # no absolute paths of the machine
     svgs = sorted(p.name for p in out.glob("*.svg"))
     assert svgs == ["adoption.svg", "degree_distribution.svg", "outcomes.svg", "reach_curve.svg",
                     "segment_reach.svg"]

@@ -25,9 +25,10 @@ __all__ = [
 
 MAX_OVERLAP_SECONDS = 7 * 24 * 3600
 
-_PORT = r"([1-9][0-9]{0,3}|[1-5][0-9]{4}|6[0-4][0-9]{3}|65[0-4][0-9]{2}|655[0-2][0-9]|6553[0-5])"
-#: An absolute URL: scheme, host, a port (1 to 65535), a path; the rest is checked when the host resolves.
-URL_PATTERN = r"^https?://[A-Za-z0-9.-]+(:" + _PORT + r")?(/[!-~]*)?$"
+#: An absolute URL: scheme, a host name or a bracketed IPv6 address, a port, a path. The
+#: address and port are judged when the host resolves, so that a refusal can say why (an IPv6
+#: address wrapping a private IPv4 one, port 0): the pattern only keeps out what is no URL.
+URL_PATTERN = r"^https?://([A-Za-z0-9.-]+|\[[0-9A-Fa-f:.]+\])(:[0-9]{1,5})?(/[!-~]*)?$"
 
 WebhookEvent = Literal["job.succeeded", "job.failed", "job.cancelled"]
 
