@@ -94,6 +94,8 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
     """Pairs i < j with weight sum_e factor[e] * w_ie * w_je and their shared-event count.
 
     Events with ``factor[e] == 0`` are skipped. Output is sorted by (src, dst).
+    ``capacity`` should be the pair-slot count, an upper bound on the pairs:
+    the arrays are reserved at that size and only the written part is touched.
     """
     acc = np.zeros(n_people, np.float64)
     shared = np.zeros(n_people, np.int32)
@@ -134,7 +136,8 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
             w2[:k] = w[:k]
             c2[:k] = c[:k]
             src, dst, w, c = src2, dst2, w2, c2
-        row = np.sort(touched[:nt])
+        row = touched[:nt]
+        row.sort()
         for q in range(nt):
             j = row[q]
             src[k] = i
@@ -144,29 +147,55 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
             acc[j] = 0.0
             shared[j] = 0
             k += 1
-    return src[:k].copy(), dst[:k].copy(), w[:k].copy(), c[:k].copy()
+    # Views, not copies: pages past k were never written, so they hold no memory.
+    return src[:k], dst[:k], w[:k], c[:k]
 
 
 @njit(cache=True, nogil=True)
-def _binom_tail_table(n, q, pmf, suffix):  # type: ignore[no-untyped-def]
-    """pmf[t] = P(Bin(n, q) = t) for t <= n, suffix[t] = P(Bin(n, q) >= t)."""
-    if q <= 0.0:
-        pmf[: n + 1] = 0.0
-        pmf[0] = 1.0
+def _log_binom_pmf(n, q, t):  # type: ignore[no-untyped-def]
+    return (math.lgamma(n + 1.0) - math.lgamma(t + 1.0) - math.lgamma(n - t + 1.0)
+            + t * math.log(q) + (n - t) * math.log1p(-q))
+
+
+@njit(cache=True, nogil=True)
+def _binom_head(n, q, count, pmf, tail):  # type: ignore[no-untyped-def]
+    """pmf[t] = P(Bin(n, q) = t) for t < count; tail[r] = P(Bin(n, q) >= r) for r <= count.
+
+    The tail at ``count`` is summed upwards from ``count`` when ``count`` is
+    above the mean (small tails keep their digits), else taken as one minus
+    the head; smaller r add pmf terms downwards, so no difference is formed.
+    Work O(count) plus the terms of the upward sum.
+    """
+    for t in range(count):
+        if t > n or q <= 0.0:
+            pmf[t] = 1.0 if (t == 0 and q <= 0.0) else 0.0
+        elif q >= 1.0:
+            pmf[t] = 1.0 if t == n else 0.0
+        else:
+            pmf[t] = math.exp(_log_binom_pmf(n, q, t))
+    if count > n or q <= 0.0:
+        top = 0.0
     elif q >= 1.0:
-        pmf[: n + 1] = 0.0
-        pmf[n] = 1.0
+        top = 1.0
+    elif count > n * q:
+        term = math.exp(_log_binom_pmf(n, q, count))
+        top = 0.0
+        t = count
+        ratio = q / (1.0 - q)
+        while term > 0.0 and t <= n:
+            top += term
+            if term < 1e-17 * top:
+                break
+            term *= (n - t) / (t + 1.0) * ratio
+            t += 1
     else:
-        lq = math.log(q)
-        l1q = math.log1p(-q)
-        lgn = math.lgamma(n + 1.0)
-        for t in range(n + 1):
-            pmf[t] = math.exp(
-                lgn - math.lgamma(t + 1.0) - math.lgamma(n - t + 1.0) + t * lq + (n - t) * l1q
-            )
-    suffix[n + 1] = 0.0
-    for t in range(n, -1, -1):
-        suffix[t] = suffix[t + 1] + pmf[t]
+        head = 0.0
+        for t in range(count):
+            head += pmf[t]
+        top = max(1.0 - head, 0.0)
+    tail[count] = min(top, 1.0)
+    for r in range(count - 1, -1, -1):
+        tail[r] = min(tail[r + 1] + pmf[r], 1.0)
 
 
 @njit(cache=True, nogil=True)
@@ -174,17 +203,13 @@ def grouped_tail_exact(q, mult, count):  # type: ignore[no-untyped-def]
     """P(X >= count) for X = sum_b Bin(mult[b], q[b]), exactly.
 
     Dynamic programme over the groups with the states 0..count-1 kept and
-    every larger value absorbed into one ``>= count`` mass, which is summed
-    from the top of each binomial so that small tails keep their digits.
+    every larger value absorbed into one ``>= count`` mass. Work
+    O(groups * count^2).
     """
     if count <= 0:
         return 1.0
-    big = 0
-    for b in range(mult.shape[0]):
-        if mult[b] > big:
-            big = mult[b]
-    pmf = np.empty(big + 1, np.float64)
-    suffix = np.empty(big + 2, np.float64)
+    pmf = np.empty(count + 1, np.float64)
+    tail = np.empty(count + 1, np.float64)
     state = np.zeros(count, np.float64)
     nxt = np.zeros(count, np.float64)
     state[0] = 1.0
@@ -193,18 +218,15 @@ def grouped_tail_exact(q, mult, count):  # type: ignore[no-untyped-def]
         n = mult[b]
         if n == 0 or q[b] <= 0.0:
             continue
-        _binom_tail_table(n, q[b], pmf, suffix)
+        _binom_head(n, q[b], count, pmf, tail)
         nxt[:] = 0.0
         for s in range(count):
             ps = state[s]
             if ps == 0.0:
                 continue
-            top = min(n, count - 1 - s)
-            for t in range(top + 1):
+            for t in range(count - s):
                 nxt[s + t] += ps * pmf[t]
-            need = count - s
-            if need <= n:
-                absorbed += ps * suffix[need]
+            absorbed += ps * tail[count - s]
         state, nxt = nxt, state
     return min(absorbed, 1.0)
 
@@ -255,3 +277,52 @@ def refined_normal_tail(q, mult, count):  # type: ignore[no-untyped-def]
     phi = math.exp(-0.5 * x * x) / math.sqrt(2.0 * math.pi)
     val = upper - gamma * (1.0 - x * x) * phi / 6.0
     return min(max(val, 0.0), 1.0)
+
+
+@njit(cache=True, nogil=True)
+def disparity_p(src, dst, w, n, directed, both, keep_degree_one):  # type: ignore[no-untyped-def]
+    """Disparity-filter p-value per tie and whether a degree-one rule forces it.
+
+    Undirected: strengths and degrees over both endpoints. Directed: the
+    source's out-ties and the target's in-ties. (1 - p)^(k - 1) is taken as
+    exp((k - 1) log1p(-p)) so small shares keep their digits at large degree.
+    """
+    m = src.shape[0]
+    s_a = np.zeros(n, np.float64)
+    k_a = np.zeros(n, np.int64)
+    if directed:
+        s_b = np.zeros(n, np.float64)
+        k_b = np.zeros(n, np.int64)
+    else:
+        s_b = s_a
+        k_b = k_a
+    for e in range(m):
+        s_a[src[e]] += w[e]
+        k_a[src[e]] += 1
+        s_b[dst[e]] += w[e]
+        k_b[dst[e]] += 1
+    p = np.empty(m, np.float64)
+    forced = np.zeros(m, np.bool_)
+    for e in range(m):
+        a = src[e]
+        b = dst[e]
+        ka = k_a[a]
+        kb = k_b[b]
+        pa = 1.0
+        if ka > 1:
+            pa = math.exp((ka - 1) * math.log1p(-min(w[e] / s_a[a], 1.0)))
+        pb = 1.0
+        if kb > 1:
+            pb = math.exp((kb - 1) * math.log1p(-min(w[e] / s_b[b], 1.0)))
+        if both:
+            # An endpoint with one tie has no test: the other endpoint decides.
+            if ka == 1:
+                pa = pb
+            if kb == 1:
+                pb = pa
+            p[e] = max(pa, pb)
+        else:
+            p[e] = min(pa, pb)
+        if keep_degree_one and (ka == 1 or kb == 1):
+            forced[e] = True
+    return p, forced

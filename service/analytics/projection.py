@@ -415,7 +415,7 @@ def project_table(table: EventTable, *, method: str, half_life: float | None = N
                                  max_event_size=max_event_size)
     src, dst, w, shared = K.upper_pairs(table.person_ptr, table.person_events, table.person_pos,
                                         table.ptr, table.members, table.member_weight, f,
-                                        table.n_people, min(slots, 4 * table.members.shape[0]))
+                                        table.n_people, slots)
     in_events = table.person_degree > 0
     people_in_events = int(in_events.sum())
     common: dict[str, Any] = dict(n_people=table.n_people, rows=table.rows, duplicate_rows=table.duplicate_rows,

@@ -293,3 +293,33 @@ def test_sdsm_refuses_when_nothing_is_significant():
     with pytest.raises(EmptyBackbone) as err:
         sdsm(person, event)
     assert err.value.data["edges_tested"] == 10
+
+
+@pytest.mark.parametrize("seed", [3, 8])
+def test_bicm_agrees_with_the_bicm_package(seed):
+    pkg = pytest.importorskip("bicm", reason="the bicm package is an optional cross-check")
+    rng = np.random.default_rng(seed)
+    A = (rng.random((15, 12)) < 0.3).astype(int)
+    for _ in range(3):  # no empty or saturated rows or columns (the package needs none)
+        A = A[(A.sum(1) > 0) & (A.sum(1) < A.shape[1])]
+        A = A[:, (A.sum(0) > 0) & (A.sum(0) < A.shape[0])]
+    person, event = np.nonzero(A)
+    fit = bicm(person, event)
+    P = fit.probability(np.arange(A.shape[0])[:, None], np.arange(A.shape[1])[None, :])
+    # Source: the bicm package (Saracco, Squartini et al.), BipartiteGraph.get_bicm_matrix.
+    bg = pkg.BipartiteGraph(biadjacency=A)
+    bg.solve_tool(print_error=False)
+    np.testing.assert_allclose(P, bg.get_bicm_matrix(), atol=1e-7)
+
+
+def test_grouped_exact_tail_with_large_groups_matches_scipy_binomials():
+    # Source: SciPy stats.binom (pmf and sf), two groups convolved directly in this test.
+    for n1, q1, n2, q2 in [(200_000, 1e-5, 50, 0.3), (5_000, 0.002, 300_000, 2e-6),
+                           (100, 0.5, 10, 0.9)]:
+        t = np.arange(0, 80)
+        pmf1 = stats.binom.pmf(t, n1, q1)
+        for c in (1, 3, 8, 20, 40):
+            expect = sum(pmf1[s] * stats.binom.sf(c - s - 1, n2, q2) for s in range(c)) + \
+                stats.binom.sf(c - 1, n1, q1)
+            got = K.grouped_tail_exact(np.array([q1, q2]), np.array([n1, n2], np.int64), c)
+            assert got == pytest.approx(expect, rel=1e-8, abs=1e-300)
