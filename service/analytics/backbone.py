@@ -487,13 +487,23 @@ def sdsm_p_values(table: EventTable, fit: BicmFit, src: NDArray[np.int32], dst: 
     qa = _link_prob(x_classes[:, None], y_groups[None, :])
     a = person_class[src]
     b = person_class[dst]
-    key = (np.minimum(a, b).astype(np.int64) * len(x_classes) + np.maximum(a, b)) \
-        * (int(count.max(initial=0)) + 1) + count
-    uniq, inv = np.unique(key, return_inverse=True)
-    c_u = uniq % (int(count.max(initial=0)) + 1)
-    ab = uniq // (int(count.max(initial=0)) + 1)
-    tails = K.grouped_tails(np.ascontiguousarray(qa),
-                            mult.astype(np.int64), (ab // len(x_classes)).astype(np.int64),
-                            (ab % len(x_classes)).astype(np.int64), c_u.astype(np.int64),
-                            int(exact_limit))
+    n_cls = len(x_classes)
+    top = int(count.max(initial=0)) + 1
+    key = (np.minimum(a, b).astype(np.int64) * n_cls + np.maximum(a, b)) * top + count
+    space = n_cls * n_cls * top
+    if space <= 8 * key.size + 1024:
+        # Few distinct (class, class, count) triples: index them without sorting.
+        seen = np.zeros(space, bool)
+        seen[key] = True
+        uniq = np.flatnonzero(seen)
+        slot = np.zeros(space, np.int64)
+        slot[uniq] = np.arange(uniq.size)
+        inv = slot[key]
+    else:
+        uniq, inv = np.unique(key, return_inverse=True)
+    c_u = uniq % top
+    ab = uniq // top
+    tails = K.grouped_tails(np.ascontiguousarray(qa), mult.astype(np.int64),
+                            (ab // n_cls).astype(np.int64), (ab % n_cls).astype(np.int64),
+                            c_u.astype(np.int64), int(exact_limit))
     return np.asarray(tails[inv], dtype=np.float64)
