@@ -18,7 +18,13 @@ from numpy.typing import ArrayLike, NDArray
 
 from . import _projection_kernels as K
 from .errors import ComputationFailed, EmptyGraph, InvalidParameter
-from .projection import EventTable, Projection, event_table, project_table
+from .projection import (
+    DEFAULT_MAX_PAIR_SLOTS,
+    EventTable,
+    Projection,
+    event_table,
+    project_table,
+)
 
 __all__ = [
     "CORRECTIONS",
@@ -388,7 +394,8 @@ def bicm(person: ArrayLike | EventTable, event: ArrayLike | None = None, *,
 
 def sdsm(person: ArrayLike, event: ArrayLike, *, alpha: float = 0.05, correction: str = "none",
          exact_limit: int = EXACT_COUNT_LIMIT, singletons: Literal["refuse", "skip"] = "refuse",
-         n_people: int | None = None, n_events: int | None = None) -> Backbone:
+         n_people: int | None = None, n_events: int | None = None,
+         max_pair_slots: int = DEFAULT_MAX_PAIR_SLOTS) -> Backbone:
     """Stochastic degree sequence model backbone of a (person, event) table.
 
     Each pair's number of shared events c_ij is compared with its
@@ -410,6 +417,9 @@ def sdsm(person: ArrayLike, event: ArrayLike, *, alpha: float = 0.05, correction
     singletons : {"refuse", "skip"}
         One-participant events still count in the degrees when skipped.
     n_people, n_events : int, optional
+    max_pair_slots : int
+        Limit on sum over events of n_e (n_e - 1) / 2, as in
+        :func:`~service.analytics.projection.project_events`.
 
     Returns
     -------
@@ -466,7 +476,8 @@ def sdsm(person: ArrayLike, event: ArrayLike, *, alpha: float = 0.05, correction
     if correction not in CORRECTIONS:
         raise InvalidParameter(field="correction", value=correction, choices=list(CORRECTIONS))
     table = event_table(person, event, n_people=n_people, n_events=n_events)
-    graph = project_table(table, method="count", max_event_size=None, singletons=singletons)
+    graph = project_table(table, method="count", max_event_size=None, singletons=singletons,
+                          max_pair_slots=max_pair_slots)
     fit = bicm(table)
     p = sdsm_p_values(table, fit, graph.src, graph.dst, graph.shared.astype(np.int64),
                       exact_limit=exact_limit)

@@ -323,3 +323,17 @@ def test_grouped_exact_tail_with_large_groups_matches_scipy_binomials():
                 stats.binom.sf(c - 1, n1, q1)
             got = K.grouped_tail_exact(np.array([q1, q2]), np.array([n1, n2], np.int64), c)
             assert got == pytest.approx(expect, rel=1e-8, abs=1e-300)
+
+
+def test_sdsm_bounds_pair_work_and_checks_options():
+    from service.analytics.projection import ProjectionTooLarge
+
+    person = np.concatenate([np.arange(50), [0, 1]])
+    event = np.concatenate([np.zeros(50, int), [1, 1]])
+    with pytest.raises(ProjectionTooLarge) as err:
+        sdsm(person, event, max_pair_slots=100)
+    assert err.value.data["pair_slots"] == 50 * 49 // 2 + 1
+    with pytest.raises(InvalidParameter):
+        sdsm(person, event, correction="holm")
+    with pytest.raises(InvalidParameter):
+        sdsm(person, event, alpha=0.0)
