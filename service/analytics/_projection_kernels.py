@@ -96,9 +96,11 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
     Events with ``factor[e] == 0`` are skipped. Output is sorted by (src, dst).
     ``capacity`` should be the pair-slot count, an upper bound on the pairs:
     the arrays are reserved at that size and only the written part is touched.
+    Also returns each person's strength and degree in the projection. The
+    per-person work values sit side by side in one row of ``work`` (weight,
+    shared count, strength, degree), so an update touches one cache line.
     """
-    acc = np.zeros(n_people, np.float64)
-    shared = np.zeros(n_people, np.int32)
+    work = np.zeros((n_people, 4), np.float64)
     touched = np.empty(n_people, np.int32)
     capacity = max(capacity, 16)
     src = np.empty(capacity, np.int32)
@@ -117,11 +119,11 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
             fi = f * mweight[pos]
             for t in range(pos + 1, ptr[e + 1]):
                 j = members[t]
-                if shared[j] == 0:
+                if work[j, 1] == 0.0:
                     touched[nt] = j
                     nt += 1
-                acc[j] += fi * mweight[t]
-                shared[j] += 1
+                work[j, 0] += fi * mweight[t]
+                work[j, 1] += 1.0
         if nt == 0:
             continue
         if k + nt > capacity:
@@ -138,17 +140,24 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
             src, dst, w, c = src2, dst2, w2, c2
         row = touched[:nt]
         row.sort()
+        si = 0.0
         for q in range(nt):
             j = row[q]
+            wj = work[j, 0]
             src[k] = i
             dst[k] = j
-            w[k] = acc[j]
-            c[k] = shared[j]
-            acc[j] = 0.0
-            shared[j] = 0
+            w[k] = wj
+            c[k] = np.int32(work[j, 1])
+            work[j, 0] = 0.0
+            work[j, 1] = 0.0
+            work[j, 2] += wj
+            work[j, 3] += 1.0
+            si += wj
             k += 1
+        work[i, 2] += si
+        work[i, 3] += nt
     # Views, not copies: pages past k were never written, so they hold no memory.
-    return src[:k], dst[:k], w[:k], c[:k]
+    return src[:k], dst[:k], w[:k], c[:k], work[:, 2].copy(), work[:, 3].astype(np.int64)
 
 
 @njit(cache=True, nogil=True)
@@ -280,49 +289,58 @@ def refined_normal_tail(q, mult, count):  # type: ignore[no-untyped-def]
 
 
 @njit(cache=True, nogil=True)
-def disparity_p(src, dst, w, n, directed, both, keep_degree_one):  # type: ignore[no-untyped-def]
+def node_stats(src, dst, w, n, directed):  # type: ignore[no-untyped-def]
+    """Strength and degree per node: rows (s_out, k_out, s_in, k_in), or (s, k, s, k)."""
+    st = np.zeros((n, 4), np.float64)
+    for e in range(src.shape[0]):
+        a = src[e]
+        b = dst[e]
+        st[a, 0] += w[e]
+        st[a, 1] += 1.0
+        if directed:
+            st[b, 2] += w[e]
+            st[b, 3] += 1.0
+        else:
+            st[b, 0] += w[e]
+            st[b, 1] += 1.0
+    if not directed:
+        for v in range(n):
+            st[v, 2] = st[v, 0]
+            st[v, 3] = st[v, 1]
+    return st
+
+
+@njit(cache=True, nogil=True)
+def disparity_p(src, dst, w, st, both, keep_degree_one):  # type: ignore[no-untyped-def]
     """Disparity-filter p-value per tie and whether a degree-one rule forces it.
 
-    Undirected: strengths and degrees over both endpoints. Directed: the
-    source's out-ties and the target's in-ties. (1 - p)^(k - 1) is taken as
+    ``st`` from :func:`node_stats`: the source is tested on (s, k) in columns
+    0-1, the target on columns 2-3. (1 - p)^(k - 1) is taken as
     exp((k - 1) log1p(-p)) so small shares keep their digits at large degree.
     """
     m = src.shape[0]
-    s_a = np.zeros(n, np.float64)
-    k_a = np.zeros(n, np.int64)
-    if directed:
-        s_b = np.zeros(n, np.float64)
-        k_b = np.zeros(n, np.int64)
-    else:
-        s_b = s_a
-        k_b = k_a
-    for e in range(m):
-        s_a[src[e]] += w[e]
-        k_a[src[e]] += 1
-        s_b[dst[e]] += w[e]
-        k_b[dst[e]] += 1
     p = np.empty(m, np.float64)
     forced = np.zeros(m, np.bool_)
     for e in range(m):
         a = src[e]
         b = dst[e]
-        ka = k_a[a]
-        kb = k_b[b]
+        ka = st[a, 1]
+        kb = st[b, 3]
         pa = 1.0
-        if ka > 1:
-            pa = math.exp((ka - 1) * math.log1p(-min(w[e] / s_a[a], 1.0)))
+        if ka > 1.0:
+            pa = math.exp((ka - 1.0) * math.log1p(-min(w[e] / st[a, 0], 1.0)))
         pb = 1.0
-        if kb > 1:
-            pb = math.exp((kb - 1) * math.log1p(-min(w[e] / s_b[b], 1.0)))
+        if kb > 1.0:
+            pb = math.exp((kb - 1.0) * math.log1p(-min(w[e] / st[b, 2], 1.0)))
         if both:
             # An endpoint with one tie has no test: the other endpoint decides.
-            if ka == 1:
+            if ka == 1.0:
                 pa = pb
-            if kb == 1:
+            if kb == 1.0:
                 pb = pa
             p[e] = max(pa, pb)
         else:
             p[e] = min(pa, pb)
-        if keep_degree_one and (ka == 1 or kb == 1):
+        if keep_degree_one and (ka == 1.0 or kb == 1.0):
             forced[e] = True
     return p, forced

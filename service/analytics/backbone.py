@@ -239,8 +239,14 @@ def disparity_filter(graph: Projection, *, alpha: float = 0.05,
         raise InvalidParameter(field="rule", value=rule, choices=["either", "both"])
     if degree_one not in ("other_end", "keep"):
         raise InvalidParameter(field="degree_one", value=degree_one, choices=["other_end", "keep"])
-    p, forced = K.disparity_p(graph.src, graph.dst, graph.weight, graph.n_people,
-                              graph.directed, rule == "both", degree_one == "keep")
+    if graph.strength is not None and graph.degree is not None and not graph.directed:
+        st = np.empty((graph.n_people, 4))
+        st[:, 0] = st[:, 2] = graph.strength
+        st[:, 1] = st[:, 3] = graph.degree
+    else:
+        st = K.node_stats(graph.src, graph.dst, graph.weight, graph.n_people, graph.directed)
+    p, forced = K.disparity_p(graph.src, graph.dst, graph.weight, st, rule == "both",
+                              degree_one == "keep")
     return _finish(graph, p, method="disparity_filter", alpha=alpha, correction=correction,
                    tests=None, forced=forced if degree_one == "keep" else None)
 

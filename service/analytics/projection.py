@@ -103,6 +103,8 @@ class Projection:
     ----------
     src, dst : int32 person ids; weight : float64 tie weight.
     shared : int32 number of kept events the two people share.
+    strength, degree : float64 and int64 per person, sum of tie weights and
+        number of ties (undirected projections; None for directed ones).
     method : the projection's name; directed : arcs rather than pairs.
     n_people : id range of people.
     rows, duplicate_rows : table rows read and rows merged as duplicates.
@@ -118,6 +120,8 @@ class Projection:
     dst: NDArray[np.int32]
     weight: NDArray[np.float64]
     shared: NDArray[np.int32]
+    strength: NDArray[np.float64] | None
+    degree: NDArray[np.int64] | None
     method: str
     directed: bool
     n_people: int
@@ -413,7 +417,7 @@ def project_table(table: EventTable, *, method: str, half_life: float | None = N
     if slots > max_pair_slots:
         raise ProjectionTooLarge(pair_slots=slots, limit=max_pair_slots, largest_event=largest,
                                  max_event_size=max_event_size)
-    src, dst, w, shared = K.upper_pairs(table.person_ptr, table.person_events, table.person_pos,
+    src, dst, w, shared, strength, degree = K.upper_pairs(table.person_ptr, table.person_events, table.person_pos,
                                         table.ptr, table.members, table.member_weight, f,
                                         table.n_people, slots)
     in_events = table.person_degree > 0
@@ -438,5 +442,7 @@ def project_table(table: EventTable, *, method: str, half_life: float | None = N
         src, dst = np.concatenate([src, dst]), np.concatenate([dst, src])
         w = np.concatenate([fwd, back])
         shared = np.concatenate([shared, shared])
-    return Projection(src=src, dst=dst, weight=w, shared=shared, method=method,
+    return Projection(src=src, dst=dst, weight=w, shared=shared,
+                      strength=None if directed else strength,
+                      degree=None if directed else degree, method=method,
                       directed=directed, people_without_ties=without, **common)

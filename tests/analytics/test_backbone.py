@@ -26,7 +26,8 @@ from service.analytics.projection import Projection, event_table, project_events
 def _graph(src, dst, w, n, directed=False):
     src = np.asarray(src, np.int32)
     return Projection(src=src, dst=np.asarray(dst, np.int32), weight=np.asarray(w, float),
-                      shared=np.ones(len(src), np.int32), method="given", directed=directed,
+                      shared=np.ones(len(src), np.int32), strength=None, degree=None,
+                      method="given", directed=directed,
                       n_people=n, rows=0, duplicate_rows=0, events=0, largest_event=0,
                       max_event_size=None, oversized="drop", events_over_cap=0, events_single=0,
                       people_in_events=n, people_without_ties=0)
@@ -337,3 +338,15 @@ def test_sdsm_bounds_pair_work_and_checks_options():
         sdsm(person, event, correction="holm")
     with pytest.raises(InvalidParameter):
         sdsm(person, event, alpha=0.0)
+
+
+def test_disparity_same_with_and_without_the_projections_node_totals():
+    import dataclasses
+
+    person, event, n, size = _planted(seed=2)
+    g = project_events(person, event, method="newman", max_event_size=None)
+    bare = dataclasses.replace(g, strength=None, degree=None)
+    for rule in ("either", "both"):
+        a = disparity_filter(g, alpha=0.05, rule=rule)
+        b = disparity_filter(bare, alpha=0.05, rule=rule)
+        np.testing.assert_allclose(a.p_value, b.p_value, rtol=1e-12)

@@ -240,3 +240,15 @@ def test_errors_map_to_422_problems():
                 ProjectionTooLarge(pair_slots=1), EmptyProjection(pairs=0)):
         ptype = problem_for(exc)
         assert ptype is not None and ptype.status == 422
+
+
+def test_strength_and_degree_per_person():
+    G, person, event = _random_table(5)
+    g = project_events(person, event, method="newman", singletons="skip", n_people=40)
+    ends = np.concatenate([g.src, g.dst])
+    # Source: numpy bincount over both endpoints of every tie.
+    np.testing.assert_allclose(g.strength, np.bincount(ends, np.concatenate([g.weight, g.weight]),
+                                                       minlength=40), rtol=1e-12)
+    assert np.array_equal(g.degree, np.bincount(ends, minlength=40))
+    ra = project_events(person, event, method="resource_allocation", singletons="skip")
+    assert ra.strength is None and ra.degree is None
