@@ -311,7 +311,8 @@ def project_events(person: ArrayLike, event: ArrayLike, *, method: str = "count"
         counts 2 ** (-(t_ref - t) / half_life); an event's time is its latest
         row time.
     t_ref : float, optional
-        Reference time; the latest event time when omitted.
+        Reference time; the latest event time when omitted (an event after
+        ``t_ref`` counts more than 1).
     max_event_size : int or None
         Cap on distinct participants per event (default 100, see Notes).
     oversized : {"drop", "downweight"}
