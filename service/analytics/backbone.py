@@ -451,8 +451,9 @@ def sdsm(person: ArrayLike, event: ArrayLike, *, alpha: float = 0.05, correction
     tail is computed once per (degree, degree, count) triple and per event
     size group: exactly by a dynamic programme over the size groups,
     O(groups * c^2) per triple, for counts up to ``exact_limit`` (default 50);
-    beyond, the normal approximation with skewness correction (within 0.01
-    of the exact tail in the tests).
+    beyond, the normal approximation with skewness correction, which is
+    close when counts and their means are in the tens or more (within 0.01
+    in the tests) but can be off by several hundredths at counts of a few.
 
     References
     ----------

@@ -350,3 +350,19 @@ def test_disparity_same_with_and_without_the_projections_node_totals():
         a = disparity_filter(g, alpha=0.05, rule=rule)
         b = disparity_filter(bare, alpha=0.05, rule=rule)
         np.testing.assert_allclose(a.p_value, b.p_value, rtol=1e-12)
+
+
+def test_sdsm_uses_exact_tails_for_small_counts():
+    # At counts of a few, the normal approximation can be off by several hundredths
+    # (seen here: up to about 0.05), so counts up to 50 take the exact tail by default.
+    person, event, n, size = _planted(seed=4, small_events=10)
+    t = event_table(person, event)
+    g = project_table(t, method="count", max_event_size=None)
+    fit = bicm(t)
+    counts = g.shared.astype(np.int64)
+    exact = sdsm_p_values(t, fit, g.src, g.dst, counts, exact_limit=10**6)
+    default = sdsm_p_values(t, fit, g.src, g.dst, counts)
+    approx = sdsm_p_values(t, fit, g.src, g.dst, counts, exact_limit=0)
+    assert counts.max() <= 50
+    np.testing.assert_array_equal(default, exact)
+    assert np.abs(exact - approx).max() > 0.01
