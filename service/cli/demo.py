@@ -266,7 +266,8 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
         items = r.json().get("items", [])
         d.say(f"Top 5 by {measure} ({meaning}):")
         d.table(["rank", "member", "score", "store", "consent"],
-                [[it.get("rank"), it.get("node_id"), it.get("score"), it.get("segment"), it.get("contactable")]
+                [[it.get("rank"), it.get("node_id"), it.get("score"), it.get("segment"),
+                  "yes" if it.get("contactable") else "no"]
                  for it in items])
 
     d.section(f"Shortlist: {KITS} ambassador kits, at most {CAP_PER_STORE} per store (job kind: shortlist)")
@@ -367,11 +368,15 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
     cost = d.run_job(gid, "shortlist", {"cost_budget": float(budget), "method": "imm", "epsilon": 0.2,
                                         "max_per_segment": caps, **common}, f"shortlist (cost {budget})")
     cdata = cost.get("data", cost)
-    d.say(f"With {budget:,} cost units the shortlist has {len(cdata.get('seeds', []))} members costing "
-          f"{float(cdata.get('total_cost') or 0):,.2f} in all, and expected reach "
-          f"{(cdata.get('expected_reach') or {}).get('mean', 0):,.0f} people (against "
-          f"{exp.get('mean', 0):,.0f} for {KITS} kits costing {kit_cost:,.2f}): members close to their store "
-          "are cheaper, so more of them fit.")
+    spent = float(cdata.get("total_cost") or 0)
+    reach = float((cdata.get("expected_reach") or {}).get("mean", 0))
+    full = float(exp.get("mean", 0)) or 1.0
+    d.say(_wrap(
+        f"With {budget:,} cost units the shortlist has {len(cdata.get('seeds', []))} members costing "
+        f"{spent:,.2f} in all, and expected reach {reach:,.0f} people, against {full:,.0f} for the {KITS} kits "
+        f"costing {kit_cost:,.2f}: {100 * (1 - spent / kit_cost):.0f}% less money for "
+        f"{100 * (1 - reach / full):.0f}% fewer people reached. Members close to their store are cheaper, so more "
+        "of them fit."))
 
     d.section("First wave: next contacts and referral asks (POST next-contacts)")
     rng = np.random.default_rng(3)
