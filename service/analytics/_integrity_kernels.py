@@ -19,7 +19,36 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-__all__ = ["ego_triangles", "ego_eigenvalues", "peel"]
+__all__ = ["ego_triangles", "ego_eigenvalues", "peel", "symmetric_csr"]
+
+
+@njit(cache=True, nogil=True)
+def symmetric_csr(n, lo, hi, w):  # type: ignore[no-untyped-def]
+    """Symmetric CSR of the ties ``lo[e] < hi[e]``, given sorted by ``(lo, hi)`` without repeats.
+
+    One counting pass: row ``r`` receives its smaller neighbours (ties where
+    ``hi = r``, met in increasing ``lo``) before its larger ones, so every
+    row comes out sorted.
+    """
+    indptr = np.zeros(n + 1, np.int64)
+    for e in range(lo.shape[0]):
+        indptr[lo[e] + 1] += 1
+        indptr[hi[e] + 1] += 1
+    for r in range(n):
+        indptr[r + 1] += indptr[r]
+    fill = indptr[:-1].copy()
+    indices = np.empty(indptr[n], np.int64)
+    data = np.empty(indptr[n], np.float64)
+    for e in range(lo.shape[0]):
+        a = lo[e]
+        b = hi[e]
+        indices[fill[a]] = b
+        data[fill[a]] = w[e]
+        fill[a] += 1
+        indices[fill[b]] = a
+        data[fill[b]] = w[e]
+        fill[b] += 1
+    return indptr, indices, data
 
 
 @njit(cache=True, nogil=True)
@@ -62,8 +91,9 @@ def ego_eigenvalues(n, indptr, indices, data, max_edges, dense_limit, max_iter, 
     spectral radius: power iteration estimates it as ``||A x|| / ||x||`` (the
     square root of the Rayleigh quotient of ``A^2``), which converges even when
     the ego is bipartite (a star, where ``-lambda`` is also an eigenvalue).
-    Egos of at most ``dense_limit`` people are solved exactly by LAPACK
-    (``eigvalsh`` on the dense matrix) instead.
+    A star ego has the closed form ``sqrt(sum w^2)``; an ego of at most
+    ``dense_limit`` people whose iteration has not settled after 200 steps
+    is solved by LAPACK (``eigvalsh`` on the dense matrix) instead.
     """
     lam = np.zeros(n, np.float64)
     converged = np.ones(n, np.bool_)
@@ -102,13 +132,14 @@ def ego_eigenvalues(n, indptr, indices, data, max_edges, dense_limit, max_iter, 
                     ew[k] = data[q]
                     k += 1
         size = d + 1
-        if size <= dense_limit:
-            a = np.zeros((size, size), np.float64)
+        if k == d:
+            # A star (no ties among the contacts): lambda = sqrt(sum of w^2) exactly.
+            s = 0.0
             for e in range(k):
-                a[ea[e], eb[e]] = ew[e]
-                a[eb[e], ea[e]] = ew[e]
-            lam[i] = np.linalg.eigvalsh(a)[-1]
+                s += ew[e] * ew[e]
+            lam[i] = np.sqrt(s)
             continue
+        small = size <= dense_limit
         norm = 0.0
         for j in range(size):
             x[j] = 1.0
@@ -117,7 +148,7 @@ def ego_eigenvalues(n, indptr, indices, data, max_edges, dense_limit, max_iter, 
             x[j] /= norm
         est = 0.0
         ok = False
-        for _ in range(max_iter):
+        for _ in range(min(max_iter, 200) if small else max_iter):
             for j in range(size):
                 y[j] = 0.0
             for e in range(k):
@@ -138,6 +169,13 @@ def ego_eigenvalues(n, indptr, indices, data, max_edges, dense_limit, max_iter, 
                 ok = True
                 break
             est = new
+        if not ok and small:
+            a = np.zeros((size, size), np.float64)
+            for e in range(k):
+                a[ea[e], eb[e]] = ew[e]
+                a[eb[e], ea[e]] = ew[e]
+            est = np.linalg.eigvalsh(a)[-1]
+            ok = True
         lam[i] = est
         converged[i] = ok
     return lam, converged

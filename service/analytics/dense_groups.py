@@ -50,8 +50,8 @@ def _check_common(weighting: str, blocks: int, min_size: int) -> None:
         raise InvalidParameter(field="weighting", value=weighting, allowed=list(COLUMN_WEIGHTINGS))
     if blocks < 1:
         raise InvalidParameter(field="blocks", value=blocks, minimum=1)
-    if min_size < 2:
-        raise InvalidParameter(field="min_size", value=min_size, minimum=2)
+    if min_size < 1:
+        raise InvalidParameter(field="min_size", value=min_size, minimum=1)
 
 
 def _column_weight(degree: NDArray[np.float64], weighting: str) -> NDArray[np.float64]:
@@ -70,7 +70,9 @@ def _best_block(
     order, mass = K.peel(n, indptr, indices, data, alive)
     count = order.shape[0]
     density = mass[:count] / (count - np.arange(count))
-    best = count - 1 - int(np.argmax(density[::-1]))  # the smallest block among ties
+    # The smallest block among (rounding-level) ties: a union of equally dense pieces
+    # is no denser than one of them.
+    best = int(np.flatnonzero(density >= density.max() * (1.0 - 1e-9))[-1])
     return np.sort(order[best:]), float(density[best])
 
 
@@ -206,7 +208,8 @@ def fraudar_bipartite(
     ----------
     rows, cols : array of int
         One entry per link: person ``rows[i]`` has value ``cols[i]`` (a device,
-        an address, a target at a time). Repeated pairs count once.
+        an address, a target at a time). Repeated pairs count once; values
+        held by one person only are left out (they tie nobody together).
     n_rows, n_cols : int, keyword-only
         Number of people and of distinct values.
     weighting : {"log", "uniform"}, keyword-only
@@ -265,6 +268,8 @@ def fraudar_bipartite(
         raise InvalidParameter("no value is shared by two or more people", links=int(r.size),
                                people=int(np.unique(r).size), values=int(np.unique(c).size))
     w = _column_weight(holders.astype(np.float64), weighting)[c]
+    shared = holders[c] >= 2  # a value held by one person ties nobody to anybody
+    r, c, w = r[shared], c[shared], w[shared]
     n = n_rows + n_cols
     present = np.ones(r.size, np.bool_)
     found: list[DenseGroup] = []

@@ -93,21 +93,19 @@ def _simple_csr(
     a = g.src[keep].astype(np.int64)
     b = g.dst[keep].astype(np.int64)
     lo, hi = np.minimum(a, b), np.maximum(a, b)
-    key, inv = np.unique(lo * n + hi, return_inverse=True)
-    w = np.bincount(inv.ravel(), weights=g.weight[keep], minlength=key.shape[0])
-    u, v = key // n, key % n
-    rows = np.concatenate((u, v))
-    cols = np.concatenate((v, u))
-    data = np.concatenate((w, w))
-    order = np.lexsort((cols, rows))
-    indptr = np.zeros(n + 1, np.int64)
-    np.cumsum(np.bincount(rows, minlength=n), out=indptr[1:])
-    return indptr, np.ascontiguousarray(cols[order]), np.ascontiguousarray(data[order])
+    key = lo * n + hi
+    w = g.weight[keep].astype(np.float64)
+    if key.size > 1 and not bool(np.all(key[1:] > key[:-1])):
+        # Uploads usually arrive sorted and merged; otherwise sort and sum repeats.
+        key, inv = np.unique(key, return_inverse=True)
+        w = np.bincount(inv.ravel(), weights=w, minlength=key.shape[0])
+    indptr, indices, data = K.symmetric_csr(n, key // max(n, 1), key % max(n, 1), w)
+    return indptr, indices, data
 
 
 def ego_features(
     g: GraphArrays, *, eigenvalues: bool = True, dense_limit: int = 100, max_iter: int = 1000,
-    rtol: float = 1e-12,
+    rtol: float = 1e-14,
 ) -> EgoFeatures:
     """Ego-network features of every node: ``N``, ``E``, ``W`` and ``lambda_w`` [1]_.
 
@@ -118,7 +116,8 @@ def ego_features(
     eigenvalues : bool, keyword-only
         Compute ``lambda_w`` (the costliest feature); zeros otherwise.
     dense_limit : int, keyword-only
-        Egos of at most this many people get an exact dense eigensolver.
+        Egos of at most this many people fall back to an exact dense
+        eigensolver when 200 power-iteration steps have not settled.
     max_iter, rtol : keyword-only
         Cap and relative tolerance of the power iteration on larger egos.
 
@@ -140,11 +139,13 @@ def ego_features(
     edges merged the same way. Triangles come from the forward algorithm
     over a degree order in O(m^1.5) [2]_. ``lambda_w`` is the spectral radius
     of the weighted ego adjacency (which equals its principal eigenvalue, the
-    matrix being non-negative): exactly by LAPACK for egos of at most
-    ``dense_limit`` people, by power iteration on the ego's ties above that,
-    so a hub's ego costs O(E_i) per step and no hub is left out; an ego
-    whose iteration hits ``max_iter`` keeps its last estimate (a lower bound)
-    and is flagged in ``converged``.
+    matrix being non-negative): in closed form ``sqrt(sum w^2)`` for a star
+    ego, otherwise by power iteration on the ego's ties (``||A x|| / ||x||``,
+    which also settles on bipartite egos), so a hub's ego costs O(E_i) per
+    step and no hub is left out. Egos of at most ``dense_limit`` people that
+    have not settled after 200 steps are solved exactly by LAPACK; a larger
+    ego whose iteration hits ``max_iter`` keeps its last estimate (a lower
+    bound) and is flagged in ``converged``.
 
     References
     ----------
