@@ -9,6 +9,7 @@ ties to popular targets (camouflage) from hiding the block.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import NamedTuple
 
 import numpy as np
@@ -94,6 +95,23 @@ def _span_text(times: NDArray[np.float64] | None, members: NDArray[np.int64]) ->
     return f", all created within {max(1, int(np.ceil(days))):,} day{'s' if days > 1 else ''}"
 
 
+def _shared_text(
+    attributes: Sequence[tuple[str, NDArray[np.int64], NDArray[np.int64]]] | None,
+    members: NDArray[np.int64],
+) -> str:
+    """", sharing 2 addresses": values held by two or more members, per attribute table."""
+    parts = []
+    for label, person, value in attributes or ():
+        inside = np.isin(np.asarray(person), members)
+        pairs = np.unique(np.column_stack((np.asarray(person)[inside], np.asarray(value)[inside])),
+                          axis=0)
+        _, holders = np.unique(pairs[:, 1], return_counts=True)
+        count = int((holders >= 2).sum())
+        if count:
+            parts.append(f"{count:,} {label}")
+    return ", sharing " + " and ".join(parts) if parts else ""
+
+
 def fraudar(
     g: GraphArrays,
     *,
@@ -101,6 +119,7 @@ def fraudar(
     blocks: int = 1,
     min_size: int = 3,
     created: NDArray[np.float64] | None = None,
+    attributes: Sequence[tuple[str, NDArray[np.int64], NDArray[np.int64]]] | None = None,
 ) -> tuple[DenseGroup, ...]:
     """The densest groups of people in the person graph by greedy peeling [1]_ [2]_.
 
@@ -120,6 +139,9 @@ def fraudar(
         Smaller blocks are not reported.
     created : array of float, optional
         Sign-up time of each person in seconds; adds the time span to the evidence.
+    attributes : sequence of (label, person, value), optional
+        Attribute tables (``label`` in plain words, "addresses"); the evidence
+        counts the values two or more members share.
 
     Returns
     -------
@@ -184,7 +206,8 @@ def fraudar(
         possible = k * (k - 1) // 2
         text = f"{k:,} accounts, {t:,} of the {possible:,} possible ties among them"
         found.append(DenseGroup(members, np.zeros(0, np.int64), density, t, possible, 0.5,
-                                text + _span_text(created, members)))
+                                text + _span_text(created, members)
+                                + _shared_text(attributes, members)))
         present &= ~within
     return tuple(found)
 

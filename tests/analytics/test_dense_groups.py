@@ -148,6 +148,24 @@ def test_shared_attributes_and_created_span_in_the_evidence() -> None:
                             "all created within 3 days")
 
 
+def test_person_group_evidence_reads_as_plain_words() -> None:
+    # Source: hand-made case. 12 accounts with 61 of the 66 possible ties, created on days
+    # 0 to 2.5, two addresses each held by several of them; 40 others on a path.
+    rng = np.random.default_rng(2)
+    G = nx.path_graph(range(12, 52))
+    pairs = list(zip(*np.triu_indices(12, 1)))
+    for k in rng.choice(len(pairs), 61, replace=False):
+        G.add_edge(int(pairs[k][0]), int(pairs[k][1]))
+    created = np.concatenate((np.linspace(0, 2.5, 12) * 86400, np.full(40, 9e8)))
+    person = np.array([0, 1, 2, 3, 4, 5, 20])
+    address = np.array([7, 7, 7, 8, 8, 9, 9])
+    (grp,) = fraudar(graph_of(G, 52), created=created,
+                     attributes=[("addresses", person, address)])
+    assert grp.members.tolist() == list(range(12))
+    assert grp.evidence == ("12 accounts, 61 of the 66 possible ties among them, "
+                            "all created within 3 days, sharing 2 addresses")
+
+
 def test_lockstep_group_found_only_when_times_agree() -> None:
     # Source: planted structure. 20 accounts act on the same 8 targets within one hour;
     # 1,000 others act 5 times each on 300 targets at random over 30 days. Spreading the
