@@ -9,7 +9,7 @@ ties to popular targets (camouflage) from hiding the block.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import NamedTuple
 
 import numpy as np
@@ -30,6 +30,7 @@ __all__ = [
 ]
 
 COLUMN_WEIGHTINGS = ("log", "uniform")
+Progress = Callable[[float, str], None] | None
 # Hooi et al. use 1 / log(x + c) with c = 5 (from memory).
 _LOG_SHIFT = 5.0
 
@@ -120,6 +121,7 @@ def fraudar(
     min_size: int = 3,
     created: NDArray[np.float64] | None = None,
     attributes: Sequence[tuple[str, NDArray[np.int64], NDArray[np.int64]]] | None = None,
+    progress: Progress = None,
 ) -> tuple[DenseGroup, ...]:
     """The densest groups of people in the person graph by greedy peeling [1]_ [2]_.
 
@@ -142,6 +144,8 @@ def fraudar(
     attributes : sequence of (label, person, value), optional
         Attribute tables (``label`` in plain words, "addresses"); the evidence
         counts the values two or more members share.
+    progress : callable(fraction, message), optional
+        Called before each block; it may raise ``Cancelled`` to stop.
 
     Returns
     -------
@@ -192,7 +196,9 @@ def fraudar(
     ties = np.ones(indices.shape[0], np.float64)
     present = np.ones(indices.shape[0], np.bool_)
     found: list[DenseGroup] = []
-    for _ in range(blocks):
+    for b in range(blocks):
+        if progress is not None:
+            progress(b / blocks, f"dense group {b + 1} of at most {blocks}")
         keep = present & (rows < indices)
         sub = _to_csr(g.n, rows[keep], indices[keep], w[keep])
         members, density = _best_block(g.n, *sub)
@@ -224,6 +230,7 @@ def fraudar_bipartite(
     row_label: str = "accounts",
     column_label: str = "shared values",
     created: NDArray[np.float64] | None = None,
+    progress: Progress = None,
 ) -> tuple[DenseGroup, ...]:
     """FRAUDAR's densest blocks of a people-by-value table [1]_.
 
@@ -238,7 +245,7 @@ def fraudar_bipartite(
     weighting : {"log", "uniform"}, keyword-only
         Column weights ``1 / log(x + 5)`` with ``x`` the number of people
         holding the value, as in [1]_, or 1.
-    blocks, min_size, created : keyword-only
+    blocks, min_size, created, progress : keyword-only
         As in :func:`fraudar`; ``min_size`` counts people.
     row_label, column_label : str, keyword-only
         Plain words for the evidence ("accounts", "addresses").
@@ -296,7 +303,9 @@ def fraudar_bipartite(
     n = n_rows + n_cols
     present = np.ones(r.size, np.bool_)
     found: list[DenseGroup] = []
-    for _ in range(blocks):
+    for b in range(blocks):
+        if progress is not None:
+            progress(b / blocks, f"dense group {b + 1} of at most {blocks}")
         sub = _to_csr(n, r[present], c[present] + n_rows, w[present])
         nodes, density = _best_block(n, *sub)
         people, values = nodes[nodes < n_rows], nodes[nodes >= n_rows] - n_rows
@@ -326,13 +335,19 @@ def shared_attribute_groups(
 
     ``value`` holds any integer codes (one per distinct device, address, ...);
     they are renumbered, then the table is peeled by :func:`fraudar_bipartite`
-    with the paper's log column weights, so a value held by very many people
+    with the log column weights of [1]_, so a value held by very many people
     (a shared office address) counts for less.
 
     Raises
     ------
     InvalidParameter
         When the table is empty or no value is shared by two people.
+
+    References
+    ----------
+    .. [1] B. Hooi, H. A. Song, A. Beutel, N. Shah, K. Shin, C. Faloutsos
+       (2016). FRAUDAR: bounding graph fraud in the face of camouflage.
+       KDD 2016, 895-904.
 
     Examples
     --------

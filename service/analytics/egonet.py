@@ -9,6 +9,7 @@ of accounts that all know each other) lies above ``E ~ N^alpha``, a near-star
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import NamedTuple
 
 import numpy as np
@@ -31,6 +32,7 @@ __all__ = [
 ]
 
 FIT_METHODS = ("huber", "least-squares")
+Progress = Callable[[float, str], None] | None
 _LAWS = (("E~N", "neighbours", "edges"), ("W~E", "edges", "weight"), ("lambda~W", "weight", "eigenvalue"))
 
 
@@ -307,6 +309,7 @@ def oddball(
     lof_k: int = 20,
     top: int = 50,
     features: EgoFeatures | None = None,
+    progress: Progress = None,
 ) -> OddballResult:
     """Score every person by their distance from the graph's ego-network laws [1]_.
 
@@ -329,6 +332,8 @@ def oddball(
         Length of each ranked list.
     features : EgoFeatures, optional
         Precomputed features of ``g`` (skips :func:`ego_features`).
+    progress : callable(fraction, message), optional
+        Called between stages; it may raise ``Cancelled`` to stop.
 
     Returns
     -------
@@ -373,7 +378,11 @@ def oddball(
         raise InvalidParameter(field="top", value=top, minimum=0)
     if g.n == 0 or g.m == 0:
         raise EmptyGraph(nodes=g.n, edges=g.m)
+    if progress is not None:
+        progress(0.0, "ego networks")
     f = features if features is not None else ego_features(g)
+    if progress is not None:
+        progress(0.8, "fitting the laws")
     used = f.neighbours >= min_neighbours
     if int(used.sum()) < min_egos:
         raise InvalidParameter(
@@ -421,4 +430,6 @@ def oddball(
             _evidence(int(f.neighbours[i]), int(f.edges[i]), float(expected[i])),
         ) for i in nodes)
 
+    if progress is not None:
+        progress(1.0, "scored")
     return OddballResult(f, tuple(fits), law_scores, lof_all, score, side, ranked(1), ranked(-1))

@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 from service.analytics import (
+    Cancelled,
     EmptyGraph,
     GraphArrays,
     InvalidParameter,
@@ -186,6 +187,19 @@ def test_lockstep_group_found_only_when_times_agree() -> None:
     spread = rng.uniform(0, 30 * day, crew.size)
     groups = lockstep_groups(p, t, np.concatenate((bg_s, spread)), n_people=1020, window=3600.0)
     assert all(np.isin(grp.members, np.arange(20)).sum() < 5 for grp in groups)
+
+
+def test_progress_is_reported_and_cancelling_stops() -> None:
+    G = nx.complete_graph(6)
+    seen: list[float] = []
+    fraudar(graph_of(G, 6), blocks=2, progress=lambda f, _m: seen.append(f))
+    assert seen == [0.0, 0.5]
+
+    def stop(_f: float, _m: str) -> None:
+        raise Cancelled()
+
+    with pytest.raises(Cancelled):
+        fraudar(graph_of(G, 6), progress=stop)
 
 
 def test_bad_input_is_refused_with_the_reason() -> None:

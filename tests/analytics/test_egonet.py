@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 
 from service.analytics import (
+    Cancelled,
     EmptyGraph,
     GraphArrays,
     InvalidParameter,
@@ -160,6 +161,19 @@ def test_near_cliques_and_near_stars_are_reported_apart() -> None:
     assert star.evidence.startswith(f"{star.neighbours:,} contacts with")
     assert "expected for that many contacts" in star.evidence
     assert 1.0 <= r.fits[0].exponent <= 2.0
+
+
+def test_oddball_reports_progress_and_can_be_cancelled() -> None:
+    g, _ = _ring_graph()
+    seen: list[float] = []
+    oddball(g, progress=lambda f, _m: seen.append(f))
+    assert seen == [0.0, 0.8, 1.0]
+
+    def stop(_f: float, _m: str) -> None:
+        raise Cancelled()
+
+    with pytest.raises(Cancelled):
+        oddball(g, progress=stop)
 
 
 def test_lof_flags_the_isolated_point() -> None:
