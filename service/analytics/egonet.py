@@ -294,7 +294,9 @@ def _evidence(n: int, e: int, expected: float) -> str:
     possible = n * (n - 1) // 2
     among = e - n
     expect_among = max(expected - n, 0.0)
-    share = f" ({100 * among / possible:.0f}% of the {possible:,} possible)" if possible else ""
+    pct = 100 * among / possible if possible else 0.0
+    pct_text = "under 1%" if 0 < pct < 1 else f"{pct:.0f}%"
+    share = f" ({pct_text} of the {possible:,} possible)" if possible else ""
     return (f"{n:,} contacts with {among:,} {'tie' if among == 1 else 'ties'} among them{share}; about "
             f"{expect_among:,.0f} expected for that many contacts")
 

@@ -279,3 +279,14 @@ def test_planted_rings_and_stars_in_ca_grqc() -> None:
     assert area >= 0.9
     top = r.near_cliques[0]
     assert top.edges - top.neighbours >= 0.95 * top.neighbours * (top.neighbours - 1) / 2
+
+
+def test_evidence_sentence() -> None:
+    # Source: hand-made numbers; ties among contacts are E - N, possible N(N-1)/2.
+    from service.analytics.egonet import _evidence
+
+    assert _evidence(12, 73, 20.4) == ("12 contacts with 61 ties among them (92% of the 66 "
+                                       "possible); about 8 expected for that many contacts")
+    assert _evidence(1383, 1831, 46733.0).startswith(
+        "1,383 contacts with 448 ties among them (under 1% of the 955,653 possible)")
+    assert "with 1 tie among" in _evidence(3, 4, 3.2)
