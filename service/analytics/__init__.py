@@ -44,12 +44,31 @@ from .communities import (
     leiden,
     modularity,
 )
+from .dense_groups import (
+    COLUMN_WEIGHTINGS,
+    DenseGroup,
+    fraudar,
+    fraudar_bipartite,
+    lockstep_groups,
+    shared_attribute_groups,
+)
 from .diffusion import (
     SpreadEstimate,
     estimate_spread,
     independent_cascade,
     linear_threshold,
     stream_key,
+)
+from .egonet import (
+    FIT_METHODS,
+    EgoFeatures,
+    LawFit,
+    OddballResult,
+    OddPerson,
+    ego_features,
+    lof_scores,
+    oddball,
+    powerlaw_line,
 )
 from .errors import (
     AnalyticsError,
@@ -295,4 +314,20 @@ __all__ = [
     "to_igraph",
     "top_score_seeds",
     "weighted_adamic_adar",
+    # referral integrity: odd neighbourhoods and dense groups
+    "COLUMN_WEIGHTINGS",
+    "DenseGroup",
+    "fraudar",
+    "fraudar_bipartite",
+    "lockstep_groups",
+    "shared_attribute_groups",
+    "FIT_METHODS",
+    "EgoFeatures",
+    "LawFit",
+    "OddballResult",
+    "OddPerson",
+    "ego_features",
+    "lof_scores",
+    "oddball",
+    "powerlaw_line",
 ]

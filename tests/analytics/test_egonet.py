@@ -1,0 +1,292 @@
+"""Ego-network features, power-law fits and OddBall scores (service.analytics.egonet)."""
+
+from __future__ import annotations
+
+import networkx as nx
+import numpy as np
+import pytest
+
+from service.analytics import (
+    Cancelled,
+    EmptyGraph,
+    GraphArrays,
+    InvalidParameter,
+    auc,
+    ego_features,
+    lof_scores,
+    oddball,
+    powerlaw_line,
+    precision_at_k,
+)
+from tests.datasets import snap_graph
+
+
+def arrays(src, dst, w=None, *, n=None, directed=False) -> GraphArrays:
+    s = np.asarray(src, np.int32)
+    d = np.asarray(dst, np.int32)
+    n = int(max(s.max(), d.max()) + 1) if n is None else n
+    return GraphArrays(n, directed, s, d, np.ones(s.size) if w is None else np.asarray(w, float))
+
+
+def nx_ego(G: nx.Graph, i: int) -> tuple[int, int, float, float]:
+    """(N, E, W, lambda_w) from NetworkX's ego_graph and numpy's symmetric eigensolver."""
+    ego = nx.ego_graph(G, i)
+    a = nx.to_numpy_array(ego, weight="weight")
+    lam = float(np.linalg.eigvalsh(a).max()) if ego.number_of_nodes() > 1 else 0.0
+    return ego.number_of_nodes() - 1, ego.number_of_edges(), ego.size(weight="weight"), lam
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_features_match_networkx_ego_graphs(seed: int) -> None:
+    # Source: NetworkX nx.ego_graph sizes and weights, numpy.linalg.eigvalsh, computed here.
+    rng = np.random.default_rng(seed)
+    G = nx.gnp_random_graph(60, 0.12, seed=seed)
+    G.add_node(60)  # an isolated person
+    for u, v in G.edges:
+        G[u][v]["weight"] = float(rng.integers(1, 6))
+    src, dst = zip(*G.edges)
+    w = [G[u][v]["weight"] for u, v in G.edges]
+    f = ego_features(arrays(src, dst, w, n=61))
+    assert f.converged.all()
+    for i in G.nodes:
+        n_i, e_i, w_i, lam = nx_ego(G, i)
+        assert f.neighbours[i] == n_i
+        assert f.edges[i] == e_i
+        assert f.weight[i] == pytest.approx(w_i)
+        assert f.eigenvalue[i] == pytest.approx(lam, rel=1e-8, abs=1e-12)
+
+
+def test_directed_pairs_merge_and_self_loops_drop() -> None:
+    # Source: NetworkX on the undirected graph built by hand: 0->1 (2) and 1->0 (3) are
+    # one tie of weight 5, the self-loop 2->2 is ignored, 1->2 and 2->0 are ties of 1.
+    g = arrays([0, 1, 2, 1, 2], [1, 0, 2, 2, 0], [2.0, 3.0, 9.0, 1.0, 1.0], directed=True)
+    G = nx.Graph()
+    G.add_weighted_edges_from([(0, 1, 5.0), (1, 2, 1.0), (2, 0, 1.0)])
+    f = ego_features(g)
+    for i in range(3):
+        n_i, e_i, w_i, lam = nx_ego(G, i)
+        assert (f.neighbours[i], f.edges[i]) == (n_i, e_i)
+        assert f.weight[i] == pytest.approx(w_i)
+        assert f.eigenvalue[i] == pytest.approx(lam, rel=1e-9)
+
+
+def test_power_iteration_agrees_with_the_dense_solver() -> None:
+    # Source: numpy.linalg.eigvalsh on NetworkX ego graphs, computed here, against power
+    # iteration forced on every ego (no dense fallback) and against the default path.
+    G = nx.gnm_random_graph(300, 1500, seed=4)
+    w = np.random.default_rng(4).uniform(0.5, 3.0, G.number_of_edges())
+    for (u, v), x in zip(G.edges, w):
+        G[u][v]["weight"] = float(x)
+    src, dst = zip(*G.edges)
+    g = arrays(src, dst, w, n=300)
+    ref = np.array([nx_ego(G, i)[3] for i in range(300)])
+    power = ego_features(g, dense_limit=1, max_iter=100_000)
+    assert power.converged.all()
+    assert power.eigenvalue == pytest.approx(ref, rel=1e-8)
+    assert ego_features(g).eigenvalue == pytest.approx(ref, rel=1e-8)
+
+
+def test_star_and_clique_closed_forms() -> None:
+    # Source: closed form. Star with k unit leaves: centre N = E = k, lambda = sqrt(k).
+    # Complete graph K_n: N = n - 1, E = n(n-1)/2, lambda = n - 1.
+    k = 12
+    f = ego_features(arrays([0] * k, list(range(1, k + 1))))
+    assert (f.neighbours[0], f.edges[0]) == (k, k)
+    assert f.eigenvalue[0] == pytest.approx(np.sqrt(k), rel=1e-9)
+    n = 9
+    u, v = np.triu_indices(n, 1)
+    f = ego_features(arrays(u, v))
+    assert (f.neighbours == n - 1).all() and (f.edges == n * (n - 1) // 2).all()
+    assert f.eigenvalue == pytest.approx(np.full(n, n - 1.0), rel=1e-9)
+
+
+def test_bad_options_name_the_field() -> None:
+    g = arrays([0], [1])
+    with pytest.raises(InvalidParameter) as err:
+        ego_features(g, max_iter=0)
+    assert err.value.data["field"] == "max_iter"
+    with pytest.raises(InvalidParameter) as err:
+        powerlaw_line(np.ones(5), np.ones(5), method="median")
+    assert err.value.data["allowed"] == ["huber", "least-squares"]
+
+
+def test_powerlaw_line_exact_and_robust() -> None:
+    # Source: closed form, y = 2 x^1.7 exactly; then 10% of points pushed up 20-fold.
+    rng = np.random.default_rng(3)
+    x = rng.uniform(1, 100, 400)
+    y = 2.0 * x**1.7 * np.exp(rng.normal(0, 0.05, x.size))
+    for method in ("huber", "least-squares"):
+        fit = powerlaw_line(x, y, method=method)
+        assert fit.exponent == pytest.approx(1.7, abs=0.01)
+        assert fit.constant == pytest.approx(2.0, rel=0.05)
+    y2 = y.copy()
+    y2[:40] *= 20.0
+    huber = powerlaw_line(x, y2, method="huber")
+    ls = powerlaw_line(x, y2, method="least-squares")
+    assert abs(np.log(huber.constant / 2.0)) < 0.1
+    assert abs(np.log(huber.constant / 2.0)) < abs(np.log(ls.constant / 2.0))
+
+
+def test_outline_score_formula_on_a_hand_example() -> None:
+    # Source: the OddBall out-line score written out by hand on the fit oddball returns:
+    # score = max(y, C x^a) / min(y, C x^a) * log(|y - C x^a| + 1).
+    g, _ = _ring_graph()
+    r = oddball(g, method="least-squares")
+    fit = r.fits[0]
+    i = int(np.argmax(r.law_scores["E~N"]))
+    x, y = float(r.features.neighbours[i]), float(r.features.edges[i])
+    c = fit.constant * x**fit.exponent
+    assert r.law_scores["E~N"][i] == pytest.approx(max(y, c) / min(y, c) * np.log(abs(y - c) + 1))
+
+
+def _ring_graph() -> tuple[GraphArrays, np.ndarray]:
+    """A clustered random graph of 2,000 people with one planted clique of 12 and one star."""
+    G = nx.powerlaw_cluster_graph(2000, 3, 0.5, seed=5)
+    ring = np.arange(1000, 1012)  # late arrivals: few contacts of their own
+    G.add_edges_from((int(ring[a]), int(ring[b])) for a, b in zip(*np.triu_indices(12, 1)))
+    G.add_edges_from((1999, j) for j in range(100, 250))
+    src, dst = zip(*G.edges)
+    return arrays(src, dst, n=2000), ring
+
+
+def test_near_cliques_and_near_stars_are_reported_apart() -> None:
+    # Source: planted structure. The clique members lie above the E ~ N line and the star
+    # centre far below it; evidence is plain words from the numbers.
+    g, ring = _ring_graph()
+    r = oddball(g, lof=True)
+    assert {p.node for p in r.near_cliques[:12]} == set(ring.tolist())
+    assert r.near_stars[0].node == 1999
+    assert (r.side[ring] == 1).all() and r.side[1999] == -1
+    star = r.near_stars[0]
+    assert star.evidence.startswith(f"{star.neighbours:,} contacts with")
+    assert "expected for that many contacts" in star.evidence
+    assert 1.0 <= r.fits[0].exponent <= 2.0
+
+
+def test_oddball_reports_progress_and_can_be_cancelled() -> None:
+    g, _ = _ring_graph()
+    seen: list[float] = []
+    oddball(g, progress=lambda f, _m: seen.append(f))
+    assert seen == [0.0, 0.8, 1.0]
+
+    def stop(_f: float, _m: str) -> None:
+        raise Cancelled()
+
+    with pytest.raises(Cancelled):
+        oddball(g, progress=stop)
+
+
+def test_lof_flags_the_isolated_point() -> None:
+    # Source: definition (Breunig et al. 2000): a point far from a tight cluster has LOF >> 1,
+    # points inside a uniform grid have LOF close to 1.
+    grid = np.array([[i, j] for i in range(6) for j in range(6)], float)
+    pts = np.vstack((grid, [[30.0, 30.0]]))
+    s = lof_scores(pts, k=4)
+    assert int(np.argmax(s)) == 36 and s[36] > 5
+    assert np.median(s[:36]) == pytest.approx(1.0, abs=0.15)
+
+
+def test_too_few_egos_and_empty_graph_are_refused() -> None:
+    path = arrays([0, 1, 2], [1, 2, 3])
+    with pytest.raises(InvalidParameter) as err:
+        oddball(path)
+    assert err.value.data["egos"] == 2 and err.value.data["required"] == 10
+    with pytest.raises(EmptyGraph):
+        oddball(GraphArrays(3, False, np.zeros(0, np.int32), np.zeros(0, np.int32), np.zeros(0)))
+
+
+@pytest.mark.shared
+@pytest.mark.slow
+@pytest.mark.parametrize("name,directed", [("ca-HepTh", False), ("email-Enron", False),
+                                            ("wiki-Vote", True)])
+def test_alpha_between_star_and_clique_on_real_graphs(name: str, directed: bool) -> None:
+    # Source: Akoglu et al. 2010 (OddBall) report 1 <= alpha <= 2 for E ~ N^alpha on real
+    # graphs (range partly from memory). Measured here with the Huber fit: ca-HepTh 1.239,
+    # email-Enron 1.469, wiki-Vote 1.564 (least squares: 1.286, 1.451, 1.558); beta = 1
+    # exactly on these unweighted graphs (wiki-Vote 1.014: reciprocal votes weigh 2), gamma
+    # 0.47-0.49.
+    g, _ = snap_graph(name, directed=directed)
+    r = oddball(g)
+    alpha = r.fits[0].exponent
+    assert 1.0 < alpha < 2.0
+    assert r.fits[1].exponent >= 1.0 - 1e-9
+
+
+def plant(g: GraphArrays, rng: np.random.Generator, sizes: list[int], stars: int, leaves: int,
+          p: float = 0.9) -> tuple[GraphArrays, list[np.ndarray], np.ndarray]:
+    """Rings (each pair tied with probability p) among random people; stars to random people."""
+    nodes = rng.permutation(g.n)
+    pos, src, dst, rings, centres = 0, [g.src], [g.dst], [], []
+    for s in sizes:
+        mem = nodes[pos:pos + s]
+        pos += s
+        rings.append(mem)
+        iu = np.triu_indices(s, 1)
+        keep = rng.random(iu[0].size) < p
+        src.append(mem[iu[0][keep]].astype(np.int32))
+        dst.append(mem[iu[1][keep]].astype(np.int32))
+    for _ in range(stars):
+        c = nodes[pos]
+        pos += 1
+        centres.append(c)
+        to = rng.choice(g.n, leaves, replace=False)
+        to = to[to != c]
+        src.append(np.full(to.size, c, np.int32))
+        dst.append(to.astype(np.int32))
+    s, d = np.concatenate(src), np.concatenate(dst)
+    return GraphArrays(g.n, False, s, d, np.ones(s.size)), rings, np.array(centres)
+
+
+def _rank(scores: np.ndarray, members: np.ndarray) -> tuple[float, float]:
+    m = np.zeros(scores.size, bool)
+    m[members] = True
+    return precision_at_k(scores[m], scores[~m], int(m.sum())), auc(scores[m], scores[~m])
+
+
+@pytest.mark.shared
+@pytest.mark.slow
+def test_planted_rings_and_stars_in_email_enron() -> None:
+    # Source: planted anomalies in the open email-Enron graph (seed 1): rings of 10, 20, 30,
+    # 40 random people (pairs tied with p = 0.9) and 5 stars of 150 random invitees.
+    # Measured: rings >= 20 precision 0.678 at 90 (below the 0.9 goal), AUC 0.971;
+    # ring of 10 AUC 0.67; star centres precision 0.4 at 5, AUC 0.9999.
+    g0, _ = snap_graph("email-Enron", directed=False)
+    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
+    r = oddball(g)
+    up = np.where(r.side == 1, r.score, 0.0)
+    down = np.where(r.side == -1, r.score, 0.0)
+    prec, area = _rank(up, np.concatenate(rings[1:]))
+    assert prec >= 0.6 and area >= 0.95
+    _, area = _rank(down, centres)
+    assert area >= 0.99
+
+
+@pytest.mark.shared
+@pytest.mark.slow
+def test_planted_rings_and_stars_in_ca_grqc() -> None:
+    # Source: planted anomalies in the open ca-GrQc graph (seed 1), as for email-Enron.
+    # Measured: star centres precision 1.0 at 5; rings >= 20 AUC 0.943 but precision 0.0
+    # at 90: the co-authorship graph's own author cliques (papers with 40-47 authors, 99%
+    # of possible ties) are more clique-like than a planted ring at p = 0.9 and rank first.
+    g0, _ = snap_graph("ca-GrQc", directed=False)
+    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
+    r = oddball(g)
+    up = np.where(r.side == 1, r.score, 0.0)
+    down = np.where(r.side == -1, r.score, 0.0)
+    prec, _ = _rank(down, centres)
+    assert prec == 1.0
+    _, area = _rank(up, np.concatenate(rings[1:]))
+    assert area >= 0.9
+    top = r.near_cliques[0]
+    assert top.edges - top.neighbours >= 0.95 * top.neighbours * (top.neighbours - 1) / 2
+
+
+def test_evidence_sentence() -> None:
+    # Source: hand-made numbers; ties among contacts are E - N, possible N(N-1)/2.
+    from service.analytics.egonet import _evidence
+
+    assert _evidence(12, 73, 20.4) == ("12 contacts with 61 ties among them (92% of the 66 "
+                                       "possible); about 8 expected for that many contacts")
+    assert _evidence(1383, 1831, 46733.0).startswith(
+        "1,383 contacts with 448 ties among them (under 1% of the 955,653 possible)")
+    assert "with 1 tie among" in _evidence(3, 4, 3.2)
