@@ -272,7 +272,7 @@ def powerlaw_fit(
                 hits += _fit(rep, discrete, x_min, min_tail, max_candidates)[3] >= ks
             except InvalidParameter:
                 hits += 1  # a replicate too degenerate to fit is no better than the data
-            if progress is not None and (b + 1) % max(1, bootstrap // 10) == 0:
+            if progress is not None:  # each replicate is a fit: a cancel point after each
                 progress((b + 1) / bootstrap, f"power-law bootstrap {b + 1} of {bootstrap}")
         p_value = hits / bootstrap
     return {

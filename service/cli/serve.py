@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import logging
 import os
+import signal
+import threading
 from typing import TYPE_CHECKING
 
 import uvicorn
@@ -26,6 +28,12 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
         upgrade(settings.resolved_database_url())
     if settings.auth_disabled and settings.host not in ("127.0.0.1", "localhost", "::1"):
         raise SystemExit("BELLWETHER_AUTH_DISABLED is allowed only when binding to loopback")
+    if settings.job_memory_limit_bytes is None:
+        # One limit for the API's admission check and every worker: half the machine's
+        # memory shared by the workers (Settings.job_memory_limit).
+        limit = settings.job_memory_limit(max(workers, 1))
+        settings = settings.model_copy(update={"job_memory_limit_bytes": limit})
+        os.environ["BELLWETHER_JOB_MEMORY_LIMIT_BYTES"] = str(limit)
     supervisor = None
     if workers > 0:
         try:
@@ -35,6 +43,14 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
         else:
             supervisor = start_workers(settings, workers)
     os.environ.setdefault("BELLWETHER_HOST", settings.host)
+    received: list[int] = []
+    if supervisor is not None and threading.current_thread() is threading.main_thread():
+        # uvicorn raises the signal that stopped it again once it has shut down, with
+        # the handlers it found in place. With the default handler that ends this
+        # process at once and the `finally` below never stops the workers (they ran
+        # on as orphans); with this one the workers are stopped first.
+        for sig in (signal.SIGTERM, signal.SIGINT):
+            signal.signal(sig, lambda signum, _frame: received.append(signum))
     try:
         uvicorn.run(
             "service.cli.serve:app_factory",
@@ -48,6 +64,8 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
     finally:
         if supervisor is not None:
             supervisor.stop()
+    if received:
+        log.info("stopped by signal %s", received[0])
     return 0
 
 

@@ -16,6 +16,7 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field
 
+from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 
 if TYPE_CHECKING:
@@ -165,6 +166,7 @@ KIND = JobKind(
     name="recommendations",
     params=RecommendationsParams,
     run=run,
+    estimate=admission.linear_estimate,
     summary="Introductions for every node (or a list): link prediction with shared contacts",
     result_description=(
         "Counts (people, people_with_recommendations, rows) and the columns of the CSV export "

@@ -1,0 +1,169 @@
+"""Admission control: a job's peak memory, estimated from the version's size and its params.
+
+Each kind's ``JobKind.estimate(params, load, nodes=, edges=)`` returns an
+:class:`Estimate`; :func:`admit` compares it with the per-job memory limit
+(the setting ``job_memory_limit_bytes``, passed down as a plain number) and
+raises :class:`~service.analytics.errors.TooExpensive` above it, which the API
+answers with a 422 ``/problems/too-expensive`` before anything is queued.
+The worker repeats the check before running (its limit may be lower) and
+sets the limit for the run, so buffers that grow past it (RR-set stores,
+simulation arrays) stop the job with the same problem instead of being
+killed by the operating system (:mod:`service.analytics._chunks`).
+
+The estimates count the large buffers only, from their element sizes:
+
+- every kind: the loaded version and its derived views, taken as
+  ``GRAPH_BYTES_PER_EDGE`` per edge and ``GRAPH_BYTES_PER_NODE`` per node
+  (arrays, CSR views both ways, the igraph copy: measured on ca-HepTh and
+  com-DBLP within a factor 2 of the process's growth, so a round upper figure);
+- RR sets (shortlist): ``sets * (mean_size * 8 + 9)`` bytes (4-byte node in the
+  store, 4-byte set id in the inverted index, 8-byte offset and 1-byte flag per
+  set), where ``sets`` is the most the params allow (``max_samples``, plus
+  ``evaluation_samples``) and ``mean_size`` is measured on a pilot of
+  :data:`PILOT_SETS` sets when the version is small enough to load here;
+- simulations (forecast, shortlist): ``runs * 40`` bytes for the seed set being
+  simulated (reach, weighted reach and depth per run, twice while chunks are merged);
+- sampled betweenness, harmonic closeness, profile, recommendations, link
+  evaluation: linear in the graph, covered by the graph term times two.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+from service.analytics.errors import TooExpensive
+
+if TYPE_CHECKING:
+    from service.loader import LoadedVersion
+
+__all__ = [
+    "Estimate",
+    "admit",
+    "graph_bytes",
+    "rr_mean_size",
+    "GRAPH_BYTES_PER_EDGE",
+    "GRAPH_BYTES_PER_NODE",
+    "RR_SET_BYTES",
+    "RR_ENTRY_BYTES",
+    "RUN_BYTES",
+    "PILOT_SETS",
+    "PILOT_MAX_EDGES",
+    "linear_estimate",
+    "scores_estimate",
+    "forecast_estimate",
+    "shortlist_estimate",
+]
+
+GRAPH_BYTES_PER_EDGE = 96
+GRAPH_BYTES_PER_NODE = 128
+RR_ENTRY_BYTES = 8
+RR_SET_BYTES = 9
+RUN_BYTES = 40
+PILOT_SETS = 2000
+#: Above this many edges the API does not load the version to measure set sizes;
+#: the RR store's own check stops the job once the real mean size is known.
+PILOT_MAX_EDGES = 2_000_000
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """A job's estimated peak memory (``bytes``), what dominates it, and which params lower it."""
+
+    bytes: int
+    what: str
+    relax: str
+    details: dict[str, Any] | None = None
+
+
+def graph_bytes(nodes: int, edges: int) -> int:
+    """The loaded version with its views (see the module docstring)."""
+    return GRAPH_BYTES_PER_EDGE * int(edges) + GRAPH_BYTES_PER_NODE * int(nodes)
+
+
+def _mib(n: float) -> str:
+    return f"{n / (1 << 30):.1f} GiB" if n >= 1 << 30 else f"{n / (1 << 20):.0f} MiB"
+
+
+def admit(estimate: Estimate | None, limit: int | None) -> None:
+    """Raise :class:`TooExpensive` when ``estimate`` passes ``limit`` (bytes)."""
+    if estimate is None or limit is None or estimate.bytes <= limit:
+        return
+    raise TooExpensive(
+        f"this job would need about {_mib(estimate.bytes)} of memory for {estimate.what}, more than "
+        f"the {_mib(limit)} one job may use here; {estimate.relax}",
+        estimated_bytes=int(estimate.bytes), limit_bytes=int(limit), **(estimate.details or {}),
+    )
+
+
+def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, scheme: str,
+                 p: float | None, q: float | None, rounds: int | None, random_seed: int) -> float | None:
+    """The mean RR-set size measured on :data:`PILOT_SETS` sets, or None for a version too large to load here."""
+    if edges > PILOT_MAX_EDGES:
+        return None
+    import numpy as np
+
+    from service.analytics._rr import RRCollection, RRSampler
+    from service.diffusion_cache import diffusion_graph_for
+
+    v = load()
+    if v.graph.n == 0:
+        return 0.0
+    dg = diffusion_graph_for(v.version_id, v.graph, model=model, scheme=scheme, p=p, q=q,
+                             random_seed=random_seed)
+    coll = RRCollection(RRSampler(dg, rounds=rounds), np.uint64(0x9E3779B97F4A7C15))
+    for target in (16, 64, 256, 1000, PILOT_SETS):  # stop early when sets are huge or slow
+        coll.extend_to(target)
+        if coll.seconds > 0.5 or coll.entries > 20_000_000:
+            break
+    return coll.entries / max(coll.count, 1)
+
+
+# -- per kind ---------------------------------------------------------------------
+
+
+def _linear(factor: int) -> Callable[..., Estimate]:
+    def estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int) -> Estimate:
+        return Estimate(factor * graph_bytes(nodes, edges), "the graph and its working copies",
+                        "this graph is too large for this service's memory limit")
+
+    return estimate
+
+
+#: Kinds whose memory is linear in the graph: profile, recommendations, link
+#: evaluation, referral asks (views of the graph, per-node arrays).
+linear_estimate = _linear(2)
+#: scores: the igraph copy and the undirected view beside the arrays.
+scores_estimate = _linear(3)
+
+
+def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int) -> Estimate:
+    runs = int(params.simulations)  # seed sets are simulated one after the other
+    return Estimate(graph_bytes(nodes, edges) + runs * RUN_BYTES + 16 * nodes,
+                    f"{runs} simulations", f"lower simulations ({RUN_BYTES} bytes each)",
+                    {"simulations": runs})
+
+
+def shortlist_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int) -> Estimate:
+    base = graph_bytes(nodes, edges)
+    lists = 1 + len(params.baselines)
+    sims = lists * int(params.forecast_runs) * RUN_BYTES
+    if params.method not in ("imm", "opim"):
+        return Estimate(base + sims, f"{lists} lists times {params.forecast_runs} simulations",
+                        "lower forecast_runs", {"forecast_runs": int(params.forecast_runs)})
+    pr = params.probability
+    mean = rr_mean_size(load, edges=edges, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
+                        rounds=params.rounds, random_seed=params.random_seed)
+    mean = 1.0 if mean is None else mean
+    sets = int(params.max_samples) + int(params.evaluation_samples)
+    rr = sets * (mean * RR_ENTRY_BYTES + RR_SET_BYTES)
+    # The store holding every set allowed, at the measured mean size: lowering max_samples
+    # to this many sets would fit the limit with the graph and simulations beside it.
+    return Estimate(
+        int(base + sims + rr), f"up to {sets} RR sets of about {mean:.0f} people each",
+        "lower max_samples (each RR set takes about "
+        f"{mean * RR_ENTRY_BYTES + RR_SET_BYTES:.0f} bytes here), or raise epsilon and lower "
+        "evaluation_samples; smaller edge probabilities give smaller sets",
+        {"max_samples": int(params.max_samples), "mean_rr_set_size": round(mean, 1)},
+    )
