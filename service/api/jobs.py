@@ -110,8 +110,10 @@ def create_job(
             if kind.precheck is not None:
                 kind.precheck(parsed, lambda: load_version(db, row), edges=row.edges)
             if kind.estimate is not None:
-                estimate = kind.estimate(parsed, lambda: load_version(db, row), nodes=row.nodes, edges=row.edges)
-                admission.admit(estimate, settings.job_memory_limit())
+                limit = settings.job_memory_limit()
+                estimate = kind.estimate(parsed, lambda: load_version(db, row), nodes=row.nodes,
+                                         edges=row.edges, limit=limit)
+                admission.admit(estimate, limit)
     with job_repo.write_session(maker_of(request)) as db:
         if idempotency_key:
             replay = job_repo.get_by_idempotency_key(db, tenant, idempotency_key, digest)

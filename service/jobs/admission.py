@@ -1,7 +1,7 @@
 """Admission control: a job's peak memory, estimated from the version's size and its params.
 
-Each kind's ``JobKind.estimate(params, load, nodes=, edges=)`` returns an
-:class:`Estimate`; :func:`admit` compares it with the per-job memory limit
+Each kind's ``JobKind.estimate(params, load, nodes=, edges=, limit=)`` returns
+an :class:`Estimate` (``limit`` lets it say how far to lower a parameter); :func:`admit` compares it with the per-job memory limit
 (the setting ``job_memory_limit_bytes``, passed down as a plain number) and
 raises :class:`~service.analytics.errors.TooExpensive` above it, which the API
 answers with a 422 ``/problems/too-expensive`` before anything is queued.
@@ -124,7 +124,8 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
 
 
 def _linear(factor: int) -> Callable[..., Estimate]:
-    def estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int) -> Estimate:
+    def estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
+                 limit: int | None = None) -> Estimate:
         return Estimate(factor * graph_bytes(nodes, edges), "the graph and its working copies",
                         "this graph is too large for this service's memory limit")
 
@@ -138,32 +139,39 @@ linear_estimate = _linear(2)
 scores_estimate = _linear(3)
 
 
-def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int) -> Estimate:
+def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
+                      limit: int | None = None) -> Estimate:
     runs = int(params.simulations)  # seed sets are simulated one after the other
-    return Estimate(graph_bytes(nodes, edges) + runs * RUN_BYTES + 16 * nodes,
-                    f"{runs} simulations", f"lower simulations ({RUN_BYTES} bytes each)",
-                    {"simulations": runs})
+    fixed = graph_bytes(nodes, edges) + 16 * nodes
+    relax = f"lower simulations ({RUN_BYTES} bytes each)"
+    if limit is not None and limit > fixed:
+        relax = f"lower simulations to at most {(limit - fixed) // RUN_BYTES:,} ({RUN_BYTES} bytes each)"
+    return Estimate(fixed + runs * RUN_BYTES, f"{runs:,} simulations", relax, {"simulations": runs})
 
 
-def shortlist_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int) -> Estimate:
+def shortlist_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
+                       limit: int | None = None) -> Estimate:
     base = graph_bytes(nodes, edges)
     lists = 1 + len(params.baselines)
     sims = lists * int(params.forecast_runs) * RUN_BYTES
     if params.method not in ("imm", "opim"):
-        return Estimate(base + sims, f"{lists} lists times {params.forecast_runs} simulations",
+        return Estimate(base + sims, f"{lists} lists times {params.forecast_runs:,} simulations",
                         "lower forecast_runs", {"forecast_runs": int(params.forecast_runs)})
     pr = params.probability
     mean = rr_mean_size(load, edges=edges, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
                         rounds=params.rounds, random_seed=params.random_seed)
     mean = 1.0 if mean is None else mean
+    per_set = mean * RR_ENTRY_BYTES + RR_SET_BYTES
     sets = int(params.max_samples) + int(params.evaluation_samples)
-    rr = sets * (mean * RR_ENTRY_BYTES + RR_SET_BYTES)
-    # The store holding every set allowed, at the measured mean size: lowering max_samples
-    # to this many sets would fit the limit with the graph and simulations beside it.
+    evaluation = int(params.evaluation_samples) * per_set
+    size = f"each RR set takes about {per_set:,.0f} bytes here"
+    relax = f"lower max_samples ({size})"
+    if limit is not None:
+        fit = int((limit - base - sims - evaluation) // per_set)
+        relax = (f"lower max_samples to at most {fit:,} ({size})" if fit >= 1000 else
+                 f"even 1,000 RR sets do not fit beside the evaluation sets and simulations ({size}): "
+                 "lower evaluation_samples and forecast_runs, or use smaller edge probabilities")
     return Estimate(
-        int(base + sims + rr), f"up to {sets} RR sets of about {mean:.0f} people each",
-        "lower max_samples (each RR set takes about "
-        f"{mean * RR_ENTRY_BYTES + RR_SET_BYTES:.0f} bytes here), or raise epsilon and lower "
-        "evaluation_samples; smaller edge probabilities give smaller sets",
+        int(base + sims + sets * per_set), f"up to {sets:,} RR sets of about {mean:,.0f} people each", relax,
         {"max_samples": int(params.max_samples), "mean_rr_set_size": round(mean, 1)},
     )

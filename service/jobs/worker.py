@@ -308,7 +308,8 @@ class Worker:
             limit = self.config.memory_limit_bytes
             if kind.estimate is not None and job.graph_id is not None:
                 v = ctx.load()
-                admission.admit(kind.estimate(params, ctx.load, nodes=v.graph.n, edges=v.graph.m), limit)
+                admission.admit(kind.estimate(params, ctx.load, nodes=v.graph.n, edges=v.graph.m, limit=limit),
+                                limit)
             token = memory_limit.set(limit)  # growing buffers check it (analytics._chunks)
             try:
                 output = kind.run(ctx, params)
