@@ -19,8 +19,10 @@ The estimates count the large buffers only, from their element sizes:
 - RR sets (shortlist): ``sets * (mean_size * 8 + 9)`` bytes (4-byte node in the
   store, 4-byte set id in the inverted index, 8-byte offset and 1-byte flag per
   set), where ``sets`` is the most the params allow (``max_samples``, plus
-  ``evaluation_samples``) and ``mean_size`` is measured on a pilot of
-  :data:`PILOT_SETS` sets when the version is small enough to load here;
+  ``evaluation_samples``) and ``mean_size`` is measured on a pilot of up to
+  :data:`PILOT_SETS` sets (fewer when they are large or slow: at most half a
+  second and about :data:`PILOT_MAX_ENTRIES` entries) when the version is small
+  enough to load here;
 - simulations (forecast, shortlist): ``runs * 40`` bytes for the seed set being
   simulated (reach, weighted reach and depth per run, twice while chunks are merged);
 - sampled betweenness, harmonic closeness, profile, recommendations, link
@@ -50,6 +52,7 @@ __all__ = [
     "RUN_BYTES",
     "PILOT_SETS",
     "PILOT_MAX_EDGES",
+    "PILOT_MAX_ENTRIES",
     "linear_estimate",
     "scores_estimate",
     "forecast_estimate",
@@ -62,6 +65,8 @@ RR_ENTRY_BYTES = 8
 RR_SET_BYTES = 9
 RUN_BYTES = 40
 PILOT_SETS = 2000
+#: The pilot stops once its sets hold this many entries (32 MiB; 64 MiB at most after the last doubling).
+PILOT_MAX_ENTRIES = 4_000_000
 #: Above this many edges the API does not load the version to measure set sizes;
 #: the RR store's own check stops the job once the real mean size is known.
 PILOT_MAX_EDGES = 2_000_000
@@ -113,10 +118,12 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
     dg = diffusion_graph_for(v.version_id, v.graph, model=model, scheme=scheme, p=p, q=q,
                              random_seed=random_seed)
     coll = RRCollection(RRSampler(dg, rounds=rounds), np.uint64(0x9E3779B97F4A7C15))
-    for target in (16, 64, 256, 1000, PILOT_SETS):  # stop early when sets are huge or slow
+    target = 4
+    while True:  # doubling, so a stop leaves at most twice PILOT_MAX_ENTRIES in the store
         coll.extend_to(target)
-        if coll.seconds > 0.5 or coll.entries > 20_000_000:
+        if target >= PILOT_SETS or coll.seconds > 0.5 or coll.entries > PILOT_MAX_ENTRIES:
             break
+        target = min(2 * target, PILOT_SETS)
     return coll.entries / max(coll.count, 1)
 
 
