@@ -46,6 +46,7 @@ from .errors import (
     EmptyGraph,
     InfeasibleRequest,
     InvalidParameter,
+    TooExpensive,
     UnknownNode,
 )
 from .forecasts import (
@@ -141,6 +142,7 @@ __all__ = [
     "AnalyticsError",
     "Arcs",
     "Cancelled",
+    "TooExpensive",
     "ComputationFailed",
     "Csr",
     "DEFAULT_EVAL_METHODS",

@@ -29,9 +29,7 @@ if TYPE_CHECKING:
 
 Progress = Callable[[float, str], None] | None
 
-__all__ = [
-    "EXACT_WORK_LIMIT", "betweenness", "chunk_betweenness_samples", "harmonic_closeness", "rk_sample_size",
-]
+__all__ = ["EXACT_WORK_LIMIT", "betweenness", "harmonic_closeness", "rk_sample_size"]
 
 #: Above this many ``n * m`` steps, betweenness="auto" samples and
 #: :func:`.centrality.default_measures` leaves out harmonic closeness and constraint.
@@ -208,7 +206,7 @@ def _sampled_betweenness(
     r = rk_sample_size(vd, epsilon, delta)
     counts = np.zeros(n)
     state = _k.seed_state(seed)
-    chunk_betweenness_samples(n, out, inn, use_w, r, state, counts, progress)
+    _draw_samples(n, out, inn, use_w, r, state, counts, progress)
     rescale = n / (n - 2) if n > 2 else 0.0
     values = counts / r * rescale if r else np.zeros(n)
     return values, {
@@ -226,7 +224,7 @@ def _sampled_betweenness(
     }
 
 
-def chunk_betweenness_samples(n: int, out: Any, inn: Any, use_w: bool, r: int,
+def _draw_samples(n: int, out: Any, inn: Any, use_w: bool, r: int,
                               state: NDArray[np.uint64], counts: NDArray[np.float64],
                               progress: Progress, *, first: int = 16) -> None:
     """Draw ``r`` RK samples into ``counts`` in chunks of about a quarter second each,
