@@ -107,12 +107,19 @@ async def test_floors_are_in_the_job_kinds_schema_and_enforced(client) -> None: 
     kinds = {k["name"]: k["params_schema"] for k in (await client.get("/v1/job-kinds")).json()["items"]}
     assert kinds["scores"]["properties"]["betweenness_epsilon"]["minimum"] == 0.001
     assert kinds["shortlist"]["properties"]["epsilon"]["minimum"] == 0.01
+    assert kinds["scores"]["properties"]["betweenness_delta"]["minimum"] == 1e-6
     assert kinds["shortlist"]["properties"]["max_samples"]["maximum"] == 200_000_000
     gid = await make_graph(client)
+    # The requests of the report: sampled betweenness at epsilon 1e-9 (it ignored cancel for 8
+    # minutes), a shortlist at epsilon 1e-9 with 2e8 samples (4 GB in 28 s): refused at once.
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "scores", "params": {
         "betweenness": "sampled", "betweenness_epsilon": 1e-9}})
     body = assert_problem(r, 422, "invalid-parameter")
     assert "betweenness_epsilon" in body["detail"]
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "shortlist", "params": {
+        "budget": 2, "epsilon": 1e-9, "max_samples": 200_000_000}})
+    body = assert_problem(r, 422, "invalid-parameter")
+    assert "epsilon" in body["detail"]
 
 
 def test_estimates_count_what_the_params_ask_for() -> None:

@@ -70,7 +70,10 @@ class ScoresParams(BaseModel):
         description="Sampled: additive error bound. At least 0.001: samples grow as 1/epsilon^2 "
         "(0.001 already draws about 4 million paths).",
     )
-    betweenness_delta: float = Field(default=0.1, gt=0.0, lt=1.0, description="Sampled: failure probability.")
+    betweenness_delta: float = Field(
+        default=0.1, ge=1e-6, lt=1.0,
+        description="Sampled: failure probability. At least 1e-6: samples grow with ln(1/delta).",
+    )
     harmonic_cutoff: float | None = Field(default=None, gt=0.0, description="Ignore nodes further than this.")
     random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds sampling and Leiden.")
 
