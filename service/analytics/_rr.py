@@ -177,7 +177,7 @@ class RRCollection:
             if self.count >= 256:  # the mean set size is known: check the whole target's store
                 mean_now = self.entries / self.count
                 check_memory((self.entries + mean_now * (target - self.count)) * BYTES_PER_ENTRY
-                             + 9 * target + 16 * n, what=f"{target} RR sets (about {mean_now:.0f} "
+                             + 9 * target + 16 * n, what=f"{target:,} RR sets (about {mean_now:,.0f} "
                              "people each)", relax=self.relax)
             if self._stamp.dtype == np.int32 and self.count + want >= _MARK32_LIMIT:
                 self._stamp = self._stamp.astype(np.int64)

@@ -264,7 +264,7 @@ def _run_until(kg: K.KernelGraph, seeds: NDArray[np.int32], key: int, cap: int, 
         # Every run kept costs its per-run arrays (reach, weighted reach, depth) twice
         # while chunks are merged.
         check_memory(2 * RUN_BYTES * (done + batch) + 8 * kg.n * (2 + numba.get_num_threads()),
-                     what=f"{done + batch} simulations", relax="lower simulations")
+                     what=f"{done + batch:,} simulations", relax="lower simulations")
         end = done + batch
         parts = [] if res is None else [res]
         while done < end:
