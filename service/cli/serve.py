@@ -2,10 +2,12 @@
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import os
 import signal
 import threading
+from types import FrameType
 from typing import TYPE_CHECKING
 
 import uvicorn
@@ -18,6 +20,10 @@ if TYPE_CHECKING:
 __all__ = ["serve"]
 
 log = logging.getLogger("bellwether.serve")
+
+
+class _Stopped(Exception):
+    """SIGTERM or SIGINT reached serve: leave uvicorn and stop the workers."""
 
 
 def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: bool = True) -> int:
@@ -48,19 +54,26 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
         # uvicorn raises the signal that stopped it again once it has shut down, with
         # the handlers it found in place. With the default handler that ends this
         # process at once and the `finally` below never stops the workers (they ran
-        # on as orphans); with this one the workers are stopped first.
+        # on as orphans); this one leaves uvicorn.run (also when the signal comes
+        # before uvicorn has put its own handlers in place) and the workers are stopped.
+        def on_signal(signum: int, _frame: FrameType | None) -> None:
+            if not received:
+                received.append(signum)
+                raise _Stopped
+
         for sig in (signal.SIGTERM, signal.SIGINT):
-            signal.signal(sig, lambda signum, _frame: received.append(signum))
+            signal.signal(sig, on_signal)
     try:
-        uvicorn.run(
-            "service.cli.serve:app_factory",
-            factory=True,
-            host=settings.host,
-            port=settings.port,
-            workers=api_processes if api_processes > 1 else None,
-            log_level="info",
-            access_log=False,
-        )
+        with contextlib.suppress(_Stopped):
+            uvicorn.run(
+                "service.cli.serve:app_factory",
+                factory=True,
+                host=settings.host,
+                port=settings.port,
+                workers=api_processes if api_processes > 1 else None,
+                log_level="info",
+                access_log=False,
+            )
     finally:
         if supervisor is not None:
             supervisor.stop()
