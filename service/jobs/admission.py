@@ -159,10 +159,9 @@ def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: 
 def shortlist_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
                        limit: int | None = None) -> Estimate:
     base = graph_bytes(nodes, edges)
-    lists = 1 + len(params.baselines)
-    sims = lists * int(params.forecast_runs) * RUN_BYTES
+    sims = int(params.forecast_runs) * RUN_BYTES  # the lists are forecast one after the other
     if params.method not in ("imm", "opim"):
-        return Estimate(base + sims, f"{lists} lists times {params.forecast_runs:,} simulations",
+        return Estimate(base + sims, f"{params.forecast_runs:,} simulations per list",
                         "lower forecast_runs", {"forecast_runs": int(params.forecast_runs)})
     pr = params.probability
     mean = rr_mean_size(load, edges=edges, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
