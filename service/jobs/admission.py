@@ -13,9 +13,11 @@ killed by the operating system (:mod:`service.analytics._chunks`).
 The estimates count the large buffers only, from their element sizes:
 
 - every kind: the loaded version and its derived views, taken as
-  ``GRAPH_BYTES_PER_EDGE`` per edge and ``GRAPH_BYTES_PER_NODE`` per node
-  (arrays, CSR views both ways, the igraph copy: measured on ca-HepTh and
-  com-DBLP within a factor 2 of the process's growth, so a round upper figure);
+  ``GRAPH_BYTES_PER_EDGE`` per edge and ``GRAPH_BYTES_PER_NODE`` per node: a
+  round figure above what ``tests/bench/bench_memory.py`` measured per arc on
+  com-DBLP (16 for the stored arrays, 26 for the diffusion arrays, 21 for the
+  igraph graph, 42 for the recommendation index; building them peaks at about
+  80 per arc), not a measurement of its own;
 - RR sets (shortlist): ``sets * (mean_size * 8 + 9)`` bytes (4-byte node in the
   store, 4-byte set id in the inverted index, 8-byte offset and 1-byte flag per
   set), where ``sets`` is the most the params allow (``max_samples``, plus
