@@ -28,7 +28,8 @@ The estimates count the large buffers only, from their element sizes:
 - simulations (forecast, shortlist): ``runs * 40`` bytes for the seed set being
   simulated (reach, weighted reach and depth per run, twice while chunks are merged);
 - sampled betweenness, harmonic closeness, profile, recommendations, link
-  evaluation: linear in the graph, covered by the graph term times two.
+  evaluation: linear in the graph, covered by the graph term (twice for scores,
+  whose undirected view is a second igraph copy).
 """
 
 from __future__ import annotations
@@ -61,7 +62,7 @@ __all__ = [
     "shortlist_estimate",
 ]
 
-GRAPH_BYTES_PER_EDGE = 96
+GRAPH_BYTES_PER_EDGE = 192  # two arcs per undirected edge, 96 bytes each
 GRAPH_BYTES_PER_NODE = 128
 RR_ENTRY_BYTES = 8
 RR_SET_BYTES = 9
@@ -143,9 +144,9 @@ def _linear(factor: int) -> Callable[..., Estimate]:
 
 #: Kinds whose memory is linear in the graph: profile, recommendations, link
 #: evaluation, referral asks (views of the graph, per-node arrays).
-linear_estimate = _linear(2)
-#: scores: the igraph copy and the undirected view beside the arrays.
-scores_estimate = _linear(3)
+linear_estimate = _linear(1)
+#: scores: a second igraph copy (the undirected view) beside the first.
+scores_estimate = _linear(2)
 
 
 def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
