@@ -114,22 +114,21 @@ def test_give_back_jobs_requeues_only_the_killed_workers_jobs(maker) -> None:  #
     from service.jobs.worker import give_back_jobs
 
     now = dt.datetime.now(dt.UTC)
-    ids = []
     with jr.write_session(maker) as db:
         for _ in range(3):
-            job, _ = jr.add_job(db, tenant_id="default", graph_id=None, version=None, kind="test_sleep",
-                                params={}, now=now, max_attempts=3)
-            ids.append(job.id)
+            jr.add_job(db, tenant_id="default", graph_id=None, version=None, kind="test_sleep",
+                       params={}, now=now, max_attempts=3)
         db.commit()
+    held = {}
     for worker_id in ("vm:4242:aa", "vm:42:bb", "vm:4242:cc"):  # 42 is a prefix of 4242, not the same pid
         with jr.write_session(maker) as db:
-            jr.claim_next(db, worker_id, 30, now)
+            held[worker_id] = jr.claim_next(db, worker_id, 30, now).id  # type: ignore[union-attr]
             db.commit()
     with jr.write_session(maker) as db:  # the third one had its cancellation asked
-        jr.cancel(db, "default", ids[2], now)
+        jr.cancel(db, "default", held["vm:4242:cc"], now)
         db.commit()
     assert give_back_jobs(maker, ["vm:4242:"]) == 2
     with maker() as db:
-        jobs = [jr.get_job(db, "default", i) for i in ids]
+        jobs = [jr.get_job(db, "default", held[w]) for w in ("vm:4242:aa", "vm:42:bb", "vm:4242:cc")]
     assert [(j.status, j.worker_id, j.attempts) for j in jobs] == [
         ("queued", None, 0), ("running", "vm:42:bb", 1), ("cancelled", None, 1)]
