@@ -2,16 +2,33 @@
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 from typing import Literal
 
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
-__all__ = ["Settings"]
+__all__ = ["Settings", "machine_memory_bytes"]
 
 GiB = 1024**3
 MiB = 1024**2
+
+
+def machine_memory_bytes() -> int:
+    """Memory this process may use: physical memory, or the cgroup (container) limit when lower."""
+    try:
+        total = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES")
+    except (ValueError, OSError, AttributeError):
+        total = 8 * GiB
+    for path in ("/sys/fs/cgroup/memory.max", "/sys/fs/cgroup/memory/memory.limit_in_bytes"):
+        try:
+            text = Path(path).read_text().strip()
+        except OSError:
+            continue
+        if text.isdigit() and 0 < int(text) < total:
+            total = int(text)
+    return int(total)
 
 
 class Settings(BaseSettings):
@@ -105,6 +122,20 @@ class Settings(BaseSettings):
     job_kind_timeouts: dict[str, float] = Field(
         default_factory=dict, description='Per-kind run time limits in seconds (JSON, e.g. {"profile": 600}).'
     )
+
+    # -- Hard edges (issue 13): per-job memory limit -----------------------------------
+    job_memory_limit_bytes: int | None = Field(
+        default=None, ge=1,
+        description="Largest estimated peak memory of one job; past it the POST is refused and a "
+        "running job stops (too-expensive). Default: half the machine's memory (the smaller of "
+        "physical memory and the cgroup limit) divided by the number of workers of `serve`.",
+    )
+
+    def job_memory_limit(self, workers: int = 1) -> int:
+        """The per-job memory limit in bytes: the setting, else the default rule above."""
+        if self.job_memory_limit_bytes is not None:
+            return int(self.job_memory_limit_bytes)
+        return max(machine_memory_bytes() // 2 // max(1, workers), 64 * MiB)
 
     def resolved_database_url(self) -> str:
         if self.database_url:

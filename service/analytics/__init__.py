@@ -77,6 +77,7 @@ from .errors import (
     EmptyGraph,
     InfeasibleRequest,
     InvalidParameter,
+    TooExpensive,
     UnknownNode,
 )
 from .forecasts import (
@@ -197,6 +198,7 @@ __all__ = [
     "BicmFit",
     "CORRECTIONS",
     "Cancelled",
+    "TooExpensive",
     "ComputationFailed",
     "Csr",
     "DEFAULT_EVAL_METHODS",

@@ -30,6 +30,7 @@ from numpy.typing import NDArray
 
 from . import _rr_kernels as K
 from . import _rr_lanes
+from ._chunks import ChunkSizer, check_memory
 from .errors import InvalidParameter
 from .graph import DiffusionGraph
 
@@ -122,6 +123,9 @@ class RRCollection:
     """A growing, reproducible store of RR sets: set ``j`` depends only on
     ``(key, j)``, so a collection grown in any batches holds the same sets."""
 
+    #: What to tell the caller when the store would pass the memory limit.
+    relax = "lower max_samples, raise epsilon, or lower the probabilities"
+
     def __init__(self, sampler: RRSampler, key: np.uint64) -> None:
         self.sampler = sampler
         self.key = key
@@ -167,9 +171,14 @@ class RRCollection:
         fn = K.sample_ic if self.sampler.model == "ic" else K.sample_lt
         n = self.sampler.n
         start_count = self.count
-        batch = 2048
+        sizer = ChunkSizer(first=256, most=1 << 22)
         while self.count < target:
-            want = min(batch, target - self.count)
+            want = sizer.next(target - self.count)
+            if self.count >= 256:  # the mean set size is known: check the whole target's store
+                mean_now = self.entries / self.count
+                check_memory((self.entries + mean_now * (target - self.count)) * BYTES_PER_ENTRY
+                             + 9 * target + 16 * n, what=f"{target:,} RR sets (about {mean_now:,.0f} "
+                             "people each)", relax=self.relax)
             if self._stamp.dtype == np.int32 and self.count + want >= _MARK32_LIMIT:
                 self._stamp = self._stamp.astype(np.int64)
             if self._ends.shape[0] < self.count + want:
@@ -190,10 +199,7 @@ class RRCollection:
             self.entries = int(pos)
             self.examined += int(examined)
             self._index = None
-            if dt < 0.05:
-                batch = min(batch * 2, 1 << 22)
-            elif dt > 0.4 and batch > 256:
-                batch //= 2
+            sizer.took(int(done), dt)
             if done < want:  # the store ran out of room: grow it before the next call
                 self._nodes = _grow(self._nodes, self._nodes.shape[0] + n + 16)
             if progress is not None:

@@ -107,7 +107,7 @@ def celf_seeds(
     first: dict[int, float] = {}
     for i, v in enumerate(cand.tolist()):
         first[v] = f(must + [v]) - base
-        if progress is not None and i % 64 == 0:
+        if progress is not None:  # one spread estimate per candidate: a cancel point after each
             progress(0.5 * i / max(len(cand), 1), "evaluating single seeds")
     two = rules.budget_left is not None
     runs = [_lazy(f, rules, first, base, ratio=False, progress=progress,
@@ -195,6 +195,9 @@ def _lazy(f: Callable[[Sequence[int]], float], rules: Rules, first: dict[int, fl
         if last != len(picked):
             g = f(chosen + [v]) - cur
             heapq.heappush(heap, (-key(v, g), -float(tb[v]), v, len(picked), g))
+            if progress is not None:  # each re-evaluation is a spread estimate: a cancel point
+                progress(span[0] + (span[1] - span[0]) * len(picked) / max(limit, 1),
+                         "choosing seeds (lazy greedy)")
             continue
         chosen.append(v)
         picked.append(v)

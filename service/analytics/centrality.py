@@ -587,7 +587,7 @@ def _one(
                               _views=v)
         return {name: x}, {name: info}
     if name == "harmonic":
-        x = harmonic_closeness(g, weights=use_w, cutoff=cutoff, _views=v)
+        x = harmonic_closeness(g, weights=use_w, cutoff=cutoff, progress=progress, _views=v)
         return {name: x}, {name: {"normalization": "sum of 1/d over other nodes, not "
                                   "divided by n - 1 (NetworkX default)",
                                   "direction": "distances from the node" if g.directed

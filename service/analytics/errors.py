@@ -10,6 +10,7 @@ __all__ = [
     "EmptyGraph",
     "ComputationFailed",
     "Cancelled",
+    "TooExpensive",
 ]
 
 
@@ -44,3 +45,7 @@ class ComputationFailed(AnalyticsError):
 
 class Cancelled(AnalyticsError):
     """The computation was cancelled by its caller."""
+
+
+class TooExpensive(AnalyticsError):
+    """The computation would need more memory or work than one job may use."""

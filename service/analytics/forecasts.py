@@ -19,16 +19,19 @@ References
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from statistics import NormalDist
 from typing import NamedTuple
 
+import numba
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from . import _kernels as K
 from . import _world_kernels as W
+from ._chunks import ChunkSizer, check_memory
 from .diffusion import (
     _check_count,
     _check_rounds,
@@ -40,6 +43,9 @@ from .diffusion import (
 from .errors import InvalidParameter
 from .graph import DiffusionGraph
 from .paired import world_key
+
+#: Bytes kept per simulation run: reach (int64), weighted reach (float64), depth (int32).
+RUN_BYTES = 20
 
 __all__ = [
     "PERCENTILES",
@@ -260,10 +266,26 @@ def _run_until(kg: K.KernelGraph, seeds: NDArray[np.int32], key: int, cap: int, 
     """Simulate in batches until the stopping rule holds or ``cap`` runs are done."""
     res: K.ChunkResult | None = None
     done, batch = 0, first
+    sizer = ChunkSizer(first=min(first, 64))
     while True:
-        part = W.simulate(kg, seeds, key, done, batch, horizon, w)
-        res = part if res is None else K.merge([res, part])
-        done += batch
+        # Every run kept costs its per-run arrays (reach, weighted reach, depth) twice
+        # while chunks are merged.
+        check_memory(2 * RUN_BYTES * (done + batch) + 8 * kg.n * (2 + numba.get_num_threads()),
+                     what=f"{done + batch:,} simulations", relax="lower simulations")
+        end = done + batch
+        parts = [] if res is None else [res]
+        while done < end:
+            # The batch in chunks of about a quarter second, each a cancel point; runs
+            # depend only on their index, so the merged result is the same.
+            count = sizer.next(end - done)
+            t0 = time.perf_counter()
+            part = W.simulate(kg, seeds, key, done, count, horizon, w)
+            sizer.took(count, time.perf_counter() - t0)
+            parts.append(part)
+            done += count
+            if progress is not None and done < end:
+                progress(base + share * done / cap, f"seed set {name!r}: {done} simulations")
+        res = K.merge(parts)
         mean, var = K.mean_var(res.reach.astype(np.float64))
         half = z * math.sqrt(var / done)
         targets = [t for t in (precision, None if relative is None else relative * mean)

@@ -16,6 +16,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _recommend_kernels as K
+from ._chunks import run_chunked
 from .errors import InfeasibleRequest, InvalidParameter
 from .graph import GraphArrays
 from .recommend import DEFAULT_TOLERANCE, LINK_METHODS, _check_ppr, _pair_method
@@ -82,8 +83,9 @@ def _ppr_pairs(
 ) -> NDArray[np.float64]:
     """ppr_u(v) + ppr_v(u) per pair, one push per distinct endpoint.
 
-    ``tick`` gets the share of sources done after every ``chunk`` of them, so
-    a cancellation is noticed during a long evaluation.
+    ``tick`` gets the share of sources done after every slice of them (sized to
+    take about a quarter second), so a cancellation is noticed during a long
+    evaluation.
     """
     src = np.concatenate((u, v))
     partner = np.concatenate((v, u)).astype(np.int32)
@@ -95,14 +97,35 @@ def _ppr_pairs(
     sources = src[starts].astype(np.int32)
     scores = np.zeros(u.shape[0])
     s = index.scratch()
-    for c0 in range(0, sources.shape[0], chunk):
-        c1 = min(sources.shape[0], c0 + chunk)
+
+    def push(c0: int, count: int) -> None:
+        c1 = c0 + count
         K.ppr_pair_scores(index.indptr, index.indices, index.degree, 1.0 - damping, tolerance,
                           sources[c0:c1], ptr[c0 : c1 + 1], partner, pair, scores, s.acc, s.r,
                           s.flag, s.inq, s.queue, s.touched)
+
+    def after(done: int) -> None:
         if tick is not None:
-            tick(c1 / sources.shape[0])
+            tick(done / sources.shape[0])
+
+    run_chunked(sources.shape[0], push, after=after, first=min(chunk, 64))
     return scores
+
+
+def _scored_in_slices(index: NeighbourIndex, u: NDArray[np.int32], v: NDArray[np.int32], method: str,
+                     tick: Callable[[float], None] | None) -> NDArray[np.float64]:
+    """One score per pair, in slices of about a quarter second (each pair's score is its own)."""
+    out = np.zeros(u.shape[0])
+
+    def score(a: int, count: int) -> None:
+        out[a:a + count] = _pair_method(index, np.column_stack((u[a:a + count], v[a:a + count])), method)
+
+    def after(done: int) -> None:
+        if tick is not None:
+            tick(done / max(u.shape[0], 1))
+
+    run_chunked(u.shape[0], score, after=after, first=1024)
+    return out
 
 
 def _sample_non_edges(
@@ -299,14 +322,14 @@ def evaluate_link_prediction(
     u, v = np.concatenate((pu, nu)), np.concatenate((pv, nv))
     results: dict[str, dict[str, float]] = {}
     for i, m in enumerate(methods):
+        tick = None
+        if progress is not None:
+            report = progress
+            tick = lambda f, i=i: report((i + f) / len(methods))  # noqa: E731
         if m == "personalized_pagerank":
-            tick = None
-            if progress is not None:
-                report = progress
-                tick = lambda f, i=i: report((i + f) / len(methods))  # noqa: E731
             s = _ppr_pairs(index, u, v, damping, tolerance, tick)
         else:
-            s = _pair_method(index, np.column_stack((u, v)), m)
+            s = _scored_in_slices(index, u, v, m, tick)
         results[m] = {
             "auc": auc(s[:npos], s[npos:]),
             "precision_at_k": precision_at_k(s[:npos], s[npos:], k),

@@ -21,6 +21,7 @@ References
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from typing import NamedTuple
@@ -31,6 +32,7 @@ from scipy import stats
 
 from . import _kernels as K
 from . import _world_kernels as W
+from ._chunks import ChunkSizer, check_memory
 from .diffusion import (_check_count, _check_rounds, _check_seed, _check_seeds, _check_weights,
                         _is_number, stream_key)
 from .errors import InvalidParameter
@@ -189,13 +191,26 @@ def compare_reach(
     key = world_key(seed)
     parts: dict[str, list[NDArray[np.float64]]] = {name: [] for name in sets}
     done, batch = 0, first
+    sizer = ChunkSizer(first=min(first, 64))
     while True:
+        # Each list's outcome per campaign is kept (8 bytes a campaign and list).
+        check_memory(8 * len(sets) * (done + batch) * 2 + 8 * kg.n * 4,
+                     what=f"{done + batch:,} simulated campaigns for {len(sets)} lists",
+                     relax="lower forecast_max_runs")
         for j, (name, s) in enumerate(sets.items()):
-            res = W.simulate(kg, s, key, done, batch, horizon, w, track_nodes=False)
-            parts[name].append(res.weighted.astype(np.float64))
-            if progress is not None:
-                progress(min((done + batch * (j + 1) / len(sets)) / cap, 1.0),
-                         f"comparing the lists on {done + batch:,} simulated campaigns")
+            start = done
+            while start < done + batch:
+                # Timed chunks, each a cancel point; a campaign depends only on its index,
+                # so the chunks give the campaigns one call would.
+                count = sizer.next(done + batch - start)
+                t0 = time.perf_counter()
+                res = W.simulate(kg, s, key, start, count, horizon, w, track_nodes=False)
+                sizer.took(count, time.perf_counter() - t0)
+                parts[name].append(res.weighted.astype(np.float64))
+                start += count
+                if progress is not None:
+                    progress(min((done + (start - done + batch * j) / len(sets)) / cap, 1.0),
+                             f"comparing the lists on {done + batch:,} simulated campaigns")
         done += batch
         per = {name: np.concatenate(p) for name, p in parts.items()}
         ref = per[reference]

@@ -19,6 +19,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _centrality_kernels as _k
+from ._chunks import run_chunked
 from ._weighted_sampling import rk_sample_weighted
 from .errors import InvalidParameter
 from .graph import GraphArrays, arcs, csr
@@ -85,7 +86,7 @@ def betweenness(
     random_seed : int
         Seeds the sampled method; equal seeds give equal results.
     progress : callable, optional
-        ``progress(fraction, message)`` during sampling; may raise Cancelled.
+        ``progress(fraction, message)`` about every quarter second; may raise Cancelled.
 
     Returns
     -------
@@ -161,7 +162,20 @@ def betweenness(
         from .centrality import _Views  # centrality imports this module
 
         v = _views or _Views(g)
-        raw = v.call(v.ig.betweenness, directed=True, weights=_path_lengths(v, use_w))
+        lengths = _path_lengths(v, use_w)
+        raw = np.zeros(n)
+
+        def sources(start: int, count: int) -> None:
+            # Brandes' sum over sources, a slice of sources per call (igraph's
+            # subset betweenness): each call is short enough to reach a cancel point.
+            raw[:] += v.call(v.ig.betweenness, directed=True, weights=lengths,
+                             sources=range(start, start + count), targets=None)
+
+        def after(done: int) -> None:
+            if progress is not None:
+                progress(done / n, f"betweenness: paths from {done} of {n} people")
+
+        run_chunked(n, sources, after=after, first=16)
         factor = scale if g.directed else 2.0 * scale
         meta.update(method="exact", algorithm="Brandes 2001 (igraph)")
         return raw * factor, meta
@@ -192,19 +206,7 @@ def _sampled_betweenness(
     r = rk_sample_size(vd, epsilon, delta)
     counts = np.zeros(n)
     state = _k.seed_state(seed)
-    chunks = max(1, min(20, r // 1000))
-    done = 0
-    for i in range(chunks):
-        todo = (r * (i + 1)) // chunks - done
-        if use_w:
-            rk_sample_weighted(n, out.indptr, out.indices, out.data, inn.indptr,
-                                  inn.indices, inn.data, todo, state, counts, _RTOL)
-        else:
-            _k.rk_sample_unweighted(n, out.indptr, out.indices, inn.indptr, inn.indices,
-                                    todo, state, counts)
-        done += todo
-        if progress is not None:
-            progress(done / r, f"betweenness: {done} of {r} sampled paths")
+    _draw_samples(n, out, inn, use_w, r, state, counts, progress)
     rescale = n / (n - 2) if n > 2 else 0.0
     values = counts / r * rescale if r else np.zeros(n)
     return values, {
@@ -222,12 +224,35 @@ def _sampled_betweenness(
     }
 
 
+def _draw_samples(n: int, out: Any, inn: Any, use_w: bool, r: int,
+                              state: NDArray[np.uint64], counts: NDArray[np.float64],
+                              progress: Progress, *, first: int = 16) -> None:
+    """Draw ``r`` RK samples into ``counts`` in chunks of about a quarter second each,
+    calling ``progress`` after every chunk (the kernels carry ``state`` across calls,
+    so the counts equal those of one call drawing all ``r``)."""
+
+    def step(_start: int, todo: int) -> None:
+        if use_w:
+            rk_sample_weighted(n, out.indptr, out.indices, out.data, inn.indptr,
+                               inn.indices, inn.data, todo, state, counts, _RTOL)
+        else:
+            _k.rk_sample_unweighted(n, out.indptr, out.indices, inn.indptr, inn.indices,
+                                    todo, state, counts)
+
+    def after(done: int) -> None:
+        if progress is not None:
+            progress(done / r, f"betweenness: {done} of {r} sampled paths")
+
+    run_chunked(r, step, after=after, first=first)
+
+
 def harmonic_closeness(
     g: GraphArrays,
     *,
     weights: bool = True,
     cutoff: float | None = None,
     mode: str = "out",
+    progress: Progress = None,
     _views: _Views | None = None,
 ) -> NDArray[np.float64]:
     """Harmonic closeness: the sum of ``1 / d`` over the other nodes (Marchiori and Latora 2000).
@@ -243,6 +268,8 @@ def harmonic_closeness(
         ``out``: distances from the node (how close it is to everyone it can
         reach); ``in``: distances to it, which is NetworkX's
         ``harmonic_centrality`` convention on directed graphs.
+    progress : callable, optional
+        ``progress(fraction, message)`` after each slice of nodes; may raise Cancelled.
 
     Notes
     -----
@@ -271,5 +298,16 @@ def harmonic_closeness(
     v = _views or _Views(g)
     if g.n == 0:
         return np.zeros(0)
-    return v.call(v.ig.harmonic_centrality, mode=mode, cutoff=cutoff,
-                 weights=_path_lengths(v, weights), normalized=False)
+    lengths = _path_lengths(v, weights)
+    out = np.zeros(g.n)
+
+    def nodes(start: int, count: int) -> None:
+        out[start:start + count] = v.call(v.ig.harmonic_centrality, vertices=range(start, start + count),
+                                          mode=mode, cutoff=cutoff, weights=lengths, normalized=False)
+
+    def after(done: int) -> None:
+        if progress is not None:
+            progress(done / g.n, f"harmonic closeness: {done} of {g.n} people")
+
+    run_chunked(g.n, nodes, after=after, first=16)
+    return out

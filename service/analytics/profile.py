@@ -12,6 +12,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _centrality_kernels as _k
+from ._chunks import run_chunked
 from .communities import leiden
 from .errors import Cancelled, ComputationFailed, EmptyGraph, InvalidParameter
 from .graph import GraphArrays, arcs, csr, to_igraph
@@ -272,7 +273,7 @@ def powerlaw_fit(
                 hits += _fit(rep, discrete, x_min, min_tail, max_candidates)[3] >= ks
             except InvalidParameter:
                 hits += 1  # a replicate too degenerate to fit is no better than the data
-            if progress is not None and (b + 1) % max(1, bootstrap // 10) == 0:
+            if progress is not None:  # each replicate is a fit: a cancel point after each
                 progress((b + 1) / bootstrap, f"power-law bootstrap {b + 1} of {bootstrap}")
         p_value = hits / bootstrap
     return {
@@ -295,7 +296,7 @@ def _ratio_se(sums: NDArray[np.float64], reached: NDArray[np.int64], mean: float
 
 
 def sample_distances(g: GraphArrays, *, samples: int = 100,
-                     random_seed: int = 0) -> dict[str, Any]:
+                     random_seed: int = 0, progress: Progress = None) -> dict[str, Any]:
     """Average distance and effective diameter from BFS out of sampled sources.
 
     Sources are drawn uniformly without replacement (all nodes when
@@ -323,7 +324,21 @@ def sample_distances(g: GraphArrays, *, samples: int = 100,
     rng = np.random.default_rng(random_seed)
     k = min(int(samples), n)
     sources = np.sort(rng.choice(n, size=k, replace=False)).astype(np.int64)
-    counts, sums, reached = _k.bfs_distance_counts(n, out.indptr, out.indices, sources)
+    counts = np.zeros(n + 1, dtype=np.int64)
+    sums = np.zeros(k, dtype=np.float64)
+    reached = np.zeros(k, dtype=np.int64)
+
+    def bfs(start: int, count: int) -> None:  # sources in slices of about a quarter second
+        c, s, r = _k.bfs_distance_counts(n, out.indptr, out.indices, sources[start:start + count])
+        counts[:] += c
+        sums[start:start + count] = s
+        reached[start:start + count] = r
+
+    def after(done: int) -> None:
+        if progress is not None:
+            progress(done / k, f"distances: {done} of {k} sources")
+
+    run_chunked(k, bfs, after=after, first=8)
     last = int(np.flatnonzero(counts)[-1]) if counts.any() else 0
     hist = counts[:last + 1]
     pairs = int(hist.sum())
@@ -428,7 +443,9 @@ def graph_profile(
     step(1, "summary and degree distribution")
     try:
         power = powerlaw_fit(total[total > 0], discrete=True, bootstrap=bootstrap,
-                             random_seed=random_seed)
+                             random_seed=random_seed,
+                             progress=None if progress is None else
+                             (lambda f, m: progress((1 + f) / steps, m)))
     except InvalidParameter:
         power = None
     step(2, "power-law fit")
@@ -447,7 +464,9 @@ def graph_profile(
         raise ComputationFailed(f"igraph failed in the graph profile: {exc}") from exc
     assortativity = r if math.isfinite(r) else None
     step(3, "clustering and assortativity")
-    distances = sample_distances(g, samples=bfs_samples, random_seed=random_seed)
+    distances = sample_distances(g, samples=bfs_samples, random_seed=random_seed,
+                                 progress=None if progress is None else
+                                 (lambda f, m: progress((3 + f) / steps, m)))
     step(4, "distances")
     membership, q = leiden(g, weights=True, random_seed=random_seed)
     sizes = np.bincount(membership)

@@ -418,6 +418,7 @@ def evaluate_shortlist(
     nodes = check_seed_list(dg.n, shortlist.nodes, field="seeds")
     sampler = RRSampler(dg, weights=w, rounds=rounds)
     coll = RRCollection(sampler, K.stream_key(random_seed, TAG_EVAL + 16))
+    coll.relax = "lower evaluation_samples, or use smaller edge probabilities"
     coll.extend_to(int(samples), progress=progress, message="sampling RR sets to evaluate")
     scale = coll.scale()
     hits = prefix_gains(coll, nodes)

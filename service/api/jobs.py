@@ -15,7 +15,7 @@ from pydantic import BaseModel, ValidationError
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.jobs import registry, webhooks
+from service.jobs import admission, registry, webhooks
 from service.jobs.clock import Clock, SystemClock
 from service.jobs.errors import InvalidJobParams, ResultNotReady
 from service.loader import load_version
@@ -131,12 +131,19 @@ def create_job(
     digest = _request_hash("POST /v1/graphs/{graph_id}/jobs", graph_id, body.model_dump(mode="json"))
     now = clock_of(request).now()
     kind = registry.get_kind(body.kind) if body.kind in registry.REGISTRY else None
-    if kind is not None and kind.precheck is not None:
-        # Before the write transaction: checking ids may load the version.
+    if kind is not None and (kind.precheck is not None or kind.estimate is not None):
+        # Before the write transaction: checking ids and estimating memory may load the version.
         with maker_of(request)() as db:
             graph, number, params = resolve_job_spec(db, tenant, graph_id, body)
             row = graph_repo.get_version(db, graph, number)
-            kind.precheck(kind.params.model_validate(params), lambda: load_version(db, row), edges=row.edges)
+            parsed = kind.params.model_validate(params)
+            if kind.precheck is not None:
+                kind.precheck(parsed, lambda: load_version(db, row), edges=row.edges)
+            if kind.estimate is not None:
+                limit = settings.job_memory_limit()
+                estimate = kind.estimate(parsed, lambda: load_version(db, row), nodes=row.nodes,
+                                         edges=row.edges, limit=limit)
+                admission.admit(estimate, limit)
     with job_repo.write_session(maker_of(request)) as db:
         if idempotency_key:
             replay = job_repo.get_by_idempotency_key(db, tenant, idempotency_key, digest)

@@ -51,6 +51,7 @@ PROBLEM_TYPES: list[tuple[type[Exception], ProblemType]] = [
     (aerr.EmptyGraph, ProblemType(422, "empty-graph", "Graph is empty")),
     (aerr.InvalidParameter, ProblemType(422, "invalid-parameter", "Invalid parameter")),
     (aerr.Cancelled, ProblemType(409, "cancelled", "Computation cancelled")),
+    (aerr.TooExpensive, ProblemType(422, "too-expensive", "Job too expensive")),
     (aerr.ComputationFailed, ProblemType(500, "computation-failed", "Computation failed")),
     (jerr.UnknownKind, ProblemType(422, "unknown-kind", "Unknown job kind")),
     (jerr.InvalidJobParams, ProblemType(422, "invalid-parameter", "Invalid parameter")),

@@ -5,7 +5,9 @@
 finish, then goes back to the queue). :func:`start_workers` starts N worker
 processes (``python -m service.cli.worker``, the settings passed down as
 ``BELLWETHER_*`` variables) and a thread that restarts any that dies, with
-a doubling back-off; :meth:`Supervisor.stop` sends SIGTERM and waits.
+a doubling back-off; :meth:`Supervisor.stop` sends SIGTERM, waits the grace
+period and a second, then kills a worker still running and requeues its job.
+A supervised worker dies with its supervisor (``PR_SET_PDEATHSIG``).
 """
 
 from __future__ import annotations
@@ -14,6 +16,7 @@ import json
 import logging
 import os
 import signal
+import socket
 import subprocess
 import sys
 import threading
@@ -24,17 +27,20 @@ from types import FrameType
 from typing import Any
 
 from service.jobs.tasks.forecast import warm_kernels
-from service.jobs.worker import Worker, WorkerConfig
+from service.jobs.worker import Worker, WorkerConfig, give_back_jobs
 from service.logs import configure_logging
 from service.settings import Settings
 from storage.db import make_engine, make_sessionmaker
 
-__all__ = ["run_worker", "start_workers", "Supervisor", "settings_env", "main"]
+__all__ = ["run_worker", "start_workers", "Supervisor", "settings_env", "die_with_parent", "main"]
 
 log = logging.getLogger("bellwether.supervisor")
 worker_log = logging.getLogger("bellwether.worker")
 
 PARENT_ENV = "BELLWETHER_WORKER_PARENT_PID"
+PR_SET_PDEATHSIG = 1  # from <linux/prctl.h>
+#: Seconds the supervisor waits past the grace period before it kills a worker.
+KILL_MARGIN_SECONDS = 1.0
 
 
 def run_worker(settings: Settings, *, install_signals: bool = True) -> None:
@@ -55,11 +61,37 @@ def run_worker(settings: Settings, *, install_signals: bool = True) -> None:
     threading.Thread(target=warm_kernels, name="bw-warm-kernels", daemon=True).start()
     parent = os.environ.get(PARENT_ENV)
     if parent:
+        # The kernel ends this process when its supervisor dies, even inside a long
+        # compiled loop; the thread below is the fallback where prctl is missing.
+        die_with_parent(int(parent))
         threading.Thread(target=_watch_parent, args=(int(parent), worker), daemon=True).start()
     try:
         worker.run_forever()
     finally:
         engine.dispose()
+
+
+def die_with_parent(parent_pid: int) -> bool:
+    """Ask Linux to SIGKILL this process when its parent dies (``PR_SET_PDEATHSIG``).
+
+    SIGKILL, not SIGTERM: a worker inside a compiled loop runs no Python signal
+    handler, and an orphan must not keep computing. Its job's lease then runs out
+    and the next worker puts the job back in the queue. Returns False where prctl
+    is not available (the parent watcher thread is the fallback). Exits at once
+    when the parent is already gone.
+    """
+    ok = False
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            ok = libc.prctl(PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0) == 0
+        except (OSError, AttributeError):
+            ok = False
+    if os.getppid() != parent_pid:  # the parent died before prctl took effect
+        os._exit(0)
+    return ok
 
 
 def _watch_parent(parent_pid: int, worker: Worker) -> None:
@@ -111,6 +143,7 @@ class Supervisor:
         self.restarts = 0
         self._lock = threading.Lock()
         self._stop = threading.Event()
+        self._stopping = threading.Event()  # no more restarts
         self._thread: threading.Thread | None = None
         self._backoff = [settings.worker_restart_backoff_seconds] * n
         self._next_start = [0.0] * n
@@ -142,8 +175,8 @@ class Supervisor:
         while not self._stop.wait(0.2):
             with self._lock:
                 for i, proc in enumerate(self.procs):
-                    if self._stop.is_set():
-                        return
+                    if self._stopping.is_set():
+                        break
                     now = time.monotonic()
                     if proc is not None:
                         if proc.poll() is None:
@@ -162,11 +195,17 @@ class Supervisor:
                         self.restarts += 1
 
     def stop(self, timeout: float | None = None) -> None:
-        """SIGTERM every worker, wait up to ``timeout`` (grace + 5 s), then kill."""
-        self._stop.set()
-        if self._thread is not None:
-            self._thread.join()
-        wait = self.settings.job_shutdown_grace_seconds + 5.0 if timeout is None else timeout
+        """SIGTERM every worker, wait up to ``timeout`` (grace + 1 s), then kill and requeue.
+
+        A worker inside a long compiled loop cannot run its signal handler, so
+        after the wait it is killed (SIGKILL) and the job it held goes back to
+        the queue here. The restart thread ends only afterwards: Linux sends
+        the workers' parent-death signal when the thread that started them
+        ends, not only when this process does.
+        """
+        self._stopping.set()
+        wait = self.settings.job_shutdown_grace_seconds + KILL_MARGIN_SECONDS if timeout is None else timeout
+        killed: list[int] = []
         with self._lock:
             live = [p for p in self.procs if p is not None and p.poll() is None]
             for p in live:
@@ -176,8 +215,28 @@ class Supervisor:
                 try:
                     p.wait(max(deadline - time.monotonic(), 0.01))
                 except subprocess.TimeoutExpired:
+                    log.warning("worker still running after the grace period; killing it", extra={"pid": p.pid})
                     p.kill()
                     p.wait()
+                    killed.append(p.pid)
+        if killed:
+            self._give_back(killed)
+        self._stop.set()
+        if self._thread is not None:
+            self._thread.join()
+
+    def _give_back(self, pids: list[int]) -> None:
+        """Put the jobs the killed workers held back in the queue."""
+        engine = make_engine(self.settings.resolved_database_url())
+        try:
+            n = give_back_jobs(make_sessionmaker(engine), [f"{socket.gethostname()}:{pid}:" for pid in pids])
+        except Exception:  # the database is gone too: the leases run out instead
+            log.exception("could not give the killed workers' jobs back")
+            return
+        finally:
+            engine.dispose()
+        if n:
+            log.warning("jobs of killed workers put back in the queue", extra={"jobs": n})
 
 
 def start_workers(settings: Settings, n: int) -> Supervisor:

@@ -76,3 +76,7 @@ class JobKind:
     # Checks that need the version, run at job creation in the API process:
     # ``precheck(params, load, edges=...)`` raises an analytics error (a 422) or returns.
     precheck: Callable[..., None] | None = None
+    # Peak memory from the version's size and the params, checked against the per-job
+    # limit at creation and before running: ``estimate(params, load, nodes=, edges=, limit=)``
+    # returns a :class:`service.jobs.admission.Estimate` (None: not estimated).
+    estimate: Callable[..., Any] | None = None

@@ -40,6 +40,7 @@ _SLUGS: list[tuple[type[BaseException], str, str]] = [
     (aerr.EmptyGraph, "empty-graph", "Graph is empty"),
     (aerr.InvalidParameter, "invalid-parameter", "Invalid parameter"),
     (aerr.Cancelled, "cancelled", "Computation cancelled"),
+    (aerr.TooExpensive, "too-expensive", "Job too expensive"),
     (aerr.ComputationFailed, "computation-failed", "Computation failed"),
     (aerr.AnalyticsError, "computation-failed", "Computation failed"),
     (serr.NotFound, "not-found", "Resource not found"),

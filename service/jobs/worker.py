@@ -33,9 +33,10 @@ from typing import Any
 
 import httpx
 import numpy as np
-from sqlalchemy import select
+from sqlalchemy import select, update
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.analytics._chunks import memory_limit
 from service.analytics.errors import Cancelled
 from service.loader import LoadedVersion, load_version
 from service.metrics import service_metrics, start_worker_metrics_server
@@ -45,13 +46,13 @@ from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 from storage.repo import webhooks as webhook_repo
 
-from . import registry, schedules, webhooks
+from . import admission, registry, schedules, webhooks
 from .clock import Clock, SystemClock
 from .errors import Released
 from .kinds import RESERVED_RESULT_KEYS, TaskContext
 from .retry import RetryPolicy, problem_document
 
-__all__ = ["WorkerConfig", "Worker", "RunOutcome", "new_worker_id", "json_clean"]
+__all__ = ["WorkerConfig", "Worker", "RunOutcome", "new_worker_id", "json_clean", "give_back_jobs"]
 
 log = logging.getLogger("bellwether.worker")
 
@@ -76,6 +77,8 @@ class WorkerConfig:
     kind_timeouts: dict[str, float] = field(default_factory=dict)
     metrics_port: int | None = None
     metrics_host: str = "127.0.0.1"
+    # Hard edges (issue 13): the per-job memory limit in bytes (None: none).
+    memory_limit_bytes: int | None = None
 
     def timeout_for(self, kind: str) -> float:
         return float(self.kind_timeouts.get(kind, self.timeout_seconds))
@@ -109,6 +112,7 @@ class WorkerConfig:
             kind_timeouts=dict(s.job_kind_timeouts),
             metrics_port=s.worker_metrics_port,
             metrics_host=s.worker_metrics_host,
+            memory_limit_bytes=s.job_memory_limit(),
         )
 
 
@@ -123,6 +127,37 @@ class RunOutcome:
 
 def new_worker_id() -> str:
     return f"{socket.gethostname()}:{os.getpid()}:{os.urandom(3).hex()}"
+
+
+def give_back_jobs(maker: sessionmaker[Session], worker_prefixes: list[str]) -> int:
+    """Requeue the running jobs of workers that were killed (ids starting with a prefix).
+
+    Like a graceful release the attempt is not counted; a job whose
+    cancellation was asked ends ``cancelled``. Returns how many jobs changed.
+    """
+    now = SystemClock().now()
+    changed = 0
+    with job_repo.write_session(maker) as db:
+        for prefix in worker_prefixes:
+            ours = (Job.status == "running") & Job.worker_id.startswith(prefix, autoescape=True)
+            cancelled = list(db.execute(
+                update(Job).where(ours & Job.cancel_requested.is_(True))
+                .values(status="cancelled", finished_at=now, worker_id=None, lease_until=None)
+                .returning(Job)
+                .execution_options(synchronize_session=False)
+            ).scalars())
+            for job in cancelled:
+                webhooks.queue_job_event(db, job, now)
+            changed += len(cancelled)
+            changed += len(list(db.execute(
+                update(Job).where(ours)
+                .values(status="queued", run_after=now, worker_id=None, lease_until=None,
+                        attempts=Job.attempts - 1)
+                .returning(Job.id)
+                .execution_options(synchronize_session=False)
+            ).scalars()))
+        db.commit()
+    return changed
 
 
 def json_clean(value: Any) -> Any:
@@ -270,7 +305,16 @@ class Worker:
                 progress=progress,
                 _load=self._loader(run),
             )
-            output = kind.run(ctx, params)
+            limit = self.config.memory_limit_bytes
+            if kind.estimate is not None and job.graph_id is not None:
+                v = ctx.load()
+                admission.admit(kind.estimate(params, ctx.load, nodes=v.graph.n, edges=v.graph.m, limit=limit),
+                                limit)
+            token = memory_limit.set(limit)  # growing buffers check it (analytics._chunks)
+            try:
+                output = kind.run(ctx, params)
+            finally:
+                memory_limit.reset(token)
             data = {k: v for k, v in output.data.items() if k not in RESERVED_RESULT_KEYS}
             data.update(
                 kind=job.kind,

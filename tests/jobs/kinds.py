@@ -12,13 +12,14 @@ from collections.abc import Callable
 from typing import Any, Literal
 
 import numpy as np
+from numba import njit
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.analytics.errors import InvalidParameter
 from service.jobs.kinds import JobKind, TaskContext, TaskOutput
 from service.jobs.registry import register
 
-__all__ = ["HOOKS", "SleepParams", "FailParams", "HookParams"]
+__all__ = ["HOOKS", "SleepParams", "FailParams", "HookParams", "SpinParams"]
 
 # name -> callable(ctx) run by the ``test_hook`` kind (in-process tests only).
 HOOKS: dict[str, Callable[[TaskContext], Any]] = {}
@@ -91,7 +92,33 @@ def run_graph(ctx: TaskContext, p: GraphParams) -> TaskOutput:
     )
 
 
+class SpinParams(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+    iterations: int = Field(default=10**12, ge=1)
+    marker_dir: str | None = None
+
+
+@njit(cache=True)
+def _spin(iterations):  # type: ignore[no-untyped-def]
+    """A compiled loop that holds the GIL and never reaches a progress point (xorshift steps)."""
+    x = np.uint64(88172645463325252)
+    for _ in range(iterations):
+        x ^= x << np.uint64(13)
+        x ^= x >> np.uint64(7)
+        x ^= x << np.uint64(17)
+    return x
+
+
+def run_spin(ctx: TaskContext, p: SpinParams) -> TaskOutput:
+    """Stands for a kernel that ignores SIGTERM: no Python signal handler runs until it returns."""
+    _spin(10)  # compile (or load from the cache) before saying it started
+    _log(p.marker_dir, f"start {ctx.job_id} {os.getpid()}")
+    return TaskOutput(data={"x": int(_spin(p.iterations))})
+
+
 for _kind in (
+    JobKind("test_spin", SpinParams, run_spin, "spin in a kernel (tests)", "x", needs_graph=False),
     JobKind("test_sleep", SleepParams, run_sleep, "sleep (tests)", "slept", needs_graph=False),
     JobKind("test_fail", FailParams, run_fail, "fail (tests)", "never", needs_graph=False),
     JobKind("test_hook", HookParams, run_hook, "hook (tests)", "anything", needs_graph=False),

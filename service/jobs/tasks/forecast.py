@@ -36,6 +36,7 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import Field, model_validator
 
+from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from .diffusion_settings import DiffusionSettings
 
@@ -383,6 +384,7 @@ KIND = JobKind(
     name="forecast",
     params=ForecastParams,
     run=run,
+    estimate=admission.forecast_estimate,
     precheck=precheck,
     summary="Reach forecast of one or several seed sets: mean with interval, percentiles, adoption curve",
     result_description=(

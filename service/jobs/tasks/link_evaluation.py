@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Any, Literal
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field
 
+from .. import admission
 from ..kinds import RESERVED_RESULT_KEYS, JobKind, TaskContext, TaskOutput
 from .recommendations import METHOD_ALIASES, LinkMethodName
 
@@ -89,6 +90,7 @@ KIND = JobKind(
     name="link_evaluation",
     params=LinkEvaluationParams,
     run=run,
+    estimate=admission.linear_estimate,
     summary="Which introduction method fits this graph: AUC and precision at k on held-out ties",
     result_description=(
         "methods: {name: {auc, precision_at_k}}, best (highest AUC), positives, negatives, hidden, "

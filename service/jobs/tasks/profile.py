@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from .. import admission
 from ..kinds import RESERVED_RESULT_KEYS, JobKind, TaskContext, TaskOutput
 
 __all__ = ["ProfileParams", "run", "KIND"]
@@ -46,6 +47,7 @@ KIND = JobKind(
     name="profile",
     params=ProfileParams,
     run=run,
+    estimate=admission.linear_estimate,
     summary="Graph profile: degree distribution and power-law fit, clustering, assortativity, distances",
     result_description=(
         "summary (people, ties, components, reciprocity, degree median and maximum); degree "

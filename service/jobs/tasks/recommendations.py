@@ -9,6 +9,7 @@ list. The result document holds the counts; the rows are stored as arrays
 
 from __future__ import annotations
 
+import time
 from collections.abc import Iterator, Sequence
 from typing import TYPE_CHECKING, Any, Literal
 
@@ -16,6 +17,9 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field
 
+from service.analytics._chunks import ChunkSizer
+
+from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 
 if TYPE_CHECKING:
@@ -89,8 +93,11 @@ def run(ctx: TaskContext, params: RecommendationsParams) -> TaskOutput:
                               "tie_to_person", "tie_to_candidate")
     }
     total = max(1, people.shape[0])
-    for c0 in range(0, people.shape[0], CHUNK):
-        chunk = people[c0 : c0 + CHUNK]
+    sizer = ChunkSizer(first=16, most=CHUNK)  # slices of about a quarter second: cancel points
+    c0 = 0
+    while c0 < people.shape[0]:
+        t0 = time.perf_counter()
+        chunk = people[c0 : c0 + sizer.next(people.shape[0] - c0)]
         batch = recommend_all(index, chunk, method=method, limit=params.limit, eligible=eligible,
                               explain=k)
         rows = [(int(p), r, rec) for p, recs in zip(chunk, batch) for r, rec in enumerate(recs)]
@@ -108,7 +115,9 @@ def run(ctx: TaskContext, params: RecommendationsParams) -> TaskOutput:
         cols["shared"].append(shared.ravel())
         cols["tie_to_person"].append(tx.ravel())
         cols["tie_to_candidate"].append(ty.ravel())
-        ctx.progress(min(1.0, (c0 + chunk.shape[0]) / total), f"{c0 + chunk.shape[0]} people")
+        sizer.took(chunk.shape[0], time.perf_counter() - t0)
+        c0 += chunk.shape[0]
+        ctx.progress(min(1.0, c0 / total), f"{c0} people")
     arrays = {
         name: (np.concatenate(parts) if parts else np.zeros(0, np.float64 if name in (
             "score", "tie_to_person", "tie_to_candidate") else np.int32))
@@ -165,6 +174,7 @@ KIND = JobKind(
     name="recommendations",
     params=RecommendationsParams,
     run=run,
+    estimate=admission.linear_estimate,
     summary="Introductions for every node (or a list): link prediction with shared contacts",
     result_description=(
         "Counts (people, people_with_recommendations, rows) and the columns of the CSV export "

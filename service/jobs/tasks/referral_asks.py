@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field
 
+from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from .diffusion_settings import ProbabilitySettings
 from .recommendations import resolve_ids
@@ -158,6 +159,7 @@ KIND = JobKind(
     name="referral_asks",
     params=ReferralAsksParams,
     run=run,
+    estimate=admission.linear_estimate,
     summary="For every adopter, whom to ask them to refer (each target assigned to one adopter)",
     result_description=(
         "Counts (adopters, unknown_adopters, askers, targets, expected_referrals), exposure_explained "

@@ -19,6 +19,7 @@ from service.analytics.centrality import MEASURES, scores
 from service.analytics.errors import InvalidParameter, UnknownNode
 from service.rankings import ASCENDING, LABEL_MEASURES, key, result_arrays
 
+from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 
 if TYPE_CHECKING:
@@ -64,8 +65,15 @@ class ScoresParams(BaseModel):
     betweenness: Literal["auto", "exact", "sampled"] = Field(
         default="auto", description="Exact (Brandes) or sampled (Riondato-Kornaropoulos); auto samples large graphs."
     )
-    betweenness_epsilon: float = Field(default=0.01, gt=0.0, lt=1.0, description="Sampled: additive error bound.")
-    betweenness_delta: float = Field(default=0.1, gt=0.0, lt=1.0, description="Sampled: failure probability.")
+    betweenness_epsilon: float = Field(
+        default=0.01, ge=0.001, lt=1.0,
+        description="Sampled: additive error bound. At least 0.001: samples grow as 1/epsilon^2 "
+        "(0.001 already draws about 4 million paths).",
+    )
+    betweenness_delta: float = Field(
+        default=0.1, ge=1e-6, lt=1.0,
+        description="Sampled: failure probability. At least 1e-6: samples grow with ln(1/delta).",
+    )
     harmonic_cutoff: float | None = Field(default=None, gt=0.0, description="Ignore nodes further than this.")
     random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds sampling and Leiden.")
 
@@ -171,6 +179,7 @@ KIND = JobKind(
     name="scores",
     params=ScoresParams,
     run=run,
+    estimate=admission.scores_estimate,
     precheck=precheck,
     summary="Node scores: degree, strength, PageRank, eigenvector, hubs/authorities, betweenness, "
     "harmonic closeness, k-core, clustering, constraint, Leiden communities",

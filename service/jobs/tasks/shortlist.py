@@ -58,6 +58,7 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import Field, model_validator
 
+from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from ._shortlist_result import result_document
 from ._shortlist_rules import Prepared, resolve_rules
@@ -124,7 +125,9 @@ class ShortlistParams(DiffusionSettings):
         "certified ratio), celf (lazy greedy on Monte Carlo, small graphs), or a baseline heuristic.",
     )
     epsilon: float = Field(
-        default=0.1, gt=0, lt=1, description="Approximation slack of imm and opim."
+        default=0.1, ge=0.01, lt=1,
+        description="Approximation slack of imm and opim. At least 0.01: RR sets grow as 1/epsilon^2, "
+        "and max_samples caps them anyway.",
     )
     l: float = Field(  # noqa: E741 - the paper's name for the confidence exponent
         default=1.0, gt=0, le=10, description="imm: the guarantee holds with probability 1 - n^-l."
@@ -562,6 +565,7 @@ KIND = JobKind(
     name="shortlist",
     params=ShortlistParams,
     run=run,
+    estimate=admission.shortlist_estimate,
     precheck=precheck,
     summary="Seed shortlist under contact rules: whom to contact first, with its guarantee and baselines",
     result_description=(
