@@ -12,6 +12,32 @@ re-exported here (tests/test_architecture.py checks the two agree).
 
 from __future__ import annotations
 
+from .backtest import (
+    BACKTEST_SCHEMES,
+    BacktestResult,
+    CampaignScore,
+    SchemeSummary,
+    adoption_auc,
+    adoption_log_likelihood,
+    backtest,
+    backtest_verdict,
+    band_covers,
+    reach_error,
+)
+from .learning import (
+    LEARNING_METHODS,
+    Campaign,
+    LearnedModel,
+    ParameterEstimate,
+    adoption_chance,
+    bucket_rounds,
+    campaign_episodes,
+    edge_features,
+    em_probabilities,
+    goyal_probabilities,
+    learn_probabilities,
+    learned_diffusion_graph,
+)
 from .centrality import (
     DEFAULT_MEASURES,
     MEASURES,
@@ -248,4 +274,27 @@ __all__ = [
     "to_igraph",
     "top_score_seeds",
     "weighted_adamic_adar",
+    # learning from past campaigns, and backtests
+    "BACKTEST_SCHEMES",
+    "BacktestResult",
+    "CampaignScore",
+    "SchemeSummary",
+    "adoption_auc",
+    "adoption_log_likelihood",
+    "backtest",
+    "backtest_verdict",
+    "band_covers",
+    "reach_error",
+    "LEARNING_METHODS",
+    "Campaign",
+    "LearnedModel",
+    "ParameterEstimate",
+    "adoption_chance",
+    "bucket_rounds",
+    "campaign_episodes",
+    "edge_features",
+    "em_probabilities",
+    "goyal_probabilities",
+    "learn_probabilities",
+    "learned_diffusion_graph",
 ]
