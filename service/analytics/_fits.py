@@ -113,7 +113,7 @@ def _class_intervals(ep: Episodes, fit: EmFit, classes: NDArray[np.int64],
             lo, hi = 0.0, min(1.0, 3.0 / float(trials[i]))
         else:
             lo, hi = max(0.0, v - _Z95 * se[i]), min(1.0, v + _Z95 * se[i])
-        out.append(ParameterEstimate(name, v, lo, hi))
+        out.append(ParameterEstimate(name, v, float(lo), float(hi)))
     return tuple(out)
 
 
