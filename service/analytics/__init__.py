@@ -37,6 +37,8 @@ from .learning import (
     goyal_probabilities,
     learn_probabilities,
     learned_diffusion_graph,
+    match_arcs,
+    transfer_probabilities,
 )
 from .centrality import (
     DEFAULT_MEASURES,
@@ -297,4 +299,6 @@ __all__ = [
     "goyal_probabilities",
     "learn_probabilities",
     "learned_diffusion_graph",
+    "match_arcs",
+    "transfer_probabilities",
 ]

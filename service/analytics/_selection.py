@@ -50,6 +50,14 @@ class LearnedModel:
         unexplained adoption had no active in-neighbour in the round before
         and is left out of the likelihood.
     fallback : probability given to arcs never tried in the data.
+    fits : per-arc probabilities of the methods refitted on every campaign (the
+        chosen one, ``uniform`` and the best few-parameter method).
+    coefficients : raw parameters of the refitted few-parameter methods
+        (``uniform``: [p]; ``segment_pair``: k*k row-major table; ``logistic``:
+        intercept then one coefficient per feature), used to carry the model to
+        later versions.
+    new_arc_method : the few-parameter method that gives arcs never seen in the
+        data their probability (the best by held-out likelihood).
     """
 
     method: str
@@ -67,6 +75,8 @@ class LearnedModel:
     unexplained: int
     fallback: float
     fits: dict[str, NDArray[np.float64]] = field(default_factory=dict)
+    coefficients: dict[str, NDArray[np.float64]] = field(default_factory=dict)
+    new_arc_method: str = "uniform"
 
 
 def learn_probabilities(
@@ -168,16 +178,21 @@ def learn_probabilities(
         best = "uniform"
         reason = ("With a single campaign no model can be checked on a campaign it did not see, "
                   "so the simplest learned model is used: one probability for every connection.")
+    few = [m for m in ("segment_pair", "logistic", "uniform") if m in chosen or m == "uniform"]
+    new_arc = max(few, key=lambda m: (held.get(m, -np.inf), m == "uniform"))
     fits: dict[str, NDArray[np.float64]] = {}
+    coefficients: dict[str, NDArray[np.float64]] = {}
     params: tuple[ParameterEstimate, ...] = ()
     trace: tuple[float, ...] = ()
     iterations, converged = 0, True
-    for mth in dict.fromkeys([best, "uniform"]):
+    for mth in dict.fromkeys([best, "uniform", new_arc]):
         if mth in fixed:
             fits[mth] = fixed[mth]
             continue
         fitted, ps = fit(ep, mth)
         fits[mth] = fitted.arc_prob
+        if mth != "per_edge":
+            coefficients[mth] = fitted.params
         if mth == best:
             params, trace = ps, fitted.trace
             iterations, converged = fitted.iterations, fitted.converged
@@ -186,6 +201,10 @@ def learn_probabilities(
         params = tuple(ParameterEstimate(names[i] if i < len(names) else q.name,
                                          q.value, q.low, q.high) for i, q in enumerate(params))
     arc_prob = fits[best]
+    if best == "per_edge":  # arcs never tried get the best few-parameter estimate
+        tried = np.bincount(ep.arc, minlength=a.src.shape[0]) > 0
+        arc_prob = np.where(tried, arc_prob, fits[new_arc])
+        fits[best] = arc_prob
     trials = ep.arc.shape[0]
     rate = float(ep.n_events / trials) if trials else 0.0
     return LearnedModel(
@@ -193,7 +212,7 @@ def learn_probabilities(
         log_likelihood=log_likelihood(ep, arc_prob[ep.arc]), trace=trace,
         iterations=iterations, converged=converged, campaigns=len(cs), trials=int(trials),
         activations=int(ep.n_events), unexplained=int(ep.unexplained.sum()),
-        fallback=rate, fits=fits)
+        fallback=rate, fits=fits, coefficients=coefficients, new_arc_method=new_arc)
 
 
 def _scored(test: Episodes, arc_prob: NDArray[np.float64]) -> float:

@@ -32,10 +32,10 @@ from ._episodes import (
     check_campaigns,
     gather_pairs,
 )
-from ._fits import ParameterEstimate, _fit
+from ._fits import ParameterEstimate, _design, _fit, _segment_classes
 from ._selection import LEARNING_METHODS, LearnedModel, learn_probabilities
 from .errors import InvalidParameter
-from .graph import Arcs, DiffusionGraph, GraphArrays, arcs, csr
+from .graph import Arcs, DiffusionGraph, GraphArrays, arcs, csr, edge_probabilities
 from .ties import tie_strength
 
 __all__ = [
@@ -51,6 +51,8 @@ __all__ = [
     "goyal_probabilities",
     "learn_probabilities",
     "learned_diffusion_graph",
+    "match_arcs",
+    "transfer_probabilities",
 ]
 
 
@@ -302,3 +304,121 @@ def _check_arc_prob(a: Arcs, arc_prob: ArrayLike) -> NDArray[np.float64]:
     return p
 
 
+
+
+def match_arcs(previous: GraphArrays, g: GraphArrays, node_map: ArrayLike) -> NDArray[np.int64]:
+    """For each arc of ``g``, the index of the same arc in ``previous``, or -1 when new.
+
+    ``node_map[i]`` is the index in ``previous`` of node ``i`` of ``g`` (-1 for a new
+    person). Arcs are in the order of :func:`~.graph.arcs`.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> old = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> new = GraphArrays(3, True, np.array([1, 2], np.int32), np.array([2, 0], np.int32),
+    ...                   np.ones(2))
+    >>> match_arcs(old, new, [-1, 0, 1]).tolist()
+    [0, -1]
+    """
+    nm = np.asarray(node_map, dtype=np.int64)
+    if nm.shape != (g.n,) or (nm.size and (nm.min() < -1 or nm.max() >= previous.n)):
+        raise InvalidParameter(f"node_map needs one index into the previous version (or -1) "
+                               f"per person ({g.n})", field="node_map")
+    pa, na = arcs(previous), arcs(g)
+    n = max(previous.n, 1)
+    old_key = pa.src.astype(np.int64) * n + pa.dst
+    order = np.argsort(old_key, kind="stable")
+    s, d = nm[na.src], nm[na.dst]
+    key = s * n + d
+    pos = np.searchsorted(old_key[order], key)
+    pos = np.minimum(pos, max(old_key.size - 1, 0))
+    found = (s >= 0) & (d >= 0) & (old_key.size > 0)
+    if old_key.size:
+        found &= old_key[order][pos] == key
+    out: NDArray[np.int64] = np.where(found, order[pos] if old_key.size else -1, -1)
+    return out
+
+
+def transfer_probabilities(
+    model: LearnedModel,
+    g: GraphArrays,
+    *,
+    previous_arc: ArrayLike,
+    segments: ArrayLike | None = None,
+    features: ArrayLike | None = None,
+) -> NDArray[np.float64]:
+    """Probabilities of a model learned on an earlier version, on the arcs of ``g``.
+
+    A few-parameter model (uniform, per segment pair, logistic) is evaluated on
+    ``g``'s own segments or features; a per-arc model keeps each matched arc's
+    learned probability and gives new arcs the estimate of
+    ``model.new_arc_method``; a fixed scheme is recomputed on ``g``.
+
+    Parameters
+    ----------
+    model : from :func:`learn_probabilities`.
+    g : the later version.
+    previous_arc : per arc of ``g``, its index in the learned version (-1: new);
+        see :func:`match_arcs`.
+    segments : segment code per person of ``g`` (segment-pair models); a code
+        the model never saw gets the uniform estimate.
+    features : arc features of ``g``, same columns as when learning (logistic).
+
+    Returns
+    -------
+    numpy.ndarray of float64, one probability per arc of ``g``.
+
+    Raises
+    ------
+    InvalidParameter
+        ``previous_arc`` of the wrong length or pointing outside the learned
+        version; segments or features missing for a model that needs them.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> g = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> runs = [Campaign(np.array([0, 1]), np.array([0, 1]))] * 2
+    >>> runs += [Campaign(np.array([0, 1]), np.array([0, 2]), horizon=2)] * 2
+    >>> m = learn_probabilities(g, runs, methods=["uniform"], folds=2)
+    >>> g2 = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([1, 2], np.int32),
+    ...                  np.ones(2))
+    >>> transfer_probabilities(m, g2, previous_arc=[0, -1]).tolist()
+    [0.5, 0.5]
+    """
+    a = arcs(g)
+    prev = np.asarray(previous_arc, dtype=np.int64)
+    m_old = model.arc_prob.shape[0]
+    if prev.shape != a.src.shape or (prev.size and (prev.min() < -1 or prev.max() >= m_old)):
+        raise InvalidParameter(f"previous_arc needs one index into the learned version's "
+                               f"{m_old} arcs (or -1) per arc ({a.src.shape[0]})",
+                               field="previous_arc")
+    if model.method in ("weighted_cascade", "trivalency"):
+        return edge_probabilities(a, model.method)
+    if model.method != "per_edge":
+        return _evaluate(model, model.method, a, segments, features)
+    fresh = _evaluate(model, model.new_arc_method, a, segments, features)
+    out: NDArray[np.float64] = np.where(prev >= 0, model.arc_prob[np.maximum(prev, 0)], fresh)
+    return out
+
+
+def _evaluate(model: LearnedModel, method: str, a: Arcs, segments: ArrayLike | None,
+              features: ArrayLike | None) -> NDArray[np.float64]:
+    coef = model.coefficients[method]
+    uniform = float(model.coefficients["uniform"][0])
+    if method == "uniform":
+        return np.full(a.src.shape[0], uniform)
+    if method == "segment_pair":
+        k = int(round(np.sqrt(coef.shape[0])))
+        _segment_classes(a, segments)  # validates the codes
+        seg = np.asarray(segments, dtype=np.int64)
+        known = (seg[a.src] < k) & (seg[a.dst] < k)
+        idx = np.where(known, seg[a.src] * k + seg[a.dst], 0)
+        return np.where(known, coef[idx], uniform)
+    x = _design(a, features)
+    if x.shape[1] != coef.shape[0]:
+        raise InvalidParameter(f"features need the {coef.shape[0] - 1} columns the model was "
+                               "learned with", field="features")
+    out: NDArray[np.float64] = 1.0 / (1.0 + np.exp(-(x @ coef)))
+    return out

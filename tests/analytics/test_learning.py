@@ -21,6 +21,8 @@ from service.analytics.learning import (
     goyal_probabilities,
     learn_probabilities,
     learned_diffusion_graph,
+    match_arcs,
+    transfer_probabilities,
 )
 from tests.datasets import snap_graph
 
@@ -283,3 +285,43 @@ def test_logistic_model_recovered_on_ca_grqc() -> None:
     inside = sum(q.low <= b <= q.high for q, b in zip(est, beta))
     assert inside >= 2
     assert all(abs(q.value - b) < 4 * (q.high - q.low) / 3.92 + 0.05 for q, b in zip(est, beta))
+
+
+def _random_graph(n: int, m: int, seed: int) -> GraphArrays:
+    rng = np.random.default_rng(seed)
+    src = rng.integers(0, n, m)
+    dst = rng.integers(0, n, m)
+    keep = src != dst
+    key = np.unique(src[keep] * n + dst[keep])
+    return GraphArrays(n, True, (key // n).astype(np.int32), (key % n).astype(np.int32),
+                       np.ones(key.size))
+
+
+def test_model_carries_to_a_later_version_with_new_arcs() -> None:
+    # Source: definition: matched arcs keep their learned probability, new arcs get the
+    # per-segment-pair table learned on the same campaigns. Truth: each arc 0.02 or 0.5, so
+    # that one probability per arc predicts best and is chosen.
+    g = _random_graph(40, 300, 8)
+    seg = np.arange(40) % 2
+    p = np.random.default_rng(1).choice([0.02, 0.5], g.m)
+    runs = simulate_campaigns(g, p, 60, seeds=3, random_seed=3)
+    model = learn_probabilities(g, runs, methods=["per_edge", "segment_pair"], segments=seg)
+    assert (model.method, model.new_arc_method) == ("per_edge", "segment_pair"), model.held_out
+    # a later version: one new person (index 0, old people shifted by one) and two new arcs
+    src = np.concatenate([g.src + 1, [0, 5]]).astype(np.int32)
+    dst = np.concatenate([g.dst + 1, [3, 0]]).astype(np.int32)
+    g2 = GraphArrays(41, True, src, dst, np.ones(src.size))
+    node_map = np.arange(-1, 40)
+    prev = match_arcs(g, g2, node_map)
+    assert prev[:-2].tolist() == list(range(g.m)) and prev[-2:].tolist() == [-1, -1]
+    seg2 = np.concatenate([[1], seg])
+    got = transfer_probabilities(model, g2, previous_arc=prev, segments=seg2)
+    assert np.array_equal(got[:-2], model.arc_prob)
+    fresh = model.coefficients["segment_pair"]
+    assert got[-2] == fresh[1 * 2 + seg2[3]] and got[-1] == fresh[seg2[5] * 2 + 1]
+    sp = learn_probabilities(g, runs, methods=["segment_pair"], segments=seg)
+    table = sp.coefficients["segment_pair"].reshape(2, 2)
+    got = transfer_probabilities(sp, g2, previous_arc=prev, segments=seg2)
+    assert np.array_equal(got, table[seg2[src], seg2[dst]])
+    with pytest.raises(InvalidParameter, match="previous_arc"):
+        transfer_probabilities(sp, g2, previous_arc=prev[:-1], segments=seg2)
