@@ -73,6 +73,21 @@ def e_step(ep: Episodes, p_trial: NDArray[np.float64]) -> tuple[NDArray[np.float
     return q, ll
 
 
+def _e_step_by_arc(p_arc: NDArray[np.float64], fails: NDArray[np.float64],
+                   h_arc: NDArray[np.int64], h_ev: NDArray[np.int64],
+                   n_events: int) -> tuple[NDArray[np.float64], float]:
+    """:func:`e_step` with the failed trials counted per arc: credits of the credited trials."""
+    pa = np.minimum(np.clip(p_arc, 0.0, 1.0), 1.0 - TINY)
+    s = np.log1p(-pa)
+    ll = float(fails @ s)
+    if not n_events:
+        return np.zeros(0), ll
+    logq = np.bincount(h_ev, weights=s[h_arc], minlength=n_events)
+    pe = np.maximum(-np.expm1(logq), 1e-300)
+    q: NDArray[np.float64] = pa[h_arc] / pe[h_ev]
+    return q, ll + float(np.log(pe).sum())
+
+
 def _sigmoid(z: NDArray[np.float64]) -> NDArray[np.float64]:
     out: NDArray[np.float64] = 0.5 * (1.0 + np.tanh(0.5 * z))
     return out
@@ -120,20 +135,25 @@ def em(ep: Episodes, kind: str, *, classes: NDArray[np.int64] | None = None,
         pp = np.clip(p[seen], TINY, 1.0 - TINY)
         return float((a * np.log(pp) + b * np.log1p(-pp)).sum())
 
+    # Failed trials only ever contribute (1 - p_a) per trial: count them per arc once, so
+    # that an iteration costs O(arcs + credited trials), not O(trials).
+    hit = ep.event >= 0
+    h_arc, h_ev = arc[hit], ep.event[hit]
+    fails = np.bincount(arc[~hit], minlength=ep.n_arcs).astype(np.float64)
     trace: list[float] = []
     converged = False
     prev = -math.inf
     it = 0
     for it in range(1, max_iter + 1):
         p_arc = arc_prob(params)
-        q, ll = e_step(ep, p_arc[arc])
+        q, ll = _e_step_by_arc(p_arc, fails, h_arc, h_ev, ep.n_events)
         obj = ll + log_prior(p_arc)
         trace.append(obj)
         if it > 1 and abs(obj - prev) <= tol * (1.0 + abs(obj)):
             converged = True
             break
         prev = obj
-        credit = np.bincount(arc, weights=q, minlength=ep.n_arcs).astype(np.float64)
+        credit = np.bincount(h_arc, weights=q, minlength=ep.n_arcs).astype(np.float64)
         if kind == "per_edge":
             with np.errstate(invalid="ignore", divide="ignore"):
                 new = (credit + a) / (trials + a + b)

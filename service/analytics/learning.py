@@ -146,8 +146,10 @@ def em_probabilities(
     -----
     The likelihood and the E- and M-steps are derived in
     :mod:`service.analytics._em`. The logistic M-step is a weighted logistic
-    regression solved by Newton's method (IRLS) with numpy. Cost per iteration:
-    O(trials) (plus O(arcs tried * k^2) for the logistic M-step).
+    regression solved by Newton's method (IRLS) with numpy. Failed trials are counted
+    per arc once, so an iteration costs O(arcs + credited trials) (plus
+    O(arcs tried * k^2) for the logistic M-step); building the trials costs
+    O(out-arcs of the adopters) per campaign.
 
     References
     ----------

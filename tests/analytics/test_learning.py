@@ -325,3 +325,19 @@ def test_model_carries_to_a_later_version_with_new_arcs() -> None:
     assert np.array_equal(got, table[seg2[src], seg2[dst]])
     with pytest.raises(InvalidParameter, match="previous_arc"):
         transfer_probabilities(sp, g2, previous_arc=prev[:-1], segments=seg2)
+
+
+def test_e_step_counted_per_arc_equals_the_per_trial_e_step() -> None:
+    # Source: the per-trial E-step (reference implementation) on the same episodes.
+    from service.analytics._em import _e_step_by_arc, e_step
+
+    g = _random_graph(30, 200, 4)
+    p = np.random.default_rng(2).uniform(0.05, 0.5, g.m)
+    ep = campaign_episodes(g, simulate_campaigns(g, p, 10, seeds=3, random_seed=6))
+    q_ref, ll_ref = e_step(ep, p[ep.arc])
+    hit = ep.event >= 0
+    fails = np.bincount(ep.arc[~hit], minlength=g.m).astype(np.float64)
+    q, ll = _e_step_by_arc(p, fails, ep.arc[hit], ep.event[hit], ep.n_events)
+    assert ll == pytest.approx(ll_ref, rel=1e-12)
+    assert np.allclose(q, q_ref[hit]) and np.all(q_ref[~hit] == 0)
+    assert ll_ref == pytest.approx(log_likelihood(ep, p[ep.arc]), rel=1e-12)

@@ -14,7 +14,9 @@ c found by bisection so that a campaign from 50 random seeds reaches about
    any EM iteration has to do; median of ``--repeats``;
 3. the per-edge EM of Saito et al. (2008) and the per-segment-pair EM (two
    random segments) run to convergence: total time, iterations, time per
-   iteration and its ratio to the floor.
+   iteration (total over iterations, so the one-off counting of failed trials
+   per arc is included) and its ratio to the floor. The EM counts failed trials
+   per arc once, so an iteration walks the arcs and the credited trials only.
 """
 
 from __future__ import annotations
