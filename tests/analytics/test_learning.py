@@ -341,3 +341,23 @@ def test_e_step_counted_per_arc_equals_the_per_trial_e_step() -> None:
     assert ll == pytest.approx(ll_ref, rel=1e-12)
     assert np.allclose(q, q_ref[hit]) and np.all(q_ref[~hit] == 0)
     assert ll_ref == pytest.approx(log_likelihood(ep, p[ep.arc]), rel=1e-12)
+
+
+def test_lt_weights_count_credit_and_sum_to_at_most_one() -> None:
+    # Source: hand count of A_u2v / max(A_v, sum of credits into v) (Goyal et al. 2010 counts);
+    # the Linear Threshold condition sum_u b_uv <= 1 checked by check_lt_weights.
+    from service.analytics.graph import check_lt_weights
+    from service.analytics.learning import goyal_lt_weights
+
+    g = GraphArrays(4, True, np.array([0, 1, 3], np.int32), np.array([2, 2, 2], np.int32),
+                    np.ones(3))
+    runs = [Campaign(np.array([0, 2]), np.array([0, 1])),
+            Campaign(np.array([1, 2]), np.array([0, 1])),
+            Campaign(np.array([0, 3, 2]), np.array([0, 0, 5])),  # too late: no credit
+            Campaign(np.array([1, 3]), np.array([0, 0]))]
+    assert goyal_lt_weights(g, runs).tolist() == pytest.approx([1 / 3, 1 / 3, 0.0])
+    assert goyal_lt_weights(g, runs, window=5).tolist() == pytest.approx([0.5, 0.25, 0.25])
+    g2 = _random_graph(40, 400, 9)
+    w = goyal_lt_weights(g2, simulate_campaigns(g2, np.full(g2.m, 0.3), 30, random_seed=2))
+    check_lt_weights(arcs(g2), w)
+    assert w.max() > 0
