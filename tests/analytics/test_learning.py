@@ -285,6 +285,10 @@ def test_logistic_model_recovered_on_ca_grqc() -> None:
     inside = sum(q.low <= b <= q.high for q, b in zip(est, beta))
     assert inside >= 2
     assert all(abs(q.value - b) < 4 * (q.high - q.low) / 3.92 + 0.05 for q, b in zip(est, beta))
+    few = learn_probabilities(g, runs[:40], methods=["logistic"], features=x, folds=2)
+    assert sum(q.low <= b <= q.high for q, b in zip(few.parameters, beta)) >= 2
+    width = [np.mean([q.high - q.low for q in m.parameters]) for m in (few, model)]
+    assert width[1] < 0.7 * width[0]  # about sqrt(40 / 150) of the width
 
 
 def _random_graph(n: int, m: int, seed: int) -> GraphArrays:
@@ -361,3 +365,32 @@ def test_lt_weights_count_credit_and_sum_to_at_most_one() -> None:
     w = goyal_lt_weights(g2, simulate_campaigns(g2, np.full(g2.m, 0.3), 30, random_seed=2))
     check_lt_weights(arcs(g2), w)
     assert w.max() > 0
+
+
+@pytest.mark.parametrize("kind", ["classes", "logistic"])
+def test_fisher_information_equals_numerical_hessian_of_the_likelihood(kind: str) -> None:
+    # Source: central second differences of the observed log-likelihood (closed form of the
+    # IC episode likelihood), against the analytic Hessian used for the intervals.
+    from service.analytics._em import fisher_information
+
+    g = _random_graph(30, 250, 12)
+    p = np.random.default_rng(3).uniform(0.05, 0.4, g.m)
+    ep = campaign_episodes(g, simulate_campaigns(g, p, 15, seeds=3, random_seed=8))
+    seg = np.arange(30) % 2
+    classes = (seg[g.src] * 2 + seg[g.dst]).astype(np.int64)
+    x = np.column_stack([np.ones(g.m), np.random.default_rng(4).normal(size=(g.m, 2))])
+    theta = np.array([0.1, 0.2, 0.15, 0.3]) if kind == "classes" else np.array([-1.5, 0.3, -0.2])
+
+    def ll(t: np.ndarray) -> float:
+        pa = t[classes] if kind == "classes" else 1 / (1 + np.exp(-(x @ t)))
+        return log_likelihood(ep, pa[ep.arc])
+
+    k, h = theta.size, 1e-4
+    num = np.zeros((k, k))
+    for i in range(k):
+        for j in range(k):
+            ei, ej = np.eye(k)[i] * h, np.eye(k)[j] * h
+            num[i, j] = (ll(theta + ei + ej) - ll(theta + ei - ej) - ll(theta - ei + ej)
+                         + ll(theta - ei - ej)) / (4 * h * h)
+    info = fisher_information(ep, kind, theta, classes=classes, features=x)
+    assert np.allclose(info, -num, rtol=1e-3, atol=1e-2 * np.abs(num).max() * 1e-3)
