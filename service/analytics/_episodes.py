@@ -30,7 +30,8 @@ class Campaign(NamedTuple):
     ----------
     node : int array, node indices of the adopters (each once).
     round : int array, the round each adopter adopted in; 0 = a seed.
-    horizon : the last round that was observed (None: the last adoption's round).
+    horizon : the last round that was observed (None: the last adoption's round, so a
+        campaign that did not spread past its seeds then shows nothing: give it).
     label : a name for messages (e.g. the campaign's id).
     """
 
@@ -235,6 +236,16 @@ def build_episodes(a: Arcs, campaigns: list[Campaign], pairs: Pairs | None = Non
         unexplained[i] = int((c.round > 0).sum()) - int(explained[i])
     return Episodes(int(a.src.shape[0]), len(campaigns), arc, camp, event,
                     int(uniq.shape[0]), unexplained)
+
+
+def require_trials(ep: Episodes) -> Episodes:
+    """Raise unless some adopter had a connection who could still adopt in an observed round."""
+    if ep.arc.size == 0:
+        raise InvalidParameter(
+            "the campaigns show no chance to pass anything on: no adopter has a connection who "
+            "had not adopted yet within the observed rounds; give each campaign's horizon "
+            "(the last round that was watched)", field="campaigns")
+    return ep
 
 
 def campaign_arcs(g: GraphArrays) -> Arcs:

@@ -12,7 +12,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from ._em import EmFit, log_likelihood
-from ._episodes import Campaign, Episodes, build_episodes, check_campaigns
+from ._episodes import Campaign, Episodes, build_episodes, check_campaigns, require_trials
 from ._fits import ParameterEstimate, _fit
 from .errors import InvalidParameter
 from .graph import GraphArrays, arcs, edge_probabilities
@@ -151,7 +151,7 @@ def learn_probabilities(
     """
     a = arcs(g)
     cs = check_campaigns(g.n, campaigns)
-    ep = build_episodes(a, cs)
+    ep = require_trials(build_episodes(a, cs))
     chosen = _check_methods(methods, segments, features)
     if not isinstance(folds, int) or folds < 2:
         raise InvalidParameter(f"folds must be a whole number >= 2, got {folds!r}", field="folds")

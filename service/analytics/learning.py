@@ -31,6 +31,7 @@ from ._episodes import (
     bucket_rounds,
     check_campaigns,
     gather_pairs,
+    require_trials,
 )
 from ._fits import ParameterEstimate, _design, _fit, _segment_classes
 from ._selection import LEARNING_METHODS, LearnedModel, learn_probabilities
@@ -168,7 +169,7 @@ def em_probabilities(
     0.75
     """
     a = arcs(g)
-    ep = build_episodes(a, check_campaigns(g.n, campaigns))
+    ep = require_trials(build_episodes(a, check_campaigns(g.n, campaigns)))
     return _fit(ep, a, parameterisation, segments=segments, features=features,
                 prior_strength=prior_strength, tol=tol, max_iter=max_iter)[0]
 

@@ -394,3 +394,12 @@ def test_fisher_information_equals_numerical_hessian_of_the_likelihood(kind: str
                          + ll(theta - ei - ej)) / (4 * h * h)
     info = fisher_information(ep, kind, theta, classes=classes, features=x)
     assert np.allclose(info, -num, rtol=1e-3, atol=1e-2 * np.abs(num).max() * 1e-3)
+
+
+def test_campaigns_without_any_trial_are_refused() -> None:
+    g = GraphArrays(3, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    seeds_only = [Campaign(np.array([0, 2]), np.array([0, 0]))]  # horizon 0: nothing watched
+    with pytest.raises(InvalidParameter, match="horizon"):
+        learn_probabilities(g, seeds_only)
+    fit = em_probabilities(g, [Campaign(np.array([0, 2]), np.array([0, 0]), horizon=1)] * 2)
+    assert fit.arc_prob.tolist() == [0.0]  # with the horizon given: two failed trials
