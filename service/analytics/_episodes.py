@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from .errors import InvalidParameter, UnknownNode
-from .graph import Arcs, GraphArrays, arcs, csr
+from .graph import Arcs, csr
 
 __all__ = ["Campaign", "bucket_rounds"]
 
@@ -247,7 +247,3 @@ def require_trials(ep: Episodes) -> Episodes:
             "(the last round that was watched)", field="campaigns")
     return ep
 
-
-def campaign_arcs(g: GraphArrays) -> Arcs:
-    """The arcs learning works on (both directions of an undirected edge)."""
-    return arcs(g)
