@@ -12,7 +12,7 @@ from fastapi.responses import JSONResponse
 
 
 from service.intake import SizeLimits
-from service.intake.dialect import parse_delimiter
+from service.intake.dialect import DELIMITER_SPELLINGS, parse_delimiter
 from service.loader import load_version
 from storage.db import write_session
 from storage.repo import graphs as graph_repo
@@ -167,7 +167,8 @@ async def create_version(
     delimiter: Annotated[
         str | None,
         Query(max_length=20, description="CSV field separator: comma, semicolon, tab or pipe (or the "
-              "character); detected from the first lines when absent."),
+              "character; words in any case); detected from the first lines when absent.",
+              json_schema_extra={"enum": DELIMITER_SPELLINGS}),
     ] = None,
     idempotency_key: IdemKey = None,
 ) -> JSONResponse:

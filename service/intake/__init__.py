@@ -21,6 +21,7 @@ from __future__ import annotations
 from .csvfile import read_edges_csv, read_nodes_csv
 from .dialect import (
     DELIMITER_NAMES,
+    DELIMITER_SPELLINGS,
     DELIMITERS,
     CsvSource,
     delimiter_name,
@@ -119,6 +120,7 @@ __all__ = [
     "detect_delimiter",
     "delimiter_name",
     "DELIMITERS",
+    "DELIMITER_SPELLINGS",
     "DELIMITER_NAMES",
     "open_utf8",
     "TextSource",

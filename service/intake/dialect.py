@@ -21,6 +21,7 @@ from .encoding import PREFIX_BYTES, open_utf8
 from .errors import InvalidOption
 
 __all__ = [
+    "DELIMITER_SPELLINGS",
     "DELIMITERS",
     "DELIMITER_NAMES",
     "CsvSource",
@@ -44,6 +45,8 @@ _WORDS = {
     "vertical_bar": "|",
     "bar": "|",
 }
+#: Every spelling :func:`parse_delimiter` takes (words also in other cases).
+DELIMITER_SPELLINGS = sorted(_WORDS)
 _LINES = 20  # data lines looked at beside the header
 
 

@@ -45,6 +45,8 @@ class WebhookCreate(BaseModel):
     secret: str | None = Field(
         default=None,
         max_length=300,
+        # whsec_ and standard base64 of 24 to 63 bytes (a 64-byte secret is taken too).
+        pattern=r"^whsec_(?:[A-Za-z0-9+/]{4}){8,20}(?:[A-Za-z0-9+/]{4}|[A-Za-z0-9+/]{2}==|[A-Za-z0-9+/]{3}=)?$",
         description="Signing secret, whsec_ followed by the standard base64 of 24 to 64 random bytes; "
         "generated when omitted.",
     )
