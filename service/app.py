@@ -6,15 +6,26 @@ from collections.abc import AsyncIterator
 from contextlib import asynccontextmanager
 
 from fastapi import FastAPI
+from starlette.middleware import Middleware
 
 from storage.db import make_engine, make_sessionmaker
 
 from .api import api_router
 from .api import metrics as metrics_api
-from .api.middleware import OperationsMiddleware, configure_logging
+from .api.middleware import (
+    AccessLog,
+    AllowHeader,
+    BodyLimits,
+    InternalErrors,
+    LoopbackOnly,
+    RateLimits,
+    RequestIds,
+    RequestMetrics,
+)
 from .api.openapi import install_openapi, operation_id
 from .api.problems import install_problem_handlers
 from .api.spool import remove_stale_spool
+from .logs import configure_logging
 from .settings import Settings
 
 __all__ = ["create_app"]
@@ -43,6 +54,20 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         finally:
             engine.dispose()
 
+    # Operations middleware (service/api/middleware/), outermost first. The first four wrap the
+    # checks, so refused requests carry the request id and are logged and counted too; the
+    # checks then run in README "Errors" order: rate (429), body size and shape (413, 422),
+    # and the routes after them (key and scope, graph, fields).
+    middleware = [
+        Middleware(RequestIds),
+        Middleware(AccessLog),
+        Middleware(RequestMetrics),
+        Middleware(InternalErrors),
+        Middleware(AllowHeader),
+        Middleware(LoopbackOnly, auth_disabled=settings.auth_disabled),
+        Middleware(RateLimits, per_second=settings.rate_limit_per_second, burst=settings.rate_limit_burst),
+        Middleware(BodyLimits, max_body_bytes=settings.max_body_bytes),
+    ]
     app = FastAPI(
         title="Bellwether",
         version="0.1.0",
@@ -50,12 +75,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         description=DESCRIPTION,
         lifespan=lifespan,
         generate_unique_id_function=operation_id,
+        middleware=middleware,
     )
     app.state.settings = settings
     install_problem_handlers(app)
     app.include_router(api_router)
     app.include_router(metrics_api.router)
-    # Request ids, access log, metrics, body and rate limits (service/api/middleware.py).
-    app.add_middleware(OperationsMiddleware, settings=settings, routes=lambda: app.routes)
     install_openapi(app)
     return app

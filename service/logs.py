@@ -116,7 +116,7 @@ def uvicorn_log_config(level: str = "INFO", fmt: str = "json") -> dict[str, Any]
         "loggers": {
             "uvicorn": {"handlers": [], "level": level.upper(), "propagate": True},
             "uvicorn.error": {"handlers": [], "level": level.upper(), "propagate": True},
-            # The service writes its own access line per request (service/api/middleware.py).
+            # The service writes its own access line per request (service/api/middleware/access_log.py).
             "uvicorn.access": {"handlers": [], "level": "WARNING", "propagate": True},
             "bellwether": {"level": level.upper()},
         },

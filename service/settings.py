@@ -103,7 +103,7 @@ class Settings(BaseSettings):
     rate_limit_burst: int = 200
 
     # -- Operations (issue 8): logs, metrics, job time limits -------------------------
-    # See service/api/middleware.py and service/metrics.py. The rate limit above is
+    # See service/api/middleware/ and service/metrics.py. The rate limit above is
     # per API process; 0 turns it off.
     log_level: str = Field(default="INFO", description="Level of the bellwether.* loggers.")
     log_format: Literal["json", "text"] = Field(

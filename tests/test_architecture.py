@@ -16,12 +16,15 @@ FORBIDDEN = {
     "service/intake": {"sqlalchemy", "fastapi", "starlette", "pydantic", "httpx", "storage", "uvicorn", "alembic"},
     "storage": {"service", "fastapi", "starlette", "pydantic", "uvicorn", "httpx"},
     "service/jobs": {"fastapi", "starlette", "uvicorn"},
+    # Pure ASGI middleware on Starlette's types: no routes, no database, no request models.
+    "service/api/middleware": {"fastapi", "sqlalchemy", "pydantic", "storage", "uvicorn", "httpx"},
 }
 # inside service: package -> sibling service packages it must not import
 FORBIDDEN_SERVICE = {
     "service/analytics": {"service.api", "service.jobs", "service.intake", "service.cli", "service.app", "service.settings", "service.loader", "service.ingest"},
     "service/intake": {"service.api", "service.jobs", "service.cli", "service.app", "service.settings", "service.loader", "service.ingest"},
     "service/jobs": {"service.api", "service.cli", "service.app"},
+    "service/api/middleware": {"service.jobs", "service.cli", "service.app", "service.loader", "service.ingest"},
 }
 
 
@@ -72,7 +75,7 @@ def test_only_app_and_cli_build_settings() -> None:
     assert not bad, bad
 
 
-@pytest.mark.parametrize("package", ["service.analytics", "service.intake", "storage.models"])
+@pytest.mark.parametrize("package", ["service.analytics", "service.intake", "storage.models", "service.api.middleware"])
 def test_package_reexports_agree_with_modules(package: str) -> None:
     pkg = importlib.import_module(package)
     exported = set(getattr(pkg, "__all__", ()))

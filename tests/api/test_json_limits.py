@@ -91,6 +91,6 @@ def test_measure_counts_brackets_outside_strings_only() -> None:
 
 
 def test_uploads_are_not_measured(tmp_path: Path) -> None:
-    from service.api.middleware import _is_upload
+    from service.api.middleware import is_upload
 
-    assert _is_upload("POST", "/v1/graphs/abc/versions")
+    assert is_upload("POST", "/v1/graphs/abc/versions")
