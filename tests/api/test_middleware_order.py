@@ -61,3 +61,5 @@ async def test_rate_then_body_then_key_then_graph(sqlite_url: str, tmp_path: Pat
     assert [line["status"] for line in lines] == [413, 422, 401, 429, 403, 404]
     refused = lines[3]
     assert refused["request_id"] == "rid-429" and refused["method"] == "POST"
+    # Refused before routing, the line still names the route the request was for.
+    assert [line["route"] for line in lines[:4]] == ["/v1/graphs"] * 4

@@ -22,8 +22,24 @@ def header(scope: Scope, name: bytes) -> str | None:
 
 
 def routes_of(scope: Scope) -> list[BaseRoute]:
-    """The app's routes, read when asked (routes added after start-up count); Starlette sets ``scope["app"]``."""
-    return list(getattr(scope.get("app"), "routes", None) or [])
+    """The app's routes, read when asked (routes added after start-up count); Starlette sets ``scope["app"]``.
+
+    Recent FastAPI releases keep an included router as one entry that wraps it
+    (``original_router``); its routes are listed in its place, so a request refused
+    before routing (429, 413) still finds the route it was for.
+    """
+    out: list[BaseRoute] = []
+
+    def add(routes: list[BaseRoute]) -> None:
+        for r in routes:
+            inner = getattr(r, "original_router", None)
+            if inner is not None and getattr(inner, "routes", None) is not None:
+                add(list(inner.routes))
+            else:
+                out.append(r)
+
+    add(list(getattr(scope.get("app"), "routes", None) or []))
+    return out
 
 
 def route_template(scope: Scope) -> str:
