@@ -88,3 +88,37 @@ def test_package_reexports_agree_with_modules(package: str) -> None:
         assert hasattr(mod, "__all__"), f"{package}.{f.stem} has no __all__"
         missing = names - exported
         assert not missing, f"{package} does not re-export {sorted(missing)} from {f.stem}"
+
+
+def _string_constants(path: Path) -> list[str]:
+    """String literals of a module, leaving out docstrings."""
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    docstrings = set()
+    for node in ast.walk(tree):
+        if isinstance(node, (ast.Module, ast.ClassDef, ast.FunctionDef, ast.AsyncFunctionDef)) and node.body:
+            first = node.body[0]
+            if isinstance(first, ast.Expr) and isinstance(first.value, ast.Constant):
+                docstrings.add(id(first.value))
+    return [
+        n.value for n in ast.walk(tree)
+        if isinstance(n, ast.Constant) and isinstance(n.value, str) and id(n) not in docstrings
+    ]
+
+
+def test_storage_writes_no_problem_documents() -> None:
+    """Storage raises errors and stores the documents it is given; it never names a problem type."""
+    bad = [f.relative_to(ROOT).as_posix() for f in py_files("storage") if "/problems/" in f.read_text(encoding="utf-8")]
+    assert not bad, bad
+
+
+def test_problem_types_are_built_in_one_place() -> None:
+    """Only ``service/jobs/errors.py`` (``problem_document``) spells a problem type; errors carry slugs."""
+    allowed = {"service/jobs/errors.py", "service/api/schemas/common.py"}  # the latter: an OpenAPI example
+    bad = [
+        f"{f.relative_to(ROOT).as_posix()}: {s!r}"
+        for f in py_files("service")
+        if f.relative_to(ROOT).as_posix() not in allowed
+        for s in _string_constants(f)
+        if "/problems/" in s
+    ]
+    assert not bad, "\n".join(bad)

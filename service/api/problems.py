@@ -1,6 +1,10 @@
 """Every error class mapped to an RFC 9457 problem document, and the handlers.
 
-This is the only module that knows HTTP status codes for errors. Request
+This is the only module that knows HTTP status codes for errors. Each error
+class carries its problem type as data (``slug`` and ``title``, in its errors
+module); :data:`PROBLEM_STATUS` gives the HTTP status, and
+``service.jobs.errors.problem_document`` builds the document (the worker uses
+the same function for a failed job's ``error``, so both read the same). Request
 validation and routing errors go through the same handler, so no other error
 shape leaves the service.
 """
@@ -22,11 +26,18 @@ from storage import errors as serr
 
 from . import errors as apierr
 
-__all__ = ["PROBLEM_TYPES", "ProblemType", "problem_response", "install_problem_handlers", "problem_for"]
+__all__ = [
+    "PROBLEM_STATUS",
+    "ProblemType",
+    "problem_response",
+    "install_problem_handlers",
+    "problem_for",
+    "status_for",
+]
 
 log = logging.getLogger("bellwether.api")
 MEDIA_TYPE = "application/problem+json"
-TYPE_BASE = "/problems/"
+TYPE_BASE = jerr.TYPE_BASE
 
 
 class ProblemType(NamedTuple):
@@ -35,39 +46,42 @@ class ProblemType(NamedTuple):
     title: str
 
 
-# Order matters: subclasses before their bases.
-PROBLEM_TYPES: list[tuple[type[Exception], ProblemType]] = [
-    (serr.NotFound, ProblemType(404, "not-found", "Resource not found")),
-    (serr.Conflict, ProblemType(409, "conflict", "Conflict with the current state")),
-    (serr.LeaseLost, ProblemType(409, "lease-lost", "Job lease lost")),
-    (ierr.UnsafeXml, ProblemType(422, "unsafe-xml", "XML with DTD or entities refused")),
-    (ierr.EmptyUpload, ProblemType(422, "empty-upload", "Upload holds no records")),
-    (ierr.InvalidEncoding, ProblemType(422, "invalid-encoding", "Text encoding not declared")),
-    (ierr.UploadError, ProblemType(422, "invalid-upload", "Upload could not be read")),
-    (ierr.InvalidOption, ProblemType(422, "invalid-parameter", "Invalid parameter")),
-    (ierr.IntakeError, ProblemType(422, "invalid-upload", "Upload could not be read")),
-    (aerr.UnknownNode, ProblemType(422, "unknown-node", "Unknown node id")),
-    (aerr.InfeasibleRequest, ProblemType(422, "infeasible-request", "Rules cannot be satisfied")),
-    (aerr.EmptyGraph, ProblemType(422, "empty-graph", "Graph is empty")),
-    (aerr.InvalidParameter, ProblemType(422, "invalid-parameter", "Invalid parameter")),
-    (aerr.Cancelled, ProblemType(409, "cancelled", "Computation cancelled")),
-    (aerr.TooExpensive, ProblemType(422, "too-expensive", "Job too expensive")),
-    (aerr.ComputationFailed, ProblemType(500, "computation-failed", "Computation failed")),
-    (jerr.UnknownKind, ProblemType(422, "unknown-kind", "Unknown job kind")),
-    (jerr.InvalidJobParams, ProblemType(422, "invalid-parameter", "Invalid parameter")),
-    (jerr.UnsafeWebhookUrl, ProblemType(422, "unsafe-webhook-url", "Webhook URL refused")),
-    (jerr.InvalidSchedule, ProblemType(422, "invalid-schedule", "Invalid schedule")),
-    (jerr.ResultNotReady, ProblemType(404, "result-not-ready", "Result not available")),
-    (apierr.BadRequest, ProblemType(400, "bad-request", "Bad request")),
-    (apierr.InvalidParams, ProblemType(422, "invalid-parameter", "Invalid parameter")),
-    (apierr.JsonLimit, ProblemType(422, "json-limit", "JSON body too deep or too large a value")),
-    (apierr.PayloadTooLarge, ProblemType(413, "payload-too-large", "Request body too large")),
-    (apierr.UnsupportedMediaType, ProblemType(415, "unsupported-media-type", "Unsupported media type")),
-    (apierr.Unauthorized, ProblemType(401, "unauthorized", "Authentication required")),
-    (apierr.Forbidden, ProblemType(403, "forbidden", "Scope missing")),
-    (apierr.RateLimited, ProblemType(429, "rate-limited", "Rate limit exceeded")),
-    (apierr.TooManyJobs, ProblemType(429, "too-many-jobs", "Queued job limit reached")),
-]
+# The one table from error classes to problem types: the class (and every subclass)
+# answers this status; its slug and title are the class's own. A class with a slug of
+# its own gets its own row, so the table reads like README's list of types.
+PROBLEM_STATUS: dict[type[Exception], int] = {
+    serr.NotFound: 404,
+    serr.Conflict: 409,
+    serr.LeaseLost: 409,
+    ierr.IntakeError: 422,
+    ierr.UploadError: 422,
+    ierr.UnsafeXml: 422,
+    ierr.EmptyUpload: 422,
+    ierr.InvalidEncoding: 422,
+    ierr.InvalidOption: 422,
+    aerr.UnknownNode: 422,
+    aerr.InfeasibleRequest: 422,
+    aerr.EmptyGraph: 422,
+    aerr.InvalidParameter: 422,
+    aerr.Cancelled: 409,
+    aerr.TooExpensive: 422,
+    aerr.ComputationFailed: 500,
+    aerr.AnalyticsError: 500,
+    jerr.UnknownKind: 422,
+    jerr.InvalidJobParams: 422,
+    jerr.UnsafeWebhookUrl: 422,
+    jerr.InvalidSchedule: 422,
+    jerr.ResultNotReady: 404,
+    apierr.BadRequest: 400,
+    apierr.InvalidParams: 422,
+    apierr.JsonLimit: 422,
+    apierr.PayloadTooLarge: 413,
+    apierr.UnsupportedMediaType: 415,
+    apierr.Unauthorized: 401,
+    apierr.Forbidden: 403,
+    apierr.RateLimited: 429,
+    apierr.TooManyJobs: 429,
+}
 
 VALIDATION = ProblemType(422, "validation-error", "Request validation failed")
 INTERNAL = ProblemType(500, "internal-error", "Internal server error")
@@ -81,11 +95,20 @@ HTTP_SLUGS = {
 }
 
 
-def problem_for(exc: Exception) -> ProblemType | None:
-    for cls, ptype in PROBLEM_TYPES:
-        if isinstance(exc, cls):
-            return ptype
+def status_for(cls: type[BaseException]) -> int | None:
+    """The status of the nearest class in ``cls``'s MRO that has a row; None when none has."""
+    for klass in cls.__mro__:
+        if issubclass(klass, Exception) and klass in PROBLEM_STATUS:
+            return PROBLEM_STATUS[klass]
     return None
+
+
+def problem_for(exc: BaseException) -> ProblemType | None:
+    status = status_for(type(exc))
+    known = jerr.problem_type(exc)
+    if status is None or known is None:
+        return None
+    return ProblemType(status, *known)
 
 
 def problem_body(ptype: ProblemType, detail: str, instance: str, **extra: Any) -> dict[str, Any]:
@@ -112,37 +135,13 @@ def problem_response(
     )
 
 
-def _jsonable(value: object) -> object:
-    if isinstance(value, (str, int, float, bool)) or value is None:
-        return value
-    if isinstance(value, (list, tuple)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    try:
-        return value.item()  # type: ignore[attr-defined]
-    except AttributeError:
-        return str(value)
-
-
-def error_extensions(exc: Exception) -> dict[str, Any]:
-    data = dict(getattr(exc, "data", {}) or {})
-    as_dict = getattr(exc, "as_dict", None)
-    if callable(as_dict):
-        data.update(as_dict())
-    for attr in ("line", "column", "value", "field"):
-        if getattr(exc, attr, None) is not None and attr not in data:
-            data[attr] = getattr(exc, attr)
-    data.pop("reason", None)
-    return {k: _jsonable(v) for k, v in data.items() if v is not None}
-
-
 def install_problem_handlers(app: FastAPI) -> None:
     """Register one handler per family so every error answers a problem document."""
 
     async def handle_known(request: Request, exc: Exception) -> JSONResponse:
         ptype = problem_for(exc)
-        assert ptype is not None
+        if ptype is None:  # a subclass that carries no problem type: an internal error
+            return await handle_unexpected(request, exc)
         headers = None
         if isinstance(exc, (apierr.RateLimited, apierr.TooManyJobs)):
             headers = {"Retry-After": str(int(getattr(exc, "data", {}).get("retry_after", 1)))}
@@ -150,10 +149,11 @@ def install_problem_handlers(app: FastAPI) -> None:
             headers = {"WWW-Authenticate": 'Bearer realm="bellwether"'}
         if ptype.status >= 500:
             log.error("computation failed: %s", exc, exc_info=exc)
-        detail = getattr(exc, "reason", None) or str(exc) or ptype.title
-        return problem_response(ptype, detail, request.url.path, headers, **error_extensions(exc))
+        doc = jerr.problem_document(exc)
+        extra = {k: v for k, v in doc.items() if k not in ("type", "title", "detail")}
+        return problem_response(ptype, doc["detail"], request.url.path, headers, **extra)
 
-    for cls, _ in PROBLEM_TYPES:
+    for cls in PROBLEM_STATUS:
         app.add_exception_handler(cls, handle_known)
 
     async def handle_validation(request: Request, exc: Exception) -> JSONResponse:

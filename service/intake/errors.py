@@ -1,12 +1,14 @@
 """Errors raised while reading an upload. They carry data, not prose.
 
-``api/problems.py`` turns an :class:`UploadError` into a 422 problem document
-whose extension members are :meth:`UploadError.as_dict`.
+Each class carries its problem type as data (``slug``, the end of the
+``/problems/...`` type, and ``title``); ``service/jobs/errors.problem_document``
+builds the document, whose extension members are :meth:`UploadError.as_dict`, and
+``api/problems.py`` adds the HTTP status (422).
 """
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import ClassVar, Literal
 
 __all__ = [
     "IntakeError",
@@ -30,6 +32,9 @@ Unit = Literal["line", "record"]
 class IntakeError(Exception):
     """The upload could not be read."""
 
+    slug: ClassVar[str | None] = "invalid-upload"
+    title: ClassVar[str | None] = "Upload could not be read"
+
     def __init__(self, reason: str | None = None) -> None:
         self.reason = reason or (self.__class__.__doc__ or "").strip()
         super().__init__(self.reason)
@@ -37,6 +42,9 @@ class IntakeError(Exception):
 
 class InvalidOption(IntakeError):
     """A reader or merge option is not one of its allowed values."""
+
+    slug = "invalid-parameter"
+    title = "Invalid parameter"
 
     def __init__(self, reason: str | None = None, *, field: str | None = None) -> None:
         self.field = field
@@ -58,6 +66,9 @@ class UploadError(IntakeError):
     hint : how to fix it, as data (set by the caller that knows the options),
         e.g. ``{"header": [...], "query": "source=From&target=To"}``.
     """
+
+    slug = "invalid-upload"
+    title = "Upload could not be read"
 
     def __init__(
         self,
@@ -103,6 +114,9 @@ class UploadError(IntakeError):
 class EmptyUpload(UploadError):
     """The upload holds no records."""
 
+    slug = "empty-upload"
+    title = "Upload holds no records"
+
 
 class MissingColumn(UploadError):
     """A required column is missing."""
@@ -144,6 +158,9 @@ class UnknownColumn(UploadError):
 class InvalidEncoding(UploadError):
     """The file's text encoding is not UTF-8 and was not declared."""
 
+    slug = "invalid-encoding"
+    title = "Text encoding not declared"
+
     def __init__(self, reason: str | None = None, *, likely: str | None = None,
                  charset: str | None = None, **kw: object) -> None:
         self.likely = likely
@@ -156,6 +173,9 @@ class InvalidEncoding(UploadError):
 
 class UnsafeXml(UploadError):
     """GraphML with a DTD or entity declarations is refused."""
+
+    slug = "unsafe-xml"
+    title = "XML with DTD or entities refused"
 
 
 class TooDeep(UploadError):

@@ -6,16 +6,14 @@ missing graph or version, params that no longer validate. Anything else
 (database hiccups, I/O, memory, an unexpected exception) is taken to be
 transient and retried with exponential backoff until ``max_attempts``.
 
-:func:`problem_document` turns an exception into the RFC 9457-style
-document stored in ``job.error`` (``type``, ``title``, ``detail`` and the
-error's data); the HTTP status is left to the API layer.
+The document stored in ``job.error`` comes from
+:func:`service.jobs.errors.problem_document`, the function the API uses too.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
 from datetime import datetime, timedelta
-from typing import Any
 
 from pydantic import ValidationError
 
@@ -24,7 +22,7 @@ from storage import errors as serr
 
 from . import errors as jerr
 
-__all__ = ["RetryDecision", "RetryPolicy", "is_permanent", "problem_document"]
+__all__ = ["RetryDecision", "RetryPolicy", "is_permanent"]
 
 PERMANENT: tuple[type[BaseException], ...] = (
     aerr.AnalyticsError,
@@ -32,22 +30,6 @@ PERMANENT: tuple[type[BaseException], ...] = (
     jerr.JobsError,
     ValidationError,
 )
-
-# Slugs match the API's problem table for the same errors.
-_SLUGS: list[tuple[type[BaseException], str, str]] = [
-    (aerr.UnknownNode, "unknown-node", "Unknown node id"),
-    (aerr.InfeasibleRequest, "infeasible-request", "Rules cannot be satisfied"),
-    (aerr.EmptyGraph, "empty-graph", "Graph is empty"),
-    (aerr.InvalidParameter, "invalid-parameter", "Invalid parameter"),
-    (aerr.Cancelled, "cancelled", "Computation cancelled"),
-    (aerr.TooExpensive, "too-expensive", "Job too expensive"),
-    (aerr.ComputationFailed, "computation-failed", "Computation failed"),
-    (aerr.AnalyticsError, "computation-failed", "Computation failed"),
-    (serr.NotFound, "not-found", "Resource not found"),
-    (jerr.InvalidJobParams, "invalid-parameter", "Invalid parameter"),
-    (jerr.UnknownKind, "unknown-kind", "Unknown job kind"),
-    (ValidationError, "invalid-parameter", "Invalid parameter"),
-]
 
 
 @dataclass(frozen=True)
@@ -79,38 +61,3 @@ class RetryPolicy:
 
 def is_permanent(exc: BaseException) -> bool:
     return isinstance(exc, PERMANENT)
-
-
-def _jsonable(value: object) -> object:
-    if value is None or isinstance(value, (str, int, float, bool)):
-        return value
-    if isinstance(value, (list, tuple, set, frozenset)):
-        return [_jsonable(v) for v in value]
-    if isinstance(value, dict):
-        return {str(k): _jsonable(v) for k, v in value.items()}
-    item = getattr(value, "item", None)
-    return item() if callable(item) else str(value)
-
-
-def problem_document(exc: BaseException, *, attempts: int | None = None) -> dict[str, Any]:
-    slug, title = "internal-error", "Internal error"
-    for cls, s, t in _SLUGS:
-        if isinstance(exc, cls):
-            slug, title = s, t
-            break
-    detail = getattr(exc, "reason", None) or str(exc) or type(exc).__name__
-    doc: dict[str, Any] = {"type": f"/problems/{slug}", "title": title, "detail": str(detail)}
-    if slug == "internal-error":
-        doc["exception"] = type(exc).__name__
-    data = getattr(exc, "data", None)
-    if isinstance(data, dict):
-        for k, v in data.items():
-            if k not in doc and v is not None:
-                doc[k] = _jsonable(v)
-    if isinstance(exc, ValidationError):
-        doc["errors"] = [
-            {"loc": [str(p) for p in e["loc"]], "msg": e["msg"], "type": e["type"]} for e in exc.errors()
-        ]
-    if attempts is not None:
-        doc["attempts"] = attempts
-    return doc

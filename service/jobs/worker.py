@@ -48,11 +48,19 @@ from storage.repo import webhooks as webhook_repo
 
 from . import admission, registry, schedules, webhooks
 from .clock import Clock, SystemClock
-from .errors import Released
+from .errors import JobTimeout, Released, WorkerLost, problem_document
 from .kinds import RESERVED_RESULT_KEYS, TaskContext
-from .retry import RetryPolicy, problem_document
+from .retry import RetryPolicy
 
-__all__ = ["WorkerConfig", "Worker", "RunOutcome", "new_worker_id", "json_clean", "give_back_jobs"]
+__all__ = [
+    "WorkerConfig",
+    "Worker",
+    "RunOutcome",
+    "new_worker_id",
+    "json_clean",
+    "give_back_jobs",
+    "worker_lost_error",
+]
 
 log = logging.getLogger("bellwether.worker")
 
@@ -158,6 +166,17 @@ def give_back_jobs(maker: sessionmaker[Session], worker_prefixes: list[str]) -> 
             ).scalars()))
         db.commit()
     return changed
+
+
+def worker_lost_error(job: Job) -> dict[str, Any]:
+    """The ``worker-lost`` problem a job ends with when its lease ran out on its last attempt."""
+    return problem_document(
+        WorkerLost(
+            f"the worker running this job stopped answering {job.attempts} time(s) "
+            f"(max_attempts {job.max_attempts}); the job was not retried again"
+        ),
+        attempts=job.attempts,
+    )
 
 
 def json_clean(value: Any) -> Any:
@@ -403,14 +422,14 @@ class Worker:
     def _time_out(self, run: _Run, limit: float) -> None:
         """Fail a job that ran past its kind's limit; the task's next progress call (or its finish) is refused."""
         job = run.job
-        error = {
-            "type": "/problems/job-timeout",
-            "title": "Job timed out",
-            "detail": f"the {job.kind} job ran longer than its limit of {limit:g} s and was stopped; "
-            "it is not retried (raise the kind's limit or make the job smaller)",
-            "limit_seconds": limit,
-            "attempts": job.attempts,
-        }
+        error = problem_document(
+            JobTimeout(
+                f"the {job.kind} job ran longer than its limit of {limit:g} s and was stopped; "
+                "it is not retried (raise the kind's limit or make the job smaller)",
+                limit_seconds=limit,
+            ),
+            attempts=job.attempts,
+        )
         now = self.clock.now()
         with job_repo.write_session(self.maker) as db:
             job_repo.finish_failure(db, job, self.worker_id, error, now, None)
@@ -498,7 +517,7 @@ class Worker:
         if any_expired is None:
             return None
         with job_repo.write_session(self.maker) as db:
-            result = job_repo.requeue_expired(db, now)
+            result = job_repo.requeue_expired(db, now, lost_error=worker_lost_error)
             for job in [*result.failed, *result.cancelled]:
                 webhooks.queue_job_event(db, job, now)
             db.commit()

@@ -12,10 +12,14 @@ On SQLite, open write transactions with :func:`write_session`, which issues
 ``BEGIN IMMEDIATE``: a deferred transaction that reads and then writes can
 fail at once with ``SQLITE_BUSY`` when another process wrote in between,
 while an immediate one waits for the lock (busy timeout).
+
+A failed job's ``error`` is a document the caller built (the service's
+``problem_document``); storage stores it as given and writes none itself.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
@@ -272,23 +276,12 @@ class ExpiredJobs:
     cancelled: list[Job]
 
 
-def worker_lost_error(job: Job) -> dict[str, Any]:
-    return {
-        "type": "/problems/worker-lost",
-        "title": "Worker lost",
-        "detail": (
-            f"the worker running this job stopped answering {job.attempts} time(s) "
-            f"(max_attempts {job.max_attempts}); the job was not retried again"
-        ),
-        "attempts": job.attempts,
-    }
-
-
-def requeue_expired(db: Session, now: datetime) -> ExpiredJobs:
+def requeue_expired(db: Session, now: datetime, *, lost_error: Callable[[Job], dict[str, Any]]) -> ExpiredJobs:
     """Return running jobs whose lease ran out to the queue, or end them.
 
     A job that had cancellation requested ends ``cancelled``; one that has
-    used all its attempts ends ``failed`` with a ``worker-lost`` problem.
+    used all its attempts ends ``failed`` with ``lost_error(job)`` as its error
+    (the caller builds that document; storage only stores it).
     """
     base = (Job.status == "running") & (Job.lease_until < now)
     cancelled = list(
@@ -310,7 +303,7 @@ def requeue_expired(db: Session, now: datetime) -> ExpiredJobs:
         res = db.execute(
             update(Job)
             .where(Job.id == job.id, base)
-            .values(status="failed", finished_at=now, worker_id=None, lease_until=None, error=worker_lost_error(job))
+            .values(status="failed", finished_at=now, worker_id=None, lease_until=None, error=lost_error(job))
             .execution_options(synchronize_session=False)
         )
         if res.rowcount == 1:  # type: ignore[attr-defined]

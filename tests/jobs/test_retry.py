@@ -7,7 +7,8 @@ from datetime import UTC, datetime, timedelta
 from pydantic import BaseModel, ValidationError
 
 from service.analytics.errors import ComputationFailed, EmptyGraph, InvalidParameter
-from service.jobs.retry import RetryPolicy, is_permanent, problem_document
+from service.jobs.errors import problem_document
+from service.jobs.retry import RetryPolicy, is_permanent
 from storage.errors import NotFound
 
 T0 = datetime(2030, 1, 1, tzinfo=UTC)

@@ -202,7 +202,13 @@ def test_housekeeping_requeues_expired_and_fails_exhausted(maker: sessionmaker[S
     clock.advance(2)
     out = worker.requeue_expired(clock.now())
     assert out is not None and [j.id for j in out.failed] == [jid]
-    assert read(maker, jid).error["type"] == "/problems/worker-lost"
+    assert read(maker, jid).error == {
+        "type": "/problems/worker-lost",
+        "title": "Worker lost",
+        "detail": "the worker running this job stopped answering 1 time(s) (max_attempts 1); "
+        "the job was not retried again",
+        "attempts": 1,
+    }
     with maker() as db:
         assert [d.event for d in db.execute(select(WebhookDelivery)).scalars()] == ["job.failed"]
 

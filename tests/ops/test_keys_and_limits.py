@@ -132,7 +132,14 @@ async def test_a_job_past_its_kind_time_limit_fails_with_job_timeout(sqlite_url:
         r = await c.get(f"/v1/jobs/{slow.id}")
         body = r.json()
         assert body["status"] == "failed" and body["attempts"] == 1
-        assert body["error"]["type"] == "/problems/job-timeout" and body["error"]["limit_seconds"] == 0.4
+        assert body["error"] == {
+            "type": "/problems/job-timeout",
+            "title": "Job timed out",
+            "detail": "the test_sleep job ran longer than its limit of 0.4 s and was stopped; "
+            "it is not retried (raise the kind's limit or make the job smaller)",
+            "limit_seconds": 0.4,
+            "attempts": 1,
+        }
         assert (await c.get(f"/v1/jobs/{slow.id}/result")).status_code == 404
 
 
