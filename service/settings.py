@@ -131,6 +131,20 @@ class Settings(BaseSettings):
         "physical memory and the cgroup limit) divided by the number of workers of `serve`.",
     )
 
+    # -- Per-process caches (service/caches.py) ---------------------------------------
+    cache_bytes: int = Field(
+        default=2 * GiB, ge=0,
+        description="Memory each process (the API, every worker) may keep for derived structures "
+        "of graph versions and results (loaded graphs, recommendation indexes, diffusion arrays, "
+        "ranking arrays), all caches together; least recently used go first. 0 keeps nothing.",
+    )
+    # Why 2 GiB: it holds every cached structure of a graph of about 25 million arcs, at about
+    # 84 bytes an arc (16 for the loaded graph, 26 for one set of diffusion arrays, 42 for the
+    # recommendation index, as measured by tests/bench/bench_memory.py on com-DBLP; see
+    # service/jobs/admission.py), so repeat requests on a large version do not reload it, and
+    # it leaves most of an 8 GiB machine to the jobs themselves. Lower it when many workers
+    # share a small machine: each process has its own caches.
+
     def job_memory_limit(self, workers: int = 1) -> int:
         """The per-job memory limit in bytes: the setting, else the default rule above."""
         if self.job_memory_limit_bytes is not None:
