@@ -102,7 +102,7 @@ class Settings(BaseSettings):
     rate_limit_per_second: float = 50.0
     rate_limit_burst: int = 200
 
-    # -- Operations (issue 8): logs, metrics, job time limits -------------------------
+    # -- Operations: logs, metrics, job time limits ------------------------------------
     # See service/api/middleware.py and service/metrics.py. The rate limit above is
     # per API process; 0 turns it off.
     log_level: str = Field(default="INFO", description="Level of the bellwether.* loggers.")
@@ -123,7 +123,7 @@ class Settings(BaseSettings):
         default_factory=dict, description='Per-kind run time limits in seconds (JSON, e.g. {"profile": 600}).'
     )
 
-    # -- Hard edges (issue 13): per-job memory limit -----------------------------------
+    # -- Per-job memory limit ---------------------------------------------------------
     job_memory_limit_bytes: int | None = Field(
         default=None, ge=1,
         description="Largest estimated peak memory of one job; past it the POST is refused and a "
