@@ -25,6 +25,7 @@ from .api.middleware import (
 from .api.openapi import install_openapi, operation_id
 from .api.problems import install_problem_handlers
 from .api.spool import remove_stale_spool
+from .caches import set_max_bytes as set_cache_bytes
 from .logs import configure_logging
 from .settings import Settings
 
@@ -44,6 +45,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         configure_logging(settings.log_level, settings.log_format)
+        set_cache_bytes(settings.cache_bytes)
         settings.data_dir.mkdir(parents=True, exist_ok=True)
         remove_stale_spool(settings.spool_dir())
         engine = make_engine(settings.resolved_database_url())

@@ -1,15 +1,14 @@
 """Stored version arrays <-> analytics types, with a per-process cache.
 
 A version is immutable, so once loaded its :class:`LoadedVersion` can be
-kept and shared by every request and job in the process. The cache is keyed
-by version id and bounded by an approximate byte budget.
+kept and shared by every request and job in the process: it is kept in
+:data:`service.caches.version_cache`, keyed by version id, under the shared
+byte bound of :mod:`service.caches`.
 """
 
 from __future__ import annotations
 
 import json
-import threading
-from collections import OrderedDict
 from dataclasses import dataclass
 from functools import cached_property
 from typing import Any
@@ -19,13 +18,12 @@ from numpy.typing import NDArray
 from sqlalchemy.orm import Session
 
 from service.analytics.graph import GraphArrays, NodeAttributes
+from service.caches import version_cache
 from storage.arrays import decode_strings, encode_strings
 from storage.models import GraphVersion
 from storage.repo import graphs as graph_repo
 
-__all__ = ["LoadedVersion", "load_version", "version_arrays", "clear_cache", "CACHE_BYTES"]
-
-CACHE_BYTES = 2 * 1024**3
+__all__ = ["LoadedVersion", "load_version", "version_arrays", "clear_cache"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -84,30 +82,14 @@ def version_arrays(
     return arrays, extra
 
 
-_cache: OrderedDict[str, LoadedVersion] = OrderedDict()
-_cache_lock = threading.Lock()
-
-
 def clear_cache() -> None:
-    with _cache_lock:
-        _cache.clear()
+    """Forget every loaded version (tests)."""
+    version_cache.clear()
 
 
 def load_version(db: Session, version: GraphVersion) -> LoadedVersion:
     """The version's graph, ids and attributes (cached per process)."""
-    with _cache_lock:
-        hit = _cache.get(version.id)
-        if hit is not None:
-            _cache.move_to_end(version.id)
-            return hit
-    loaded = _load(db, version)
-    with _cache_lock:
-        _cache[version.id] = loaded
-        total = sum(v.nbytes() for v in _cache.values())
-        while total > CACHE_BYTES and len(_cache) > 1:
-            _, old = _cache.popitem(last=False)
-            total -= old.nbytes()
-    return loaded
+    return version_cache.get(version.id, lambda: _load(db, version))
 
 
 def _load(db: Session, version: GraphVersion) -> LoadedVersion:

@@ -21,9 +21,9 @@ Conventions
   percentile counts 0), so it is on the same 0..100 scale; rounded to 9
   decimals so equal mixes tie and fall back to the node-id order.
 
-Loaded arrays and derived orders are kept per result id in one bounded,
-least-recently-used cache (:data:`CACHE_BYTES`); results are immutable, so
-nothing is ever stale. No database code here: callers pass a ``fetch``
+Loaded arrays and derived orders are kept per result id in
+:data:`service.caches.ranking_cache` (:func:`cached`), under the shared byte
+bound of :mod:`service.caches`; results are immutable, so nothing is ever stale. No database code here: callers pass a ``fetch``
 function that reads named arrays.
 """
 
@@ -35,8 +35,6 @@ import csv
 import io
 import json
 import math
-import threading
-from collections import OrderedDict
 from collections.abc import Callable, Hashable, Iterator, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -45,10 +43,10 @@ import numpy as np
 from numpy.typing import NDArray
 
 from service.analytics.graph import GraphArrays
+from service.caches import ranking_cache
 
 __all__ = [
     "ASCENDING",
-    "CACHE_BYTES",
     "CSV_HEADER",
     "LABEL_MEASURES",
     "NodeTable",
@@ -76,7 +74,6 @@ __all__ = [
 ASCENDING = frozenset({"constraint"})
 #: Measures that are labels, not scores: stored, never ranked.
 LABEL_MEASURES = frozenset({"community"})
-CACHE_BYTES = 1024**3
 FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 CSV_HEADER = ("rank", "node_id", "score", "percentile", "segment", "contactable", "label", "community")
 CSV_CHUNK = 10_000
@@ -355,55 +352,12 @@ def decode_cursor(cursor: str) -> tuple[str, int, str, str | None]:
 
 # -- the cache --------------------------------------------------------------------------
 
-_cache: OrderedDict[Hashable, tuple[Any, int]] = OrderedDict()
-_bytes = 0
-_lock = threading.Lock()
-_building: dict[Hashable, threading.Lock] = {}
-
-
-def _size(value: Any) -> int:
-    if isinstance(value, np.ndarray):
-        return int(value.nbytes)
-    if isinstance(value, NodeTable):
-        return value.nbytes()
-    if isinstance(value, tuple):
-        return sum(_size(v) for v in value)
-    if hasattr(value, "__dataclass_fields__"):
-        return sum(_size(v) for v in vars(value).values())
-    return 1024
-
 
 def cached(cache_key: Hashable, build: Callable[[], Any]) -> Any:
     """``build()`` once per key while it stays in the cache (concurrent callers wait for it)."""
-    global _bytes
-    with _lock:
-        hit = _cache.get(cache_key)
-        if hit is not None:
-            _cache.move_to_end(cache_key)
-            return hit[0]
-        gate = _building.setdefault(cache_key, threading.Lock())
-    with gate:
-        try:
-            with _lock:
-                hit = _cache.get(cache_key)
-                if hit is not None:
-                    return hit[0]
-            value = build()
-            size = _size(value)
-            with _lock:
-                _cache[cache_key] = (value, size)
-                _bytes += size
-                while _bytes > CACHE_BYTES and len(_cache) > 1:
-                    _, (_, old) = _cache.popitem(last=False)
-                    _bytes -= old
-        finally:
-            with _lock:
-                _building.pop(cache_key, None)
-    return value
+    return ranking_cache.get(cache_key, build)
 
 
 def clear_cache() -> None:
-    global _bytes
-    with _lock:
-        _cache.clear()
-        _bytes = 0
+    """Forget every cached ranking array (tests)."""
+    ranking_cache.clear()

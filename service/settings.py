@@ -102,7 +102,7 @@ class Settings(BaseSettings):
     rate_limit_per_second: float = 50.0
     rate_limit_burst: int = 200
 
-    # -- Operations (issue 8): logs, metrics, job time limits -------------------------
+    # -- Operations: logs, metrics, job time limits ------------------------------------
     # See service/api/middleware/ and service/metrics.py. The rate limit above is
     # per API process; 0 turns it off.
     log_level: str = Field(default="INFO", description="Level of the bellwether.* loggers.")
@@ -123,13 +123,27 @@ class Settings(BaseSettings):
         default_factory=dict, description='Per-kind run time limits in seconds (JSON, e.g. {"profile": 600}).'
     )
 
-    # -- Hard edges (issue 13): per-job memory limit -----------------------------------
+    # -- Per-job memory limit ---------------------------------------------------------
     job_memory_limit_bytes: int | None = Field(
         default=None, ge=1,
         description="Largest estimated peak memory of one job; past it the POST is refused and a "
         "running job stops (too-expensive). Default: half the machine's memory (the smaller of "
         "physical memory and the cgroup limit) divided by the number of workers of `serve`.",
     )
+
+    # -- Per-process caches (service/caches.py) ---------------------------------------
+    cache_bytes: int = Field(
+        default=2 * GiB, ge=0,
+        description="Memory each process (the API, every worker) may keep for derived structures "
+        "of graph versions and results (loaded graphs, recommendation indexes, diffusion arrays, "
+        "ranking arrays), all caches together; least recently used go first. 0 keeps nothing.",
+    )
+    # Why 2 GiB: it holds every cached structure of a graph of about 25 million arcs, at about
+    # 84 bytes an arc (16 for the loaded graph, 26 for one set of diffusion arrays, 42 for the
+    # recommendation index, as measured by tests/bench/bench_memory.py on com-DBLP; see
+    # service/jobs/admission.py), so repeat requests on a large version do not reload it, and
+    # it leaves most of an 8 GiB machine to the jobs themselves. Lower it when many workers
+    # share a small machine: each process has its own caches.
 
     def job_memory_limit(self, workers: int = 1) -> int:
         """The per-job memory limit in bytes: the setting, else the default rule above."""

@@ -122,3 +122,33 @@ def test_problem_types_are_built_in_one_place() -> None:
         if "/problems/" in s
     ]
     assert not bad, "\n".join(bad)
+
+
+def _runtime_imports(path: Path) -> set[str]:
+    """Imports outside ``if TYPE_CHECKING:`` blocks and outside functions."""
+    tree = ast.parse(path.read_text(encoding="utf-8"))
+    names: set[str] = set()
+    for node in tree.body:
+        if isinstance(node, ast.Import):
+            names.update(a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom) and not node.level:
+            names.add(node.module or "")
+    return names
+
+
+def test_the_cache_roof_imports_only_the_standard_library_and_numpy() -> None:
+    # service/caches.py sits under loader, indexes, diffusion_cache and rankings: it must
+    # import none of them (or the database, HTTP or settings) when it is loaded.
+    allowed_top = {"__future__", "dataclasses", "threading", "collections", "concurrent", "typing", "numpy"}
+    bad = sorted(n for n in _runtime_imports(ROOT / "service/caches.py") if n.split(".")[0] not in allowed_top)
+    assert not bad, bad
+
+
+@pytest.mark.parametrize("module", ["loader", "indexes", "diffusion_cache", "rankings"])
+def test_per_process_caches_live_under_the_one_roof(module: str) -> None:
+    # A cache is a NamedCache of service.caches (one store, one byte bound), never a module's
+    # own dictionary and lock.
+    names = imports_of(ROOT / f"service/{module}.py")
+    assert "service.caches" in names
+    text = (ROOT / f"service/{module}.py").read_text(encoding="utf-8")
+    assert "OrderedDict" not in text and "lru_cache" not in text

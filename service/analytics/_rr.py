@@ -55,7 +55,8 @@ _MARK32_LIMIT = 2**31 - 2
 # with several sets in flight (service.analytics._rr_lanes). Measured with weighted
 # cascade, kernel time, lanes against one set at a time, IC then LT: 0.63 and 0.68 on
 # ca-GrQc (0.2 MiB, in cache), 1.35 and 3.86 on soc-Slashdot0902 (4.8 MiB), 1.89 and
-# 2.18 on com-DBLP (9.2 MiB). 1 MiB is this machine's L2 cache per core.
+# 2.18 on com-DBLP (9.2 MiB). 1 MiB is the per-core L2 cache of the 2-core machine these
+# were measured on: a graph that fits there gains nothing from lanes (ca-GrQc above).
 LANES_MIN_BYTES = 1 << 20
 
 

@@ -147,7 +147,7 @@ def rule_notes(rules: Rules) -> list[str]:
         notes.append("ratio is to the best set that contains the must-include people")
     if rules.caps_left is not None:
         notes.append("segment caps form a partition matroid; greedy is 1/2-approximate "
-                     "(Fisher, Nemhauser, Wolsey 1978; from memory)")
+                     "(Fisher, Nemhauser, Wolsey 1978)")
     if rules.budget_left is not None:
         notes.append("cost budget: the better of benefit/cost greedy and unit greedy; "
                      "0.405-approximate (K. Tang et al. 2021, arXiv 2008.05391)")

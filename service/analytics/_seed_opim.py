@@ -25,8 +25,8 @@ from .graph import DiffusionGraph
 __all__ = ["opim_seeds"]
 
 
-# Provenance (OPIM-C, Tang, Tang, Xiao, Yuan 2018; paper text not reachable
-# here): the two bound formulas below are re-derived from the Chernoff bounds
+# Provenance (OPIM-C, Tang, Tang, Xiao, Yuan 2018; not checked against the full
+# paper text): the two bound formulas below are re-derived from the Chernoff bounds
 # in their docstrings and match the form remembered from the paper; theta_max,
 # theta_0 = theta_max eps^2 k / n, the 6/delta and 3 i_max / delta split of
 # the failure probability are from memory. Departure: i_max is one more than

@@ -124,9 +124,8 @@ def rr_estimate(
 
 # ---------------------------------------------------------------- IMM
 
-# Provenance of IMM's formulas. The stored copies the search tool reaches gave
-# only the abstracts and first pages of Tang, Shi, Xiao (2015) and Chen (2018),
-# so none of the following could be checked against the paper text:
+# Provenance of IMM's formulas (Tang, Shi, Xiao 2015; Chen 2018). None of the
+# following has been checked against the full paper text:
 # - lambda* = 2n((1-1/e) alpha + beta)^2 / eps^2 with alpha, beta (Eq. 6): from
 #   memory, the same form as REFERENCES.md (itself marked "from memory");
 # - lambda' = (2 + 2/3 eps')(ln C(n,k) + l ln n + ln log2 n) n / eps'^2 with

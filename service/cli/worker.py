@@ -26,6 +26,7 @@ from pathlib import Path
 from types import FrameType
 from typing import Any
 
+from service.caches import set_max_bytes as set_cache_bytes
 from service.jobs.tasks.forecast import warm_kernels
 from service.jobs.worker import Worker, WorkerConfig, give_back_jobs
 from service.logs import configure_logging
@@ -46,6 +47,7 @@ KILL_MARGIN_SECONDS = 1.0
 def run_worker(settings: Settings, *, install_signals: bool = True) -> None:
     """Run one worker until SIGTERM/SIGINT (or, when started by a supervisor, its exit)."""
     configure_logging(settings.log_level, settings.log_format)
+    set_cache_bytes(settings.cache_bytes)
     settings.data_dir.mkdir(parents=True, exist_ok=True)
     engine = make_engine(settings.resolved_database_url())
     worker = Worker(make_sessionmaker(engine), WorkerConfig.from_settings(settings))

@@ -124,7 +124,9 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
     target = 4
     while True:  # doubling, so a stop leaves at most twice PILOT_MAX_ENTRIES in the store
         coll.extend_to(target)
-        if target >= PILOT_SETS or coll.seconds > 0.5 or coll.entries > PILOT_MAX_ENTRIES:
+        # At least 64 sets before the clock may stop it: the first pilot in a process also
+        # pays for compiling the sampler, and a mean over a handful of sets varies too much.
+        if target >= PILOT_SETS or (target >= 64 and coll.seconds > 0.5) or coll.entries > PILOT_MAX_ENTRIES:
             break
         target = min(2 * target, PILOT_SETS)
     return coll.entries / max(coll.count, 1)

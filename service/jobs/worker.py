@@ -80,12 +80,12 @@ class WorkerConfig:
     retry: RetryPolicy = field(default_factory=RetryPolicy)
     delivery: webhooks.DeliveryPolicy = field(default_factory=webhooks.DeliveryPolicy)
     kind_modules: tuple[str, ...] = ()
-    # Operations (issue 8): run time limits, and a /metrics port of the worker's own.
+    # Run time limits, and a /metrics port of the worker's own.
     timeout_seconds: float = 6 * 3600.0
     kind_timeouts: dict[str, float] = field(default_factory=dict)
     metrics_port: int | None = None
     metrics_host: str = "127.0.0.1"
-    # Hard edges (issue 13): the per-job memory limit in bytes (None: none).
+    # The per-job memory limit in bytes (None: none).
     memory_limit_bytes: int | None = None
 
     def timeout_for(self, kind: str) -> float:

@@ -253,7 +253,7 @@ def test_imm_theta_matches_the_paper_formula():
     # Source: Tang, Shi, Xiao 2015 (SIGMOD), Eq. 6 (lambda*), Algorithm 2
     # (lambda', eps' = sqrt(2) eps, x = n / 2^i, theta_i = lambda' / x) and
     # l <- l (1 + ln 2 / ln n); written out here from memory of the paper
-    # (not looked up: the stored copies searched gave only the abstract).
+    # (not checked against its full text).
     ell2 = ell * (1 + math.log(2) / math.log(n))
     ln_c = math.log(math.comb(n, k))
     alpha = math.sqrt(ell2 * math.log(n) + math.log(2))

@@ -1,6 +1,6 @@
 """Uploads as spreadsheet software saves them: other column names, delimiters and encodings.
 
-Each case used to be a bare 422; now it is read, or refused with the fix spelled out.
+Each case is read, or refused with a problem that spells out the fix (never a bare 422).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """Uploads past the size limits, in every format: 422 naming the line, never a 500, no version left.
 
-Each case is one of the hard edges an upload met before the limits: nesting a
+Each case is an upload that reached an internal error before the limits: nesting a
 thousand deep (RecursionError), 5,000-digit numbers, ids of 100k characters
 and more, labels and values of any length.
 """

@@ -97,7 +97,7 @@ def upload_memory(scale: float) -> None:
     from tests.live import live_server
 
     tmp = Path(tempfile.mkdtemp(prefix="bw-upmem-"))
-    print(f"upload memory, scale {scale:g} (1 = the sizes of the issue)")
+    print(f"upload memory, scale {scale:g} (1 = the full row counts of the module notes)")
     results = []
     for name, fmt, rows, distinct in UPLOAD_CASES:
         rows = max(int(rows * scale), 1000)
@@ -166,7 +166,7 @@ def main() -> None:
         tracemalloc.stop()
         print(f"{name}: {current / n_arcs:.1f} bytes per arc held, {peak / n_arcs:.1f} at peak while building")
         del obj
-    # Peak memory of a forecast (issue goal: <= 2x the CSR arrays plus the per-node results).
+    # Peak memory of a forecast (goal: <= 2x the CSR arrays plus the per-node results).
 
     from service.analytics.forecasts import forecast
 

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 from pydantic import ValidationError
 
+import service.caches as caches
 import service.diffusion_cache as dc
 from service.analytics.errors import InfeasibleRequest, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, NodeAttributes
@@ -134,12 +135,28 @@ def test_cache_builds_once_per_key_and_not_failures(monkeypatch: pytest.MonkeyPa
     assert len(calls) == 7 and all(x is got[0] for x in got)
 
 
-def test_cache_evicts_least_recently_used(monkeypatch: pytest.MonkeyPatch) -> None:
+def test_cache_evicts_least_recently_used() -> None:
     v = diamond()
-    monkeypatch.setattr(dc._cache, "max_bytes", 1)  # every entry is over budget: only the newest stays
-    dc.diffusion_graph_for("v1", v.graph, model="ic", scheme="weighted_cascade")
-    dc.diffusion_graph_for("v2", v.graph, model="ic", scheme="weighted_cascade")
-    assert dc.cache_info().entries == 1
+    one = dc.diffusion_graph_for("v1", v.graph, model="ic", scheme="weighted_cascade")
+    size = dc.cache_info().nbytes
+    bound = caches.store.max_bytes
+    try:
+        caches.clear_all()
+        caches.set_max_bytes(size + size // 2)  # room for one diamond's arrays, not two
+        dc.diffusion_graph_for("v1", v.graph, model="ic", scheme="weighted_cascade")
+        dc.diffusion_graph_for("v2", v.graph, model="ic", scheme="weighted_cascade")
+        assert dc.cache_info().entries == 1
+        builds = dc.cache_info().builds
+        assert dc.diffusion_graph_for("v2", v.graph, model="ic", scheme="weighted_cascade") is not one
+        assert dc.cache_info().builds == builds  # the newer one stayed
+        dc.diffusion_graph_for("v1", v.graph, model="ic", scheme="weighted_cascade")
+        assert dc.cache_info().builds == builds + 1  # the older one went
+        caches.set_max_bytes(size - 1)  # every entry is over the bound: handed out, not kept
+        assert dc.cache_info().entries == 0
+        dc.diffusion_graph_for("v1", v.graph, model="ic", scheme="weighted_cascade")
+        assert dc.cache_info().entries == 0
+    finally:
+        caches.set_max_bytes(bound)
 
 
 def test_run_on_a_cached_graph_does_not_rebuild(monkeypatch: pytest.MonkeyPatch) -> None:

@@ -102,7 +102,7 @@ def request_kwargs(method: str, template: str, ids: dict[str, str]) -> dict[str,
 
 
 def test_scope_table_matches_the_issue() -> None:
-    # Issue 8: admin manages keys, webhooks and schedules; reads need read, writes need write.
+    # Admin manages keys, webhooks and schedules; reads need read, writes need write.
     assert set(ADMIN_PREFIXES) >= {"/v1/webhooks", "/v1/schedules", "/v1/keys"}
     assert required_scope("GET", "/v1/graphs/g") == "read"
     assert required_scope("DELETE", "/v1/graphs/g") == "write"
