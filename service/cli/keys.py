@@ -77,6 +77,10 @@ def run_keys(settings: Settings, args: argparse.Namespace) -> int:
                 )
                 db.commit()
                 print(f"created key {key.id} for tenant {key.tenant_id} with scopes {key.scopes}")
+                # A key lives in one database: say which, so a server started elsewhere is no surprise.
+                where = url.split("@")[-1] if not is_sqlite(url) else url.removeprefix("sqlite:///")
+                print(f"stored in {where}; a server must use the same database (BELLWETHER_DATA_DIR or "
+                      "BELLWETHER_DATABASE_URL) to accept it")
                 print("store it now: it is shown only once")
                 print(plain)
                 return 0
