@@ -33,7 +33,8 @@ from urllib.parse import urlsplit
 
 from .errors import UnsafeWebhookUrl
 
-__all__ = ["Resolver", "CheckedUrl", "check_url", "embedded_ipv4", "refusal_reason"]
+__all__ = [
+    "Resolver", "CheckedUrl", "check_url", "embedded_ipv4", "refusal_reason", "refused_form"]
 
 Resolver = Callable[[str, int], list[str]]
 
@@ -129,6 +130,34 @@ def _is_loopback(ip: IPAddress) -> bool:
     if wrapped is not None and wrapped[0] in ("an IPv4-mapped address", "an IPv4-compatible address"):
         return all(v4.is_loopback for v4 in wrapped[1])
     return ip.is_loopback
+
+
+def refused_form(url: str) -> UnsafeWebhookUrl | None:
+    """The refusal for a URL that names port 0 or an IPv6 address literal (None for other URLs).
+
+    Webhook URLs name their host by a domain name, whose addresses are checked when it
+    resolves; an IPv6 literal is refused, with why when it wraps a refused IPv4 address.
+    """
+    try:
+        parts = urlsplit(url)
+        port = parts.port
+    except ValueError:
+        return None
+    if port == 0:
+        return UnsafeWebhookUrl("port 0 cannot be connected to; name a port from 1 to 65535", field="url")
+    host = parts.hostname or ""
+    if ":" not in host:
+        return None
+    try:
+        ip = ipaddress.ip_address(host.split("%", 1)[0])
+    except ValueError:
+        return None
+    why = refusal_reason(ip)
+    if why is not None:
+        return UnsafeWebhookUrl(f"{ip} is {why}; webhooks may only reach public addresses", field="url",
+                                address=str(ip))
+    return UnsafeWebhookUrl(f"{ip} is an IPv6 address; name the receiver's host by its domain name "
+                            "(its addresses are checked when it resolves)", field="url", address=str(ip))
 
 
 def check_url(url: str, *, allow_loopback: bool = False, resolve: Resolver | None = None) -> CheckedUrl:

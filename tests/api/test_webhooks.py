@@ -162,3 +162,16 @@ async def test_job_success_is_delivered_signed_after_a_500(client) -> None:  # t
     assert headers["webhook-id"] == d["id"] == receiver.requests[0][0]["webhook-id"]
     assert event["event"] == "job.succeeded" and event["id"] == d["id"]
     assert event["data"]["job"]["id"] == jid and event["data"]["job"]["result_url"] == f"/v1/jobs/{jid}/result"
+
+
+async def test_url_outside_the_declared_form_is_refused_with_why(client) -> None:  # type: ignore[no-untyped-def]
+    # The document declares the URL form (host name, port 1 to 65535), and the service refuses
+    # exactly what falls outside it: an IPv6 literal even when public (2001:4860:4860::8888 is a
+    # public resolver's address, from memory; any global address serves), and a URL that is no URL.
+    doc = (await client.get("/openapi.json")).json()
+    assert doc["components"]["schemas"]["WebhookCreate"]["properties"]["url"]["pattern"].startswith("^https?://")
+    r = await client.post("/v1/webhooks", json={"url": "https://[2001:4860:4860::8888]/h", "events": ["job.failed"]})
+    body = assert_problem(r, 422, "unsafe-webhook-url")
+    assert "name the receiver's host by its domain name" in body["detail"] and body["address"] == "2001:4860:4860::8888"
+    r = await client.post("/v1/webhooks", json={"url": "https://exa mple.com/h", "events": ["job.failed"]})
+    assert "absolute http(s) URL" in assert_problem(r, 422, "validation-error")["detail"]

@@ -2,11 +2,14 @@
 
 from __future__ import annotations
 
+import re
+
 from datetime import datetime
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, field_validator
 
+from service.jobs.webhook_urls import refused_form
 from service.jobs.webhooks import check_secret
 
 from .common import Page
@@ -25,10 +28,11 @@ __all__ = [
 
 MAX_OVERLAP_SECONDS = 7 * 24 * 3600
 
-#: An absolute URL: scheme, a host name or a bracketed IPv6 address, a port, a path. The
-#: address and port are judged when the host resolves, so that a refusal can say why (an IPv6
-#: address wrapping a private IPv4 one, port 0): the pattern only keeps out what is no URL.
-URL_PATTERN = r"^https?://([A-Za-z0-9.-]+|\[[0-9A-Fa-f:.]+\])(:[0-9]{1,5})?(/[!-~]*)?$"
+_PORT = r"([1-9][0-9]{0,3}|[1-5][0-9]{4}|6[0-4][0-9]{3}|65[0-4][0-9]{2}|655[0-2][0-9]|6553[0-5])"
+#: An absolute URL: scheme, host name, a port (1 to 65535), a path; the addresses are checked when
+#: the host resolves. The document declares exactly this; a URL outside it is refused, and one that
+#: names an IPv6 address or port 0 is refused with the reason (see ``_url_form``).
+URL_PATTERN = r"^https?://[A-Za-z0-9.-]+(:" + _PORT + r")?(/[!-~]*)?$"
 
 WebhookEvent = Literal["job.succeeded", "job.failed", "job.cancelled"]
 
@@ -37,7 +41,8 @@ class WebhookCreate(BaseModel):
     model_config = ConfigDict(extra="forbid", strict=True)  # JSON types as declared: 0 is no boolean
 
     url: str = Field(
-        min_length=1, max_length=2000, pattern=URL_PATTERN, examples=["https://crm.example.com/hooks/bellwether"],
+        min_length=1, max_length=2000, json_schema_extra={"pattern": URL_PATTERN},
+        examples=["https://crm.example.com/hooks/bellwether"],
         description="An https URL whose host resolves to public addresses only (http is accepted only "
         "for loopback hosts, on servers that allow them).",
     )
@@ -51,6 +56,16 @@ class WebhookCreate(BaseModel):
         "generated when omitted.",
     )
     description: str | None = Field(default=None, max_length=500)
+
+    @field_validator("url")
+    @classmethod
+    def _url_form(cls, value: str) -> str:
+        if re.fullmatch(URL_PATTERN, value):
+            return value
+        refused = refused_form(value)  # an IPv6 address or port 0: say which and why
+        if refused is not None:
+            raise refused
+        raise ValueError("give an absolute http(s) URL: a host name, an optional port from 1 to 65535 and a path")
 
     @field_validator("secret")
     @classmethod
