@@ -123,6 +123,10 @@ class ForecastResult:
     random_seed: int
     stream_key: int
     outcome_histogram: dict[str, list[float] | list[int]] | None = None
+    #: People reached (summed node values, with weights) in each simulated campaign, in index
+    #: order. Campaign ``i`` is the same world for every set, so two sets compare pairwise on
+    #: their first common campaigns (:func:`service.analytics.paired.paired_interval`).
+    per_run: NDArray[np.float64] | None = None
 
 
 def forecast(
@@ -356,6 +360,7 @@ def _summarise(res: K.ChunkResult, seeds: NDArray[np.int32], reason: str, z: flo
         random_seed=random_seed,
         stream_key=key,
         outcome_histogram=outcome_histogram(res.reach),
+        per_run=np.asarray(res.weighted if weighted else res.reach, dtype=np.float64),
     )
 
 

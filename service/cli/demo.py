@@ -327,6 +327,8 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
             rows)
     d.say("The interval says how sure the model is of the average; the spread of outcomes says what one\n"
           "campaign may actually see: plan with the spread.")
+    for pair in (fdata.get("comparison") or {}).get("pairs", []):
+        d.say(_wrap("On the same simulated campaigns: " + pair["verdict"]))
     if best_name in forecasts:
         ours = {x["segment"]: x["expected"] for x in forecasts["optimised shortlist"].get("segment_reach", [])}
         theirs = {x["segment"]: x["expected"] for x in forecasts[best_name].get("segment_reach", [])}

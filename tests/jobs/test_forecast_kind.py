@@ -3,7 +3,6 @@ the diffusion-graph cache and the result document (no HTTP, no database)."""
 
 from __future__ import annotations
 
-import math
 import threading
 from typing import Any
 
@@ -207,18 +206,28 @@ def test_target_weights() -> None:
         F.prepare(F.ForecastParams.model_validate({"seeds": ["s"], "weights": "value"}), diamond())
 
 
-def test_comparison_interval() -> None:
-    rows = [{"name": "a", "expected_reach": {"mean": 10.0, "stderr": 0.3}},
-            {"name": "b", "expected_reach": {"mean": 9.0, "stderr": 0.4}}]
-    cmp = F._comparison(rows, 0.95, targeted=False)
+def test_comparison_is_paired_campaign_by_campaign() -> None:
+    from types import SimpleNamespace
+
+    from scipy import stats
+
+    rng = np.random.default_rng(4)
+    b = rng.poisson(9.0, size=400).astype(float)
+    a = b + rng.integers(0, 3, size=400)  # a reaches 0 to 2 more in every campaign
+    rows = [{"name": "a", "expected_reach": {"mean": a.mean()}}, {"name": "b", "expected_reach": {"mean": b.mean()}}]
+    results = {"a": SimpleNamespace(per_run=a), "b": SimpleNamespace(per_run=b[:300])}  # b stopped earlier
+    cmp = F._comparison(rows, results, 0.95, targeted=False)  # type: ignore[arg-type]
     (pair,) = cmp["pairs"]
-    # Source: closed form: independent means, se = sqrt(0.3^2 + 0.4^2) = 0.5, z_0.975 = 1.959964.
-    assert pair["stderr"] == pytest.approx(0.5) and pair["ci_low"] == pytest.approx(1 - 1.959964 * 0.5, rel=1e-6)
+    # Source: SciPy, the paired t interval on the first 300 common campaigns (scipy.stats.ttest_rel).
+    ci = stats.ttest_rel(a[:300], b[:300]).confidence_interval(0.95)
+    assert pair["paired_campaigns"] == 300 and pair["difference"] == pytest.approx((a[:300] - b[:300]).mean())
+    assert (pair["ci_low"], pair["ci_high"]) == pytest.approx((ci.low, ci.high))
     assert pair["clearly_different"] is True and cmp["ranking"] == ["a", "b"]
-    rows[1]["expected_reach"]["mean"] = 9.5
-    assert F._comparison(rows, 0.95, targeted=False)["pairs"][0]["clearly_different"] is False
-    assert math.isclose(F._comparison(rows, 0.5, targeted=False)["pairs"][0]["ci_high"], 0.5 + 0.6744898 * 0.5,
-                        rel_tol=1e-6)
+    assert pair["verdict"].startswith("'a' reaches 1 more people than 'b' (95% interval")
+    same = {"a": SimpleNamespace(per_run=b), "b": SimpleNamespace(per_run=b)}
+    (tie,) = F._comparison(rows, same, 0.95, targeted=False)["pairs"]  # type: ignore[arg-type]
+    assert tie["difference"] == 0 and tie["clearly_different"] is False
+    assert tie["verdict"].startswith("No clear difference between 'a' and 'b'")
 
 
 def test_precheck_skips_large_versions() -> None:

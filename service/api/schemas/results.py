@@ -239,6 +239,8 @@ class ComparisonPair(_Open):
     ci_low: float
     ci_high: float
     clearly_different: bool
+    paired_campaigns: int | None = Field(default=None, description="Simulated campaigns the two sets share.")
+    verdict: str | None = Field(default=None, description="The difference in plain words.")
 
 
 class Comparison(_Open):
