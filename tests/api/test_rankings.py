@@ -469,7 +469,7 @@ async def test_new_person_or_attribute_based_scores_are_not_reused(client) -> No
 
 
 async def test_first_opt_out_on_a_graph_without_consent_data(client) -> None:  # type: ignore[no-untyped-def]
-    # The brief's sequence on edges alone: everyone is contactable until consent data arrives;
+    # Edges alone at first: everyone is contactable until consent data arrives;
     # from the first opt-out on, only an explicit yes counts, and the upload says so.
     G = karate()
     r = await client.post("/v1/graphs", json={"name": "karate", "directed": False})
