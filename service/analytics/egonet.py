@@ -363,7 +363,7 @@ def oddball(
         denser than the law their contacts' ego networks are, each contact
         weighted by the number of contacts the two share (see Notes), so a
         whole ring rises together. People below the line keep their own
-        score either way.
+        score either way (with ``lof=True`` LOF then counts only for them).
     features : EgoFeatures, optional
         Precomputed features of ``g`` (skips :func:`ego_features`).
     progress : callable(fraction, message), optional
