@@ -243,42 +243,124 @@ def _rank(scores: np.ndarray, members: np.ndarray) -> tuple[float, float]:
     return precision_at_k(scores[m], scores[~m], int(m.sum())), auc(scores[m], scores[~m])
 
 
+def _planted_figures(name: str) -> dict[str, tuple[float, float]]:
+    """(precision at the number injected, AUC) of each score on one planted graph (seed 1)."""
+    g0, _ = snap_graph(name, directed=False)
+    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
+    out: dict[str, tuple[float, float]] = {}
+    for ring_score in ("own", "shared-contacts"):
+        r = oddball(g, ring_score=ring_score)
+        up = np.where(r.side == 1, r.score, 0.0)
+        down = np.where(r.side == -1, r.score, 0.0)
+        out[f"{ring_score} rings>=20"] = _rank(up, np.concatenate(rings[1:]))
+        out[f"{ring_score} ring of 10"] = _rank(up, rings[0])
+        out[f"{ring_score} stars"] = _rank(down, centres)
+        if ring_score == "shared-contacts":
+            planted = np.zeros(g.n, bool)
+            planted[np.concatenate(rings)] = True
+            top = np.argsort(-up, kind="stable")[:90]
+            n_, e_ = r.features.neighbours[top], r.features.edges[top]
+            density = (e_ - n_) / np.maximum(n_ * (n_ - 1) / 2, 1)
+            out["top 90 unplanted, median ego density"] = (float((~planted[top]).sum()),
+                                                            float(np.median(density)))
+    for key, (a, b) in out.items():
+        if key.startswith("top"):
+            print(f"{name} top 90 near-cliques: {a:.0f} unplanted, median ego density {b:.3f}")
+        else:
+            print(f"{name} {key}: precision {a:.3f}, AUC {b:.3f}")
+    return out
+
+
 @pytest.mark.shared
 @pytest.mark.slow
 def test_planted_rings_and_stars_in_email_enron() -> None:
     # Source: planted anomalies in the open email-Enron graph (seed 1): rings of 10, 20, 30,
     # 40 random people (pairs tied with p = 0.9) and 5 stars of 150 random invitees.
-    # Measured: rings >= 20 precision 0.678 at 90 (below the 0.9 goal), AUC 0.971;
-    # ring of 10 AUC 0.67; star centres precision 0.4 at 5, AUC 0.9999.
-    g0, _ = snap_graph("email-Enron", directed=False)
-    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
-    r = oddball(g)
-    up = np.where(r.side == 1, r.score, 0.0)
-    down = np.where(r.side == -1, r.score, 0.0)
-    prec, area = _rank(up, np.concatenate(rings[1:]))
-    assert prec >= 0.6 and area >= 0.95
-    _, area = _rank(down, centres)
-    assert area >= 0.99
+    # Measured, precision at the number injected (90 for rings >= 20, 10, 5) and AUC:
+    #   own out-line score:   rings >= 20 0.678, 0.971; ring of 10 0.000, 0.669
+    #   shared-contacts:      rings >= 20 0.956, 0.978; ring of 10 0.000, 0.706
+    #   star centres (both):  0.400, 1.000 (AUC 0.99992)
+    # Seeds 2 and 3 give 0.589 / 0.633 (own) and 0.956 / 0.956 (shared-contacts) at 90.
+    f = _planted_figures("email-Enron")
+    prec, area = f["own rings>=20"]
+    assert prec == pytest.approx(0.678, abs=0.001) and area == pytest.approx(0.971, abs=0.001)
+    prec, area = f["shared-contacts rings>=20"]
+    assert prec >= 0.9  # the goal for rings of 20 or more
+    assert prec == pytest.approx(0.956, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
+    assert f["shared-contacts ring of 10"][1] > f["own ring of 10"][1]
+    assert f["shared-contacts stars"] == f["own stars"]
+    assert f["own stars"][1] >= 0.99
 
 
 @pytest.mark.shared
 @pytest.mark.slow
 def test_planted_rings_and_stars_in_ca_grqc() -> None:
     # Source: planted anomalies in the open ca-GrQc graph (seed 1), as for email-Enron.
-    # Measured: star centres precision 1.0 at 5; rings >= 20 AUC 0.943 but precision 0.0
-    # at 90: the co-authorship graph's own author cliques (papers with 40-47 authors, 99%
-    # of possible ties) are more clique-like than a planted ring at p = 0.9 and rank first.
-    g0, _ = snap_graph("ca-GrQc", directed=False)
-    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
-    r = oddball(g)
-    up = np.where(r.side == 1, r.score, 0.0)
-    down = np.where(r.side == -1, r.score, 0.0)
-    prec, _ = _rank(down, centres)
-    assert prec == 1.0
-    _, area = _rank(up, np.concatenate(rings[1:]))
-    assert area >= 0.9
-    top = r.near_cliques[0]
-    assert top.edges - top.neighbours >= 0.95 * top.neighbours * (top.neighbours - 1) / 2
+    # Measured, precision at the number injected and AUC:
+    #   own out-line score:   rings >= 20 0.000, 0.943; ring of 10 0.000, 0.659
+    #   shared-contacts:      rings >= 20 0.000, 0.937; ring of 10 0.000, 0.644
+    #   star centres (both):  1.000, 1.000
+    # The goal is not met here, and honestly cannot be by density above the law: of the
+    # top 90 near-cliques 89 are unplanted, with median ego density 0.989 - authors of
+    # papers with 40-47 authors, real near-complete groups - while a planted ring's
+    # members have median ego density 0.61-0.78 (ties at p = 0.9 plus their own contacts).
+    f = _planted_figures("ca-GrQc")
+    assert f["own stars"] == (1.0, 1.0) and f["shared-contacts stars"] == (1.0, 1.0)
+    prec, area = f["own rings>=20"]
+    assert prec == 0.0 and area == pytest.approx(0.943, abs=0.001)
+    prec, area = f["shared-contacts rings>=20"]
+    assert prec == 0.0 and area == pytest.approx(0.937, abs=0.001)
+    unplanted, density = f["top 90 unplanted, median ego density"]
+    assert unplanted == 89 and density >= 0.98
+
+
+def test_shared_contact_mean_matches_networkx() -> None:
+    # Source: NetworkX common neighbours of each tie (its triangle count), computed here:
+    # r_i = sum_j t_ij v_j / sum_j t_ij, and 0 for a person on no triangle.
+    from service.analytics.egonet import _shared_contact_mean
+
+    G = nx.gnp_random_graph(80, 0.1, seed=9)
+    G.add_edge(80, 0)  # a pendant person: no triangle
+    values = np.random.default_rng(9).uniform(0, 3, 81)
+    src, dst = zip(*G.edges)
+    got = _shared_contact_mean(arrays(src, dst, n=81), values)
+    for i in G.nodes:
+        t = {j: len(list(nx.common_neighbors(G, i, j))) for j in G[i]}
+        total = sum(t.values())
+        want = sum(t[j] * values[j] for j in t) / total if total else 0.0
+        assert got[i] == pytest.approx(want, rel=1e-12, abs=1e-15)
+    assert got[80] == 0.0
+
+
+def test_ring_score_lifts_the_whole_ring_and_leaves_the_rest() -> None:
+    # Source: planted structure (the clique of 12 and the star of 150 in _ring_graph); the
+    # ring score is the triangle-weighted mean of log(E / C N^alpha) over contacts above
+    # the line, written out here from the returned fit and features.
+    g, ring = _ring_graph()
+    plain = oddball(g)
+    r = oddball(g, ring_score="shared-contacts")
+    assert {p.node for p in r.near_cliques[:12]} == set(ring.tolist())
+    assert r.near_stars == plain.near_stars
+    below = r.side != 1
+    assert np.array_equal(r.score[below], plain.score[below])
+    assert r.law_scores["E~N"] == pytest.approx(plain.law_scores["E~N"])
+    fit = r.fits[0]
+    n_, e_ = r.features.neighbours.astype(float), r.features.edges.astype(float)
+    above = np.where(r.side == 1, np.log(e_ / (fit.constant * n_**fit.exponent)), 0.0)
+    G = nx.Graph(zip(g.src.tolist(), g.dst.tolist()))
+
+    def mean_over_contacts(k: int) -> float:
+        t = {j: len(list(nx.common_neighbors(G, k, j))) for j in G[k]}
+        total = sum(t.values())
+        return sum(t[j] * above[j] for j in t) / total if total else 0.0
+
+    raw = {k: mean_over_contacts(k) for k in np.flatnonzero(r.side == 1).tolist()}
+    peak = max(raw.values())
+    for k in ring.tolist() + [p.node for p in r.near_cliques[12:20]]:
+        assert r.score[k] == pytest.approx(raw[k] / peak, rel=1e-9)
+    with pytest.raises(InvalidParameter) as err:
+        oddball(g, ring_score="group")
+    assert err.value.data["allowed"] == ["own", "shared-contacts"]
 
 
 def test_evidence_sentence() -> None:
