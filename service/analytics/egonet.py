@@ -25,6 +25,7 @@ __all__ = [
     "LawFit",
     "OddballResult",
     "OddPerson",
+    "RING_SCORES",
     "ego_features",
     "lof_scores",
     "oddball",
