@@ -46,7 +46,7 @@ from __future__ import annotations
 import math
 import os
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from typing import NamedTuple
 
@@ -68,6 +68,7 @@ __all__ = [
     "run_chunk",
     "run_one",
     "simulate",
+    "split_runs",
     "merge",
     "mean_var",
 ]
@@ -470,17 +471,35 @@ def simulate(
     track_nodes: bool = True,
     threads: int | None = None,
 ) -> ChunkResult:
-    """Runs ``run0 .. run0 + nruns - 1`` of stream ``key``, merged.
+    """Runs ``run0 .. run0 + nruns - 1`` of stream ``key``, merged (see :func:`split_runs`)."""
+    return split_runs(run_chunk, kg, seeds, key, run0, nruns, horizon, weights,
+                      track_nodes=track_nodes, threads=threads)
+
+
+def split_runs(
+    chunk: Callable[..., ChunkResult],
+    kg: KernelGraph,
+    seeds: NDArray[np.int32],
+    key: int,
+    run0: int,
+    nruns: int,
+    horizon: int,
+    weights: NDArray[np.float64],
+    *,
+    track_nodes: bool = True,
+    threads: int | None = None,
+) -> ChunkResult:
+    """Runs ``run0 .. run0 + nruns - 1`` of ``chunk`` (a ``run_chunk``), merged.
 
     A serial pilot of a few runs measures the cost; when the rest would take
     more than a few milliseconds it is split into contiguous chunks run in
     threads (the kernels release the GIL). The merged result is identical
     whatever the split, because each run's numbers depend only on its index
-    and all accumulators are integers.
+    and all accumulators are integers. The world kernels use the same split.
     """
     pilot = min(nruns, _PILOT_RUNS)
     t0 = time.perf_counter()
-    parts = [run_chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
+    parts = [chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
     elapsed = time.perf_counter() - t0
     rest = nruns - pilot
     if rest:
@@ -492,11 +511,11 @@ def simulate(
             bounds = np.linspace(run0 + pilot, run0 + nruns, nthreads + 1).astype(np.int64).tolist()
         jobs = [(int(a), int(b - a)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
         if len(jobs) == 1:
-            parts.append(run_chunk(kg, seeds, key, jobs[0][0], jobs[0][1], horizon, weights,
-                                     track_nodes=track_nodes))
+            parts.append(chunk(kg, seeds, key, jobs[0][0], jobs[0][1], horizon, weights,
+                               track_nodes=track_nodes))
         else:
             pool = _pool()
-            futures = [pool.submit(run_chunk, kg, seeds, key, a, c, horizon, weights,
+            futures = [pool.submit(chunk, kg, seeds, key, a, c, horizon, weights,
                                    track_nodes=track_nodes) for a, c in jobs]
             parts.extend(f.result() for f in futures)
     return merge(parts)

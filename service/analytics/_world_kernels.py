@@ -35,28 +35,19 @@ a fixed function of the graph, so the worlds are reproducible from the key.
 from __future__ import annotations
 
 import math
-import os
-import time
-from concurrent.futures import ThreadPoolExecutor
 
-import numba
 import numpy as np
 from numba import njit
 from numpy.typing import NDArray
 
 from ._kernel_graph import KernelGraph
-from ._kernels import ChunkResult, merge
+from ._kernels import ChunkResult, _grow, _max_degree, _run_state, split_runs
 from ._rng import GAMMA, LO32, M1, M2, S11, S27, S30, S31, S32, TWO_M53, mix64, prefetch
 
 __all__ = ["run_chunk", "simulate"]
 
 _VEC_MIN_DEGREE = 32  # as in _kernels
 _PD = 8
-
-
-@njit(cache=True, nogil=True)
-def _run_state(key: np.uint64, run: int) -> np.uint64:
-    return mix64(key ^ mix64(np.uint64(run + 1) * GAMMA))
 
 
 # Node v's numbers in a run are positions (v + 1) * 2**32 + j of the run's SplitMix64
@@ -68,21 +59,6 @@ _STRIDE = np.uint64((0x9E3779B97F4A7C15 << 32) & 0xFFFFFFFFFFFFFFFF)
 @njit(cache=True, nogil=True, inline="always")
 def _node_state(rs: np.uint64, v: int) -> np.uint64:
     return rs + np.uint64(v + 1) * _STRIDE
-
-
-@njit(cache=True, nogil=True)
-def _grow(a, size):  # type: ignore[no-untyped-def]
-    out = np.zeros(max(size, 2 * a.size), a.dtype)
-    out[: a.size] = a
-    return out
-
-
-@njit(cache=True, nogil=True)
-def _max_degree(indptr):  # type: ignore[no-untyped-def]
-    best = 0
-    for v in range(indptr.size - 1):
-        best = max(best, indptr[v + 1] - indptr[v])
-    return best
 
 
 @njit(cache=True, nogil=True)
@@ -331,21 +307,6 @@ def run_chunk(
     return res
 
 
-_POOLS: dict[int, ThreadPoolExecutor] = {}
-_PILOT_RUNS = 16
-_PARALLEL_MIN_SECONDS = 0.003
-
-
-def _pool() -> ThreadPoolExecutor:
-    pid = os.getpid()
-    pool = _POOLS.get(pid)
-    if pool is None:
-        _POOLS.clear()
-        pool = _POOLS[pid] = ThreadPoolExecutor(max_workers=max(1, os.cpu_count() or 1),
-                                                thread_name_prefix="bellwether-worlds")
-    return pool
-
-
 def simulate(
     kg: KernelGraph,
     seeds: NDArray[np.int32],
@@ -360,25 +321,5 @@ def simulate(
 ) -> ChunkResult:
     """Worlds ``run0 .. run0 + nruns - 1`` of ``key``, merged; split over threads as
     :func:`._kernels.simulate` does (the result does not depend on the split)."""
-    pilot = min(nruns, _PILOT_RUNS)
-    t0 = time.perf_counter()
-    parts = [run_chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
-    elapsed = time.perf_counter() - t0
-    rest = nruns - pilot
-    if rest:
-        nthreads = threads if threads is not None else numba.get_num_threads()
-        nthreads = max(1, min(nthreads, rest))
-        if nthreads == 1 or elapsed / pilot * rest < _PARALLEL_MIN_SECONDS:
-            bounds = [run0 + pilot, run0 + nruns]
-        else:
-            bounds = np.linspace(run0 + pilot, run0 + nruns, nthreads + 1).astype(np.int64).tolist()
-        jobs = [(int(a), int(b - a)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
-        if len(jobs) == 1:
-            parts.append(run_chunk(kg, seeds, key, jobs[0][0], jobs[0][1], horizon, weights,
-                                   track_nodes=track_nodes))
-        else:
-            pool = _pool()
-            futures = [pool.submit(run_chunk, kg, seeds, key, a, c, horizon, weights,
-                                   track_nodes=track_nodes) for a, c in jobs]
-            parts.extend(f.result() for f in futures)
-    return merge(parts)
+    return split_runs(run_chunk, kg, seeds, key, run0, nruns, horizon, weights,
+                      track_nodes=track_nodes, threads=threads)
