@@ -27,6 +27,7 @@ from ._em import EmFit
 from ._episodes import (
     Campaign,
     Episodes,
+    Pairs,
     build_episodes,
     bucket_rounds,
     check_campaigns,
@@ -174,6 +175,26 @@ def em_probabilities(
                 prior_strength=prior_strength, tol=tol, max_iter=max_iter)[0]
 
 
+def _credits(g: GraphArrays, campaigns: Sequence[Campaign],
+             window: int) -> tuple[Arcs, Pairs, NDArray[np.float64], NDArray[np.float64]]:
+    """The arcs, their trials, the credited propagations per arc (``v`` adopting within
+    ``window`` rounds after ``u``) and the actions per person, counted once for both of
+    Goyal et al.'s estimators."""
+    if not isinstance(window, (int, np.integer)) or window < 1:
+        raise InvalidParameter(f"window must be a whole number of rounds >= 1, got {window!r}",
+                               field="window")
+    a = arcs(g)
+    cs = check_campaigns(g.n, campaigns)
+    p = gather_pairs(a, cs)
+    gap = p.rv - p.ru
+    credited = (p.rv >= 0) & (gap > 0) & (gap <= window)
+    a2 = np.bincount(p.arc[credited], minlength=a.src.shape[0]).astype(np.float64)
+    acts = np.zeros(g.n)
+    for c in cs:
+        acts[c.node] += 1.0
+    return a, p, a2, acts
+
+
 def goyal_probabilities(
     g: GraphArrays,
     campaigns: Sequence[Campaign],
@@ -226,21 +247,10 @@ def goyal_probabilities(
     if form not in ("bernoulli", "jaccard"):
         raise InvalidParameter(f"unknown form {form!r}; expected bernoulli or jaccard",
                                field="form")
-    if not isinstance(window, (int, np.integer)) or window < 1:
-        raise InvalidParameter(f"window must be a whole number of rounds >= 1, got {window!r}",
-                               field="window")
     if prior is not None and (len(prior) != 2 or min(prior) < 0):
         raise InvalidParameter("prior must be two numbers a, b >= 0", field="prior")
-    a = arcs(g)
-    cs = check_campaigns(g.n, campaigns)
-    p = gather_pairs(a, cs)
+    a, p, a2, acts = _credits(g, campaigns, window)
     m = a.src.shape[0]
-    gap = p.rv - p.ru
-    credited = (p.rv >= 0) & (gap > 0) & (gap <= window)
-    a2 = np.bincount(p.arc[credited], minlength=m).astype(np.float64)
-    acts = np.zeros(g.n)
-    for c in cs:
-        acts[c.node] += 1.0
     denom = acts[a.src]
     if form == "jaccard":
         both = np.bincount(p.arc[p.rv >= 0], minlength=m).astype(np.float64)
@@ -288,19 +298,7 @@ def goyal_lt_weights(
     >>> goyal_lt_weights(g, runs).tolist()
     [0.6666666666666666, 0.3333333333333333]
     """
-    if not isinstance(window, (int, np.integer)) or window < 1:
-        raise InvalidParameter(f"window must be a whole number of rounds >= 1, got {window!r}",
-                               field="window")
-    a = arcs(g)
-    cs = check_campaigns(g.n, campaigns)
-    p = gather_pairs(a, cs)
-    m = a.src.shape[0]
-    gap = p.rv - p.ru
-    credited = (p.rv >= 0) & (gap > 0) & (gap <= window)
-    a2 = np.bincount(p.arc[credited], minlength=m).astype(np.float64)
-    acts = np.zeros(g.n)
-    for c in cs:
-        acts[c.node] += 1.0
+    a, _, a2, acts = _credits(g, campaigns, window)
     credit_in = np.bincount(a.dst, weights=a2, minlength=g.n)
     denom = np.maximum(acts, credit_in)[a.dst]
     out: NDArray[np.float64] = np.where(denom > 0, a2 / np.maximum(denom, 1.0), 0.0)
