@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import io
 import json
+import textwrap
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from html import escape
@@ -296,6 +297,7 @@ def outcomes_svg(
     fig, ax = _figure()
     data: dict[str, Any] = {"edges": list(edges), "series": []}
     single = len(counts) == 1
+    legend_lines = 0
     for i, (name, cs) in enumerate(counts.items()):
         color = PALETTE[i % len(PALETTE)]
         total = float(sum(cs)) or 1.0
@@ -305,6 +307,9 @@ def outcomes_svg(
         if "average" in m and "5th percentile" in m and "95th percentile" in m:
             text = (f"{name}: average {m['average']:,.0f}; 90% of campaigns between "
                     f"{m['5th percentile']:,.0f} and {m['95th percentile']:,.0f}")
+        # Long set names wrap inside the legend instead of running past the figure's edge.
+        text = textwrap.fill(text, 78, subsequent_indent="  ")
+        legend_lines += text.count("\n") + 1
         if single:
             ax.stairs(shares, list(edges), fill=True, color=color, alpha=0.55, label=text)
         else:
@@ -314,7 +319,8 @@ def outcomes_svg(
         data["series"].append({"name": name, "counts": list(cs), "marks": m})
     _thousands(ax, "x")
     ax.set_xlim(edges[0], edges[-1])
-    ax.set_ylim(0, ax.get_ylim()[1] * 1.25)  # room for the legend above the bars
+    # Room for the legend above the bars: more for more legend lines.
+    ax.set_ylim(0, ax.get_ylim()[1] * (1.25 + 0.1 * max(0, legend_lines - len(counts))))
     ax.set_xlabel(f"reach of one campaign ({unit})")
     ax.set_ylabel("share of simulated campaigns (%)")
     ax.set_title(title, loc="left", fontweight="bold")
