@@ -40,7 +40,7 @@ if TYPE_CHECKING:
     from numpy.typing import NDArray
 
     from service.analytics.graph import DiffusionGraph
-    from service.analytics.ties import NeighbourIndex
+    from service.analytics.ties.strength import NeighbourIndex
     from service.loader import LoadedVersion
 
 __all__ = [

@@ -7,7 +7,7 @@ shortlists and next contacts all ask here (through
 :meth:`service.jobs.tasks.diffusion_settings.DiffusionSettings.diffusion_graph`
 or :func:`diffusion_graph_for`), so a second job on the same version and
 settings reuses the arrays; the compiled kernels then find their prepared
-arrays in their own identity cache (``service.analytics._kernels.kernel_graph``).
+arrays in their own identity cache (``service.analytics.diffusion._kernels.kernel_graph``).
 
 The key is ``(version_id, model, scheme, p, q, random_seed)`` where the
 settings a scheme ignores are blanked (``p`` only for uniform, ``q`` only

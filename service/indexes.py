@@ -3,7 +3,7 @@
 A version is immutable, so the structures built from it can be kept and
 shared by every request in the process, like :mod:`service.loader`'s graphs:
 
-- the :class:`~service.analytics.ties.NeighbourIndex` (tie strengths and the
+- the :class:`~service.analytics.ties.strength.NeighbourIndex` (tie strengths and the
   undirected neighbour rows that introductions walk),
 - per-node follow-on measures (degree, PageRank, ...) used to blend next
   contacts.
@@ -32,7 +32,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from service.analytics.graph import GraphArrays
-from service.analytics.ties import NeighbourIndex, neighbour_index
+from service.analytics.ties.strength import NeighbourIndex, neighbour_index
 from service.caches import index_cache, measure_cache
 
 __all__ = [
@@ -83,7 +83,7 @@ def follow_on_for(version_id: str, graph: GraphArrays, measure: str) -> NDArray[
     """One per-node measure of :data:`FOLLOW_ON_MEASURES` (computed once per version)."""
 
     def build() -> NDArray[np.float64]:
-        from service.analytics import centrality
+        from service.analytics.structure import centrality
 
         if measure in ("degree", "in_degree", "out_degree"):
             mode = {"degree": "all", "in_degree": "in", "out_degree": "out"}[measure]

@@ -36,7 +36,7 @@ from numpy.typing import NDArray
 from service import intake
 from service.analytics.errors import EmptyGraph
 from service.analytics.graph import GraphArrays, NodeAttributes
-from service.analytics.summary import graph_summary
+from service.analytics.structure.summary import graph_summary
 from service import upload_report
 from service.intake import merge
 from service.intake.dialect import open_csv

@@ -138,7 +138,7 @@ def community_arrays(
 
     Internal edges are linked pairs inside the community on the undirected
     simple view (reciprocal arcs count once, self-loops not at all), as
-    :func:`service.analytics.communities.community_summary` counts them.
+    :func:`service.analytics.structure.communities.community_summary` counts them.
     """
     mem = np.asarray(membership, dtype=np.int64)
     k = int(mem.max()) + 1 if mem.size else 0

@@ -75,7 +75,29 @@ def test_only_app_and_cli_build_settings() -> None:
     assert not bad, bad
 
 
-@pytest.mark.parametrize("package", ["service.analytics", "service.intake", "storage.models", "service.api.middleware"])
+ANALYTICS_FAMILIES = ["structure", "diffusion", "seeding", "ties", "learning", "events", "integrity"]
+
+
+def test_analytics_is_grouped_by_family() -> None:
+    """No loose algorithm modules: the top of analytics holds only the shared types and helpers."""
+    top = sorted(f.name for f in (ROOT / "service/analytics").glob("*.py"))
+    assert top == ["__init__.py", "_chunks.py", "_rng.py", "errors.py", "graph.py"], top
+    folders = sorted(d.name for d in (ROOT / "service/analytics").iterdir() if d.is_dir() and d.name != "__pycache__")
+    assert folders == sorted(ANALYTICS_FAMILIES)
+
+
+def test_analytics_reexports_every_family() -> None:
+    top = importlib.import_module("service.analytics")
+    for family in ANALYTICS_FAMILIES:
+        pkg = importlib.import_module(f"service.analytics.{family}")
+        missing = set(pkg.__all__) - set(top.__all__)
+        assert not missing, f"service.analytics does not re-export {sorted(missing)} from {family}"
+
+
+@pytest.mark.parametrize(
+    "package",
+    [*(f"service.analytics.{f}" for f in ANALYTICS_FAMILIES), "service.intake", "storage.models", "service.api.middleware"],
+)
 def test_package_reexports_agree_with_modules(package: str) -> None:
     pkg = importlib.import_module(package)
     exported = set(getattr(pkg, "__all__", ()))

@@ -24,8 +24,8 @@ from pydantic import ValidationError
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.analytics.errors import UnknownNode
-from service.analytics.recommend import Recommendation, recommend_for
-from service.analytics.referrals import NextContact, next_contacts, referral_asks
+from service.analytics.ties.recommend import Recommendation, recommend_for
+from service.analytics.ties.referrals import NextContact, next_contacts, referral_asks
 from service.diffusion_cache import diffusion_graph_for
 from service.indexes import compute_pool, follow_on_for, neighbour_index_for
 from service.jobs.errors import ResultNotReady

@@ -30,7 +30,7 @@ from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service import rankings as R
-from service.analytics.centrality import MEASURES
+from service.analytics.structure.centrality import MEASURES
 from service.jobs.errors import ResultNotReady
 from service.loader import load_version
 from service.settings import Settings

@@ -112,7 +112,7 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
         return None
     import numpy as np
 
-    from service.analytics._rr import RRCollection, RRSampler
+    from service.analytics.seeding._rr import RRCollection, RRSampler
     from service.diffusion_cache import diffusion_graph_for
 
     v = load()

@@ -1,4 +1,4 @@
-"""Backbones of projections: disparity filter and SDSM (service/analytics/backbone.py)."""
+"""Backbones of projections: disparity filter and SDSM (service/analytics/events/backbone.py)."""
 
 from __future__ import annotations
 
@@ -10,8 +10,8 @@ import pytest
 from networkx.algorithms import bipartite
 from scipy import integrate, optimize, stats
 
-from service.analytics import _projection_kernels as K
-from service.analytics.backbone import (
+from service.analytics.events import _kernels as K
+from service.analytics.events.backbone import (
     EmptyBackbone,
     adjust_p_values,
     bicm,
@@ -20,7 +20,7 @@ from service.analytics.backbone import (
     sdsm_p_values,
 )
 from service.analytics.errors import InvalidParameter
-from service.analytics.projection import Projection, event_table, project_events, project_table
+from service.analytics.events.projection import Projection, event_table, project_events, project_table
 
 
 def _graph(src, dst, w, n, directed=False):
@@ -327,7 +327,7 @@ def test_grouped_exact_tail_with_large_groups_matches_scipy_binomials():
 
 
 def test_sdsm_bounds_pair_work_and_checks_options():
-    from service.analytics.projection import ProjectionTooLarge
+    from service.analytics.events.projection import ProjectionTooLarge
 
     person = np.concatenate([np.arange(50), [0, 1]])
     event = np.concatenate([np.zeros(50, int), [1, 1]])

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy.stats import mannwhitneyu
 
-from service.analytics.backtest import (
+from service.analytics.learning.backtest import (
     SchemeSummary,
     adoption_auc,
     adoption_log_likelihood,
@@ -19,7 +19,7 @@ from service.analytics.backtest import (
 )
 from service.analytics.errors import InvalidParameter
 from service.analytics.graph import GraphArrays
-from service.analytics.learning import Campaign
+from service.analytics.learning.probabilities import Campaign
 from tests.analytics.test_learning import _email_truth, simulate_campaigns
 
 

@@ -1,4 +1,4 @@
-"""Tests for service.analytics.centrality and .paths: every measure against NetworkX, sampled
+"""Tests for service.analytics.structure.centrality and .paths: every measure against NetworkX, sampled
 betweenness against exact betweenness, and the scores() wrapper."""
 
 from __future__ import annotations
@@ -10,9 +10,9 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from service.analytics import _centrality_kernels as kernels
-from service.analytics import centrality as C
-from service.analytics import paths as P
+from service.analytics.structure import _kernels as kernels
+from service.analytics.structure import centrality as C
+from service.analytics.structure import paths as P
 from service.analytics.errors import Cancelled, ComputationFailed, InvalidParameter
 from service.analytics.graph import GraphArrays, arcs, csr, to_igraph
 from tests.datasets import snap_graph

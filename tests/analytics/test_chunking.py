@@ -17,10 +17,15 @@ from typing import Any
 import numpy as np
 import pytest
 
-from service.analytics import _chunks, _rr, forecasts, linkpred_eval, paths, profile
+from service.analytics import _chunks
+from service.analytics.seeding import _rr
+from service.analytics.diffusion import forecasts
+from service.analytics.ties import evaluation as linkpred_eval
+from service.analytics.structure import paths
+from service.analytics.structure import profile
 from service.analytics._chunks import ChunkSizer, check_memory, memory_limit
-from service.analytics._rr import RRCollection, RRSampler
-from service.analytics._rr_kernels import stream_key
+from service.analytics.seeding._rr import RRCollection, RRSampler
+from service.analytics.seeding._rr_kernels import stream_key
 from service.analytics.errors import TooExpensive
 from service.analytics.graph import GraphArrays, diffusion_graph, to_igraph
 

@@ -1,4 +1,4 @@
-"""Tests for service.analytics.communities: Leiden partitions checked with NetworkX's
+"""Tests for service.analytics.structure.communities: Leiden partitions checked with NetworkX's
 modularity (Newman 2006), reproducibility, and the per-community summary."""
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from service.analytics import communities as CM
+from service.analytics.structure import communities as CM
 from service.analytics.errors import ComputationFailed, InvalidParameter
 from service.analytics.graph import GraphArrays
 

@@ -1,4 +1,4 @@
-"""Densest-block peeling on people, attribute tables and time windows (service.analytics.dense_groups)."""
+"""Densest-block peeling on people, attribute tables and time windows (service.analytics.integrity.dense_groups)."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""Tests for service.analytics.diffusion: spreads against exact enumeration of
+"""Tests for service.analytics.diffusion.cascades: spreads against exact enumeration of
 live-edge worlds and closed forms, horizons, reproducibility, the percolation
 limit on a large random graph, forecast statistics and stopping, validation."""
 
@@ -13,8 +13,8 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from service.analytics import diffusion as D
-from service.analytics import forecasts as F
+from service.analytics.diffusion import cascades as D
+from service.analytics.diffusion import forecasts as F
 from service.analytics.errors import Cancelled, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, diffusion_graph
 

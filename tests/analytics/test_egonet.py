@@ -1,4 +1,4 @@
-"""Ego-network features, power-law fits and OddBall scores (service.analytics.egonet)."""
+"""Ego-network features, power-law fits and OddBall scores (service.analytics.integrity.egonet)."""
 
 from __future__ import annotations
 
@@ -317,7 +317,7 @@ def test_planted_rings_and_stars_in_ca_grqc() -> None:
 def test_shared_contact_mean_matches_networkx() -> None:
     # Source: NetworkX common neighbours of each tie (its triangle count), computed here:
     # r_i = sum_j t_ij v_j / sum_j t_ij, and 0 for a person on no triangle.
-    from service.analytics.egonet import _shared_contact_mean
+    from service.analytics.integrity.egonet import _shared_contact_mean
 
     G = nx.gnp_random_graph(80, 0.1, seed=9)
     G.add_edge(80, 0)  # a pendant person: no triangle
@@ -365,7 +365,7 @@ def test_ring_score_lifts_the_whole_ring_and_leaves_the_rest() -> None:
 
 def test_evidence_sentence() -> None:
     # Source: hand-made numbers; ties among contacts are E - N, possible N(N-1)/2.
-    from service.analytics.egonet import _evidence
+    from service.analytics.integrity.egonet import _evidence
 
     assert _evidence(12, 73, 20.4) == ("12 contacts with 61 ties among them (92% of the 66 "
                                        "possible); about 8 expected for that many contacts")

@@ -6,7 +6,7 @@ import itertools
 
 import numpy as np
 
-from service.analytics.forecasts import forecast
+from service.analytics.diffusion.forecasts import forecast
 from service.analytics.graph import GraphArrays, diffusion_graph
 
 DIAMOND_SRC = np.array([0, 0, 1, 2], np.int32)  # s->a, s->b, a->t, b->t

@@ -1,4 +1,4 @@
-"""Tests for service.analytics._kernels: thresholds, zero arcs, geometric skipping,
+"""Tests for service.analytics.diffusion._kernels: thresholds, zero arcs, geometric skipping,
 run-index reproducibility (batches, threads), and the integer round accumulators."""
 
 from __future__ import annotations
@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from service.analytics import _kernels as K
+from service.analytics.diffusion import _kernels as K
 from service.analytics.graph import GraphArrays, diffusion_graph
 
 NO_W = np.zeros(0)

@@ -7,11 +7,11 @@ import itertools
 import numpy as np
 import pytest
 
-from service.analytics._em import log_likelihood
-from service.analytics.diffusion import independent_cascade
+from service.analytics.learning._em import log_likelihood
+from service.analytics.diffusion.cascades import independent_cascade
 from service.analytics.errors import InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, arcs, edge_probabilities
-from service.analytics.learning import (
+from service.analytics.learning.probabilities import (
     Campaign,
     adoption_chance,
     bucket_rounds,
@@ -75,7 +75,7 @@ def test_em_maximum_equals_brute_force_grid_maximum_of_the_likelihood() -> None:
 
 
 def test_one_em_step_credits_each_parent_p_over_one_minus_product() -> None:
-    # Source: the E-step derived in service/analytics/_em.py: E[x_u | v adopted] = p_u / P.
+    # Source: the E-step derived in service/analytics/learning/_em.py: E[x_u | v adopted] = p_u / P.
     runs = _fan_in_campaigns({(True, True, True): 1, (True, False, False): 1,
                               (False, True, False): 1})
     fit = em_probabilities(_fan_in_graph(), runs, max_iter=1, tol=0.0)
@@ -333,7 +333,7 @@ def test_model_carries_to_a_later_version_with_new_arcs() -> None:
 
 def test_e_step_counted_per_arc_equals_the_per_trial_e_step() -> None:
     # Source: the per-trial E-step (reference implementation) on the same episodes.
-    from service.analytics._em import _e_step_by_arc, e_step
+    from service.analytics.learning._em import _e_step_by_arc, e_step
 
     g = _random_graph(30, 200, 4)
     p = np.random.default_rng(2).uniform(0.05, 0.5, g.m)
@@ -351,7 +351,7 @@ def test_lt_weights_count_credit_and_sum_to_at_most_one() -> None:
     # Source: hand count of A_u2v / max(A_v, sum of credits into v) (Goyal et al. 2010 counts);
     # the Linear Threshold condition sum_u b_uv <= 1 checked by check_lt_weights.
     from service.analytics.graph import check_lt_weights
-    from service.analytics.learning import goyal_lt_weights
+    from service.analytics.learning.probabilities import goyal_lt_weights
 
     g = GraphArrays(4, True, np.array([0, 1, 3], np.int32), np.array([2, 2, 2], np.int32),
                     np.ones(3))
@@ -371,7 +371,7 @@ def test_lt_weights_count_credit_and_sum_to_at_most_one() -> None:
 def test_fisher_information_equals_numerical_hessian_of_the_likelihood(kind: str) -> None:
     # Source: central second differences of the observed log-likelihood (closed form of the
     # IC episode likelihood), against the analytic Hessian used for the intervals.
-    from service.analytics._em import fisher_information
+    from service.analytics.learning._em import fisher_information
 
     g = _random_graph(30, 250, 12)
     p = np.random.default_rng(3).uniform(0.05, 0.4, g.m)

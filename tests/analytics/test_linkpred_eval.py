@@ -1,4 +1,4 @@
-"""Tests for service.analytics.linkpred_eval: held-out link-prediction evaluation."""
+"""Tests for service.analytics.ties.evaluation: held-out link-prediction evaluation."""
 
 from __future__ import annotations
 
@@ -9,17 +9,17 @@ import numpy as np
 import pytest
 from scipy.stats import mannwhitneyu
 
-from service.analytics import linkpred_eval as eval_module
+from service.analytics.ties import evaluation as eval_module
 from service.analytics.errors import Cancelled, InfeasibleRequest, InvalidParameter
 from service.analytics.graph import GraphArrays
-from service.analytics.linkpred_eval import (
+from service.analytics.ties.evaluation import (
     _ppr_pairs,
     _sample_two_hop,
     auc,
     evaluate_link_prediction,
     precision_at_k,
 )
-from service.analytics.ties import neighbour_index
+from service.analytics.ties.strength import neighbour_index
 from tests.datasets import snap_graph
 
 

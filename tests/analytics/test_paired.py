@@ -1,4 +1,4 @@
-"""Tests for service.analytics.paired and the common-world kernels (_world_kernels):
+"""Tests for service.analytics.diffusion.paired and the common-world kernels (_world_kernels):
 the paired t interval against SciPy, the common-random-numbers properties (the same
 set gives a difference of exactly 0 in every world, a superset never reaches fewer),
 spreads against exact enumeration of live-edge worlds, and agreement with forecasts."""
@@ -11,8 +11,8 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from service.analytics import forecasts as F
-from service.analytics import paired as P
+from service.analytics.diffusion import forecasts as F
+from service.analytics.diffusion import paired as P
 from service.analytics.errors import InvalidParameter
 from service.analytics.graph import GraphArrays, diffusion_graph
 from tests.analytics.test_diffusion import build, exact

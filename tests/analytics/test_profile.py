@@ -1,4 +1,4 @@
-"""Tests for service.analytics.profile: power-law fits (Clauset, Shalizi and Newman
+"""Tests for service.analytics.structure.profile: power-law fits (Clauset, Shalizi and Newman
 2009), clustering, assortativity and distances against NetworkX / igraph."""
 
 from __future__ import annotations
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from scipy.special import zeta
 
-from service.analytics import profile as P
+from service.analytics.structure import profile as P
 from service.analytics.errors import Cancelled, EmptyGraph, InvalidParameter
 from service.analytics.graph import GraphArrays, to_igraph
 from tests.datasets import snap_edges

@@ -1,4 +1,4 @@
-"""Projections of (person, event) tables onto people (service/analytics/projection.py)."""
+"""Projections of (person, event) tables onto people (service/analytics/events/projection.py)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import scipy.sparse as sp
 from networkx.algorithms import bipartite
 
 from service.analytics.errors import InvalidParameter
-from service.analytics.projection import (
+from service.analytics.events.projection import (
     EmptyProjection,
     ProjectionTooLarge,
     SingleParticipantEvent,

@@ -1,4 +1,4 @@
-"""Tests for service.analytics.recommend: link prediction and per-person recommendations."""
+"""Tests for service.analytics.ties.recommend: link prediction and per-person recommendations."""
 
 from __future__ import annotations
 
@@ -10,10 +10,10 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from service.analytics import recommend as recommend_module
+from service.analytics.ties import recommend as recommend_module
 from service.analytics.errors import Cancelled, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays
-from service.analytics.recommend import (
+from service.analytics.ties.recommend import (
     LINK_METHODS,
     adamic_adar,
     common_neighbours,
@@ -25,7 +25,7 @@ from service.analytics.recommend import (
     resource_allocation,
     weighted_adamic_adar,
 )
-from service.analytics.ties import neighbour_index
+from service.analytics.ties.strength import neighbour_index
 
 
 def from_nx(G: nx.Graph) -> GraphArrays:

@@ -1,4 +1,4 @@
-"""Tests for service.analytics.referrals: next contacts and referral asks."""
+"""Tests for service.analytics.ties.referrals: next contacts and referral asks."""
 
 from __future__ import annotations
 
@@ -7,11 +7,11 @@ import itertools
 import numpy as np
 import pytest
 
-from service.analytics import referrals as referrals_module
+from service.analytics.ties import referrals as referrals_module
 from service.analytics.errors import InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, diffusion_graph
-from service.analytics.referrals import next_contacts, referral_asks
-from service.analytics.ties import neighbour_index
+from service.analytics.ties.referrals import next_contacts, referral_asks
+from service.analytics.ties.strength import neighbour_index
 
 
 def small_digraph(seed: int, lt: bool) -> GraphArrays:

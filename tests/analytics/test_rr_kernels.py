@@ -1,4 +1,4 @@
-"""Tests for the RR-set sampling kernels (service.analytics._rr_kernels, _rr).
+"""Tests for the RR-set sampling kernels (service.analytics.seeding._rr_kernels, _rr).
 
 Distribution checks compare sampled RR sets with exact probabilities that
 follow from the live-edge definition of RR sets (Borgs et al. 2014; Kempe
@@ -14,8 +14,8 @@ import math
 import numpy as np
 import pytest
 
-from service.analytics import _rr_kernels as K
-from service.analytics._rr import RRCollection, RRSampler
+from service.analytics.seeding import _rr_kernels as K
+from service.analytics.seeding._rr import RRCollection, RRSampler
 from service.analytics.graph import GraphArrays, diffusion_graph
 
 

@@ -1,7 +1,7 @@
-"""Tests for the interleaved RR samplers (service.analytics._rr_lanes), IC and LT.
+"""Tests for the interleaved RR samplers (service.analytics.seeding._rr_lanes), IC and LT.
 
 The lanes must give exactly the sets of the one-at-a-time kernel
-(:func:`service.analytics._rr_kernels.sample_ic`, itself checked against closed
+(:func:`service.analytics.seeding._rr_kernels.sample_ic`, itself checked against closed
 forms in test_rr_kernels.py), in the same order, for every sampling mode, with
 and without a horizon and weighted roots; and, checked directly against a
 closed form, the live in-arcs of a star are Binomial (Kempe et al. 2003: each
@@ -15,9 +15,10 @@ import math
 import numpy as np
 import pytest
 
-from service.analytics import _rr, _rr_lanes
-from service.analytics import _rr_kernels as K
-from service.analytics._rr import RRCollection, RRSampler
+from service.analytics.seeding import _rr
+from service.analytics.seeding import _rr_lanes
+from service.analytics.seeding import _rr_kernels as K
+from service.analytics.seeding._rr import RRCollection, RRSampler
 from service.analytics.graph import GraphArrays, diffusion_graph
 
 

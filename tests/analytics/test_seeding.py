@@ -1,4 +1,4 @@
-"""Tests for service.analytics.seeding: guarantees, estimators and contact rules.
+"""Tests for service.analytics.seeding.shortlists: guarantees, estimators and contact rules.
 
 Exact spreads come from enumerating every live-edge world of a tiny graph
 (Kempe et al. 2003, Thm 4.5 for IC and Thm 4.6 for LT), written out below;
@@ -13,7 +13,7 @@ import math
 import numpy as np
 import pytest
 
-from service.analytics import seeding as S
+from service.analytics.seeding import shortlists as S
 from service.analytics.errors import Cancelled, InfeasibleRequest, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, diffusion_graph
 
@@ -458,8 +458,8 @@ def test_reproducible_and_forecast_is_independent(grid):
 @pytest.mark.parametrize("model,rounds", [("ic", None), ("ic", 2), ("lt", None), ("lt", 3)])
 def test_rr_estimate_agrees_with_forward_monte_carlo(grid, model, rounds):
     # Source: Borgs et al. 2014 (RR estimator) against the forward simulation
-    # of service.analytics.diffusion (Kempe et al. 2003), within 4 standard errors.
-    from service.analytics.diffusion import estimate_spread
+    # of service.analytics.diffusion.cascades (Kempe et al. 2003), within 4 standard errors.
+    from service.analytics.diffusion.cascades import estimate_spread
 
     g, _, _ = grid
     dg = diffusion_graph(g, model=model, scheme="weighted_cascade")
@@ -511,9 +511,9 @@ def test_evaluate_shortlist_fills_baseline_reach(grid):
 @pytest.mark.shared
 @pytest.mark.parametrize("name", ["ca-GrQc", "ca-HepTh"])
 def test_imm_against_celf_and_baselines_on_coauthorship(name):
-    from service.analytics import _rr_kernels as K
-    from service.analytics._rr import RRCollection, RRSampler
-    from service.analytics.diffusion import estimate_spread
+    from service.analytics.seeding import _rr_kernels as K
+    from service.analytics.seeding._rr import RRCollection, RRSampler
+    from service.analytics.diffusion.cascades import estimate_spread
     from service.analytics.graph import to_igraph
     from tests.datasets import snap_graph
 
@@ -562,8 +562,8 @@ def test_opim_default_is_as_good_as_imm_on_open_datasets(name, directed):
     common simulated campaigns (independent of every RR set). It used to stop after
     5,136 (Enron) and 11,296 (Slashdot) RR sets, 5.0% and 5.6% below a greedy on
     200,000 RR sets (an independent check)."""
-    from service.analytics import centrality
-    from service.analytics.paired import compare_reach
+    from service.analytics.structure import centrality
+    from service.analytics.diffusion.paired import compare_reach
     from tests.datasets import snap_graph
 
     g, _ = snap_graph(name, directed=directed)
@@ -596,7 +596,7 @@ def test_opim_default_is_as_good_as_imm_on_open_datasets(name, directed):
 def test_caps_already_filled_by_must_include_are_respected() -> None:
     """A segment whose cap the must-include people use up gets no free pick (every method)."""
     from service.analytics.graph import GraphArrays, diffusion_graph
-    from service.analytics.seeding import degree_discount_seeds, imm_seeds, opim_seeds, top_score_seeds
+    from service.analytics.seeding.shortlists import degree_discount_seeds, imm_seeds, opim_seeds, top_score_seeds
 
     n = 8
     g = GraphArrays(n, False, np.arange(7, dtype=np.int32), np.arange(1, 8, dtype=np.int32), np.ones(7))

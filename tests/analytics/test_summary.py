@@ -1,4 +1,4 @@
-"""Tests for service.analytics.summary against NetworkX and published dataset figures."""
+"""Tests for service.analytics.structure.summary against NetworkX and published dataset figures."""
 
 from __future__ import annotations
 
@@ -6,9 +6,9 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from service.analytics import summary
+from service.analytics.structure import summary
 from service.analytics.graph import GraphArrays
-from service.analytics.summary import graph_summary
+from service.analytics.structure.summary import graph_summary
 from tests.datasets import snap_edges
 
 
@@ -158,7 +158,7 @@ def random_arrays(rng: np.random.Generator, n: int, m: int, *, loops: bool) -> t
 
 @pytest.mark.parametrize("seed", range(8))
 def test_kernels_match_networkx_on_random_graphs(seed: int) -> None:
-    from service.analytics import _summary_kernels as k
+    from service.analytics.structure import _summary_kernels as k
 
     rng = np.random.default_rng(seed)
     n = int(rng.integers(1, 120))
@@ -215,7 +215,7 @@ def test_summary_of_unsorted_arcs_matches_networkx(directed: bool) -> None:
 
 
 def test_strong_components_survive_a_long_path() -> None:
-    from service.analytics import _summary_kernels as k
+    from service.analytics.structure import _summary_kernels as k
 
     # A directed cycle of 200,000 nodes: recursion this deep would overflow a stack.
     n = 200_000
@@ -230,7 +230,7 @@ def test_strong_components_survive_a_long_path() -> None:
 
 
 def test_kernels_on_graphs_without_arcs() -> None:
-    from service.analytics import _summary_kernels as k
+    from service.analytics.structure import _summary_kernels as k
 
     none = np.zeros(0, np.int32)
     # Source: closed form. Five isolated nodes are five components of one node.

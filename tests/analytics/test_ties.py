@@ -1,4 +1,4 @@
-"""Tests for service.analytics.ties: tie strength (Onnela et al. 2007) and the neighbour index."""
+"""Tests for service.analytics.ties.strength: tie strength (Onnela et al. 2007) and the neighbour index."""
 
 from __future__ import annotations
 
@@ -8,10 +8,10 @@ import networkx as nx
 import numpy as np
 import pytest
 
-from service.analytics import ties as ties_module
+from service.analytics.ties import strength as ties_module
 from service.analytics.errors import InvalidParameter
 from service.analytics.graph import GraphArrays
-from service.analytics.ties import neighbour_index, tie_strength
+from service.analytics.ties.strength import neighbour_index, tie_strength
 
 
 def from_nx(G: nx.Graph, weight: str | None = None) -> GraphArrays:

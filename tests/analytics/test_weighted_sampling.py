@@ -22,12 +22,12 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from service.analytics import _centrality_kernels as K
-from service.analytics import _weighted_sampling as W
-from service.analytics import paths as P
+from service.analytics.structure import _kernels as K
+from service.analytics.structure import _weighted_sampling as W
+from service.analytics.structure import paths as P
 from service.analytics.graph import GraphArrays, csr
 
-RTOL = 1e-10  # as service.analytics.paths._RTOL
+RTOL = 1e-10  # as service.analytics.structure.paths._RTOL
 Z = 4.5
 P_TAIL = float(stats.norm.sf(Z))
 

@@ -64,7 +64,7 @@ def test_adoption_cuts_the_flat_tail_and_draws_both_bands() -> None:
 
 def _profile_of(G: nx.Graph) -> dict[str, Any]:
     from service.analytics.graph import GraphArrays
-    from service.analytics.profile import graph_profile
+    from service.analytics.structure.profile import graph_profile
 
     e = np.array(G.edges())
     g = GraphArrays(G.number_of_nodes(), False, e[:, 0].astype(np.int32), e[:, 1].astype(np.int32),

@@ -23,7 +23,7 @@ import pytest
 from scipy.stats import percentileofscore
 
 from service import rankings as R
-from service.analytics.centrality import MEASURES
+from service.analytics.structure.centrality import MEASURES
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import assert_problem, run_worker_once, worker_for
 

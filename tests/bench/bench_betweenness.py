@@ -27,10 +27,10 @@ import time
 
 import numpy as np
 
-from service.analytics import _centrality_kernels as K
-from service.analytics import _weighted_sampling as W
+from service.analytics.structure import _kernels as K
+from service.analytics.structure import _weighted_sampling as W
 from service.analytics.graph import GraphArrays, arcs, csr
-from service.analytics.paths import _RTOL
+from service.analytics.structure.paths import _RTOL
 from tests.datasets import DATASETS, snap_graph
 
 DIRECTED = {"wiki-Vote": True, "ca-HepTh": False, "ca-GrQc": False, "email-Eu-core": True}

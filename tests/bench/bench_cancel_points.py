@@ -23,9 +23,13 @@ from typing import Any
 
 import numpy as np
 
-from service.analytics import _chunks, _rr, forecasts, paths, profile
-from service.analytics._rr import RRCollection, RRSampler
-from service.analytics._rr_kernels import stream_key
+from service.analytics import _chunks
+from service.analytics.seeding import _rr
+from service.analytics.diffusion import forecasts
+from service.analytics.structure import paths
+from service.analytics.structure import profile
+from service.analytics.seeding._rr import RRCollection, RRSampler
+from service.analytics.seeding._rr_kernels import stream_key
 from service.analytics.graph import GraphArrays, diffusion_graph
 from tests.datasets import DATASETS, snap_graph
 

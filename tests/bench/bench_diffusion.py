@@ -7,7 +7,7 @@ Run:  python -m tests.bench.bench_diffusion [--graphs ca-GrQc,soc-Slashdot0902,c
    root; never copied here) is compiled into a temporary folder with
    ``gcc -O3 -march=native`` and run in IC simulation mode (``-m ic``), weighted
    cascade, seeds the 50 top out-degree nodes (``-k 50``), on each graph. In the
-   same run our compiled kernel (``service.analytics._kernels.run_chunk``, one
+   same run our compiled kernel (``service.analytics.diffusion._kernels.run_chunk``, one
    thread, no per-node tracking: what the C program measures) simulates the same
    graph from the same seeds (ties in out-degree broken by the smaller original
    id, as the C program does). Printed: simulations/s and edges examined/s of
@@ -121,7 +121,7 @@ def top_out_degree(dg: Any, k: int = 50) -> np.ndarray:
 
 def calibrate(kg: Any, seeds: np.ndarray, seconds: float) -> int:
     """Runs that take about ``seconds`` with one thread."""
-    from service.analytics import _kernels as K
+    from service.analytics.diffusion import _kernels as K
 
     n = 10
     while True:
@@ -135,7 +135,7 @@ def calibrate(kg: Any, seeds: np.ndarray, seconds: float) -> int:
 
 def time_ours(kg: Any, seeds: np.ndarray, runs: int, run0: int) -> float:
     """Simulations per second of one thread (``run_chunk``, no per-node counts)."""
-    from service.analytics import _kernels as K
+    from service.analytics.diffusion import _kernels as K
 
     t0 = time.perf_counter()
     K.run_chunk(kg, seeds, 1, run0, runs, -1, np.zeros(0), track_nodes=False)
@@ -144,7 +144,7 @@ def time_ours(kg: Any, seeds: np.ndarray, runs: int, run0: int) -> float:
 
 def time_forecast(dg: Any, seeds: np.ndarray, runs: int, seed: int) -> float:
     """Simulations per second of ``forecast()`` (all cores, per-node counts, summaries)."""
-    from service.analytics.forecasts import forecast
+    from service.analytics.diffusion.forecasts import forecast
 
     t0 = time.perf_counter()
     forecast(dg, {"b": seeds}, simulations=runs, min_simulations=runs, random_seed=seed)
@@ -174,7 +174,7 @@ def python_loop(dg: Any, seeds: np.ndarray, seconds: float) -> float:
 
 def bench_graph(exe: Path, name: str, undirected: bool, seconds: float, repeats: int) -> dict[str, Any]:
     """C and ours measured alternately, ``repeats`` rounds; medians and the median of per-round ratios."""
-    from service.analytics import _kernels as K
+    from service.analytics.diffusion import _kernels as K
     from service.analytics.graph import diffusion_graph
 
     g, _ = load_graph(name, undirected)

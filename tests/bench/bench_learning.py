@@ -28,11 +28,11 @@ import time
 
 import numpy as np
 
-from service.analytics._em import em
-from service.analytics._episodes import build_episodes, check_campaigns
-from service.analytics.diffusion import independent_cascade
+from service.analytics.learning._em import em
+from service.analytics.learning._episodes import build_episodes, check_campaigns
+from service.analytics.diffusion.cascades import independent_cascade
 from service.analytics.graph import arcs
-from service.analytics.learning import Campaign, learned_diffusion_graph
+from service.analytics.learning.probabilities import Campaign, learned_diffusion_graph
 from tests.datasets import snap_graph
 
 

@@ -36,7 +36,7 @@ from pathlib import Path
 import numpy as np
 
 from service.analytics.graph import arcs, diffusion_graph, to_igraph
-from service.analytics.ties import neighbour_index
+from service.analytics.ties.strength import neighbour_index
 from tests.datasets import DATASETS, snap_graph
 
 
@@ -168,7 +168,7 @@ def main() -> None:
         del obj
     # Peak memory of a forecast (goal: <= 2x the CSR arrays plus the per-node results).
 
-    from service.analytics.forecasts import forecast
+    from service.analytics.diffusion.forecasts import forecast
 
     dg = diffusion_graph(g, scheme="weighted_cascade")
     csr_bytes = sum(a.nbytes for a in (dg.out_indptr, dg.out_indices, dg.out_prob,

@@ -6,7 +6,7 @@ Run:  python -m tests.bench.bench_scores [--dataset soc-Slashdot0902] [--repeats
    dataset's edge list (self-loops dropped) is uploaded as CSV over HTTP; then
    the default ``scores`` job (``params: {}``) is timed from ``POST`` to the
    long-poll (``GET /v1/jobs/{id}?wait=``) that reports it succeeded. Against
-   it, in this process: ``service.analytics.centrality.scores(g, None)`` on
+   it, in this process: ``service.analytics.structure.centrality.scores(g, None)`` on
    the same graph held in memory (``tests.datasets.snap_graph``). The two are
    run alternately; goal: ratio of medians <= 1.3.
 2. ``GET /v1/graphs/{id}/rankings?measure=pagerank&limit=50`` against
@@ -37,7 +37,7 @@ from pathlib import Path
 import httpx
 import numpy as np
 
-from service.analytics.centrality import default_measures, scores
+from service.analytics.structure.centrality import default_measures, scores
 from tests.datasets import snap_edges, snap_graph
 from tests.live import live_server
 
@@ -81,7 +81,7 @@ def synthetic(n: int, k: int) -> None:
     import asyncio
     from datetime import UTC
 
-    from service.analytics.centrality import MEASURES
+    from service.analytics.structure.centrality import MEASURES
     from service.analytics.graph import GraphArrays, NodeAttributes
     from service.app import create_app
     from service.loader import version_arrays

@@ -13,13 +13,13 @@ weighted cascade, p(u->v) = 1/indegree(v), single-threaded, on the same graph
     both sides). One C run with every method finds its fastest valid method
     on the graph (all are valid under weighted cascade); then ``--pairs``
     alternating runs, C with that method and ours
-    (``service.analytics._rr.RRCollection.extend_to``, wall time, store
+    (``service.analytics.seeding._rr.RRCollection.extend_to``, wall time, store
     included), each about ``--seconds`` long; the median of the per-pair
     ratios is printed, goal >= 0.5. Each pair also times ours once more with
     a store whose pages are touched for the first time (see "Memory first
     touch" below) and prints that ratio beside it. Graphs: ca-GrQc (both
     directions), soc-Slashdot0902 (as listed), com-DBLP (as listed).
-(b) IMM (``service.analytics.seeding.imm_seeds``) with k = 50, epsilon = 0.1,
+(b) IMM (``service.analytics.seeding.shortlists.imm_seeds``) with k = 50, epsilon = 0.1,
     l = 1 on soc-Slashdot0902 (as listed) and com-DBLP (undirected: both
     directions, the co-authorship graph as a campaign would use it): wall
     time, theta, RR sets drawn in total, peak resident memory added by the
@@ -133,8 +133,8 @@ def ours_throughput(sampler: Any, seconds: float, rep: int, *, pretouch: bool) -
     will need is written and freed first, so the run reuses pages instead of first-touching them."""
     import numpy as np
 
-    from service.analytics import _rr_kernels as K
-    from service.analytics._rr import RRCollection
+    from service.analytics.seeding import _rr_kernels as K
+    from service.analytics.seeding._rr import RRCollection
 
     probe = RRCollection(sampler, K.stream_key(10_000 + rep, 0))
     t0 = time.perf_counter()
@@ -161,8 +161,8 @@ def ours_throughput(sampler: Any, seconds: float, rep: int, *, pretouch: bool) -
 
 
 def throughput(exe: Path, pairs: int, seconds: float) -> list[tuple[str, float, float]]:
-    from service.analytics import _rr_kernels as K
-    from service.analytics._rr import RRCollection, RRSampler
+    from service.analytics.seeding import _rr_kernels as K
+    from service.analytics.seeding._rr import RRCollection, RRSampler
 
     print("\n(a) RR-set sampling, weighted cascade, single thread: edges examined per second")
     ratios = []
@@ -217,7 +217,7 @@ def _reset_peak() -> bool:
 
 
 def imm(exe: Path, seconds: float) -> list[str]:
-    from service.analytics.seeding import imm_seeds
+    from service.analytics.seeding.shortlists import imm_seeds
 
     print(
         "\n(b) IMM, k = 50, epsilon = 0.1, l = 1, weighted cascade (single thread, fixed as in Chen 2018)"

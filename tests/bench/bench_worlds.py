@@ -3,8 +3,8 @@
 Run:  python -m tests.bench.bench_worlds [--runs 2000] [--repeats 2]
 
 Forecasts and the shortlist's paired comparison run on
-``service.analytics._world_kernels`` (random numbers keyed on run and node, so
-every seed set sees the same live-edge worlds); ``service.analytics._kernels``
+``service.analytics.diffusion._world_kernels`` (random numbers keyed on run and node, so
+every seed set sees the same live-edge worlds); ``service.analytics.diffusion._kernels``
 draws them in the order the cascade meets the arcs. Both simulate the same
 graph from the same 50 top out-degree seeds, all threads, per-node counts on,
 in one process, alternately; printed: the best time of each, their ratio
@@ -22,8 +22,8 @@ import time
 
 import numpy as np
 
-from service.analytics import _kernels as K
-from service.analytics import _world_kernels as W
+from service.analytics.diffusion import _kernels as K
+from service.analytics.diffusion import _world_kernels as W
 from service.analytics.graph import diffusion_graph
 from tests.datasets import DATASETS, snap_graph
 

@@ -83,7 +83,7 @@ def test_scenario_has_the_claimed_properties(tmp_path: Path) -> None:
     assert 0.66 < sc.consent.mean() < 0.74
     # Heavy tail: the largest degree is far above an Erdos-Renyi graph's of the same density.
     from service.analytics.graph import GraphArrays
-    from service.analytics.profile import powerlaw_fit
+    from service.analytics.structure.profile import powerlaw_fit
 
     deg = np.array([d for _, d in G.degree()], dtype=float)
     er = nx.gnm_random_graph(sc.members, G.number_of_edges(), seed=5)

@@ -12,7 +12,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 import tests.jobs.kinds as test_kinds
 from service.analytics import errors as aerr
-from service.analytics.backbone import EmptyBackbone
+from service.analytics.events.backbone import EmptyBackbone
 from service.api import errors as apierr
 from service.api.problems import install_problem_handlers
 from service.intake import errors as ierr

@@ -10,7 +10,7 @@ import pytest
 from pydantic import ValidationError
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.analytics.centrality import default_measures
+from service.analytics.structure.centrality import default_measures
 from service.analytics.errors import Cancelled, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.jobs import registry

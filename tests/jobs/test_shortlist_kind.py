@@ -572,7 +572,7 @@ def test_never_returns_a_list_a_baseline_beats(monkeypatch: pytest.MonkeyPatch) 
     def rigged(method: str, *args: Any) -> Any:
         # The optimised method "chooses" two people who reach nobody but themselves.
         if method == "imm":
-            from service.analytics import seeding
+            from service.analytics.seeding import shortlists as seeding
 
             scores = np.zeros(n)
             scores[poor] = 1.0
@@ -634,7 +634,7 @@ def test_comparisons_are_paired_and_in_plain_words() -> None:
 def test_reasons_quote_the_gains_beside_them(method: str) -> None:
     import re
 
-    from service.analytics._seed_rules import _num
+    from service.analytics.seeding._rules import _num
 
     rng = np.random.default_rng(5)
     n = 10
@@ -651,7 +651,7 @@ def test_reasons_quote_the_gains_beside_them(method: str) -> None:
 
 
 def test_verdicts_in_whole_people() -> None:
-    from service.analytics.paired import Interval
+    from service.analytics.diffusion.paired import Interval
     from service.jobs.tasks._shortlist_result import verdict
 
     label = "the 25 best-connected people"

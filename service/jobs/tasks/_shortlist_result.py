@@ -11,9 +11,9 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 if TYPE_CHECKING:
-    from service.analytics.forecasts import ForecastResult
-    from service.analytics.paired import Interval, PairedComparison
-    from service.analytics.seeding import Shortlist
+    from service.analytics.diffusion.forecasts import ForecastResult
+    from service.analytics.diffusion.paired import Interval, PairedComparison
+    from service.analytics.seeding.shortlists import Shortlist
     from service.loader import LoadedVersion
 
     from ._shortlist_rules import Prepared
@@ -221,7 +221,7 @@ def _comparisons(
     params: ShortlistParams,
     unit: str,
 ) -> list[dict[str, Any]]:
-    from service.analytics.paired import paired_interval
+    from service.analytics.diffusion.paired import paired_interval
 
     if cmp is None:
         return []
@@ -316,7 +316,7 @@ def _gain(
     confidence: float,
 ) -> dict[str, Any] | None:
     """The returned list against the best other list, paired on the same campaigns."""
-    from service.analytics.paired import paired_interval
+    from service.analytics.diffusion.paired import paired_interval
 
     if cmp is None or len(cmp.per_world) < 2:
         return None

@@ -3,7 +3,7 @@
 One seed set (``seeds``) or several named ones (``seed_sets``, a what-if
 comparison in one request) are simulated under the shared diffusion settings
 (:class:`~service.jobs.tasks.diffusion_settings.DiffusionSettings`) by
-``service.analytics.forecasts.forecast``, until the confidence interval of the
+``service.analytics.diffusion.forecasts.forecast``, until the confidence interval of the
 mean reach is as narrow as asked (``precision`` people, or
 ``relative_precision`` of the mean) or ``simulations`` have run.
 
@@ -39,7 +39,7 @@ from ..kinds import JobKind, TaskContext, TaskOutput
 from .diffusion_settings import DiffusionSettings
 
 if TYPE_CHECKING:
-    from service.analytics.forecasts import ForecastResult, IntervalEstimate
+    from service.analytics.diffusion.forecasts import ForecastResult, IntervalEstimate
     from service.loader import LoadedVersion
 
 __all__ = [
@@ -174,7 +174,7 @@ def precheck(params: ForecastParams, load: Callable[[], LoadedVersion], *, edges
 
 
 def run(ctx: TaskContext, params: ForecastParams) -> TaskOutput:
-    from service.analytics.forecasts import forecast
+    from service.analytics.diffusion.forecasts import forecast
 
     v = ctx.load()
     prep = prepare(params, v)
@@ -282,7 +282,7 @@ def _comparison(forecasts: list[dict[str, Any]], results: dict[str, ForecastResu
     and its interval comes from the spread of the per-campaign differences (a paired t
     interval), much narrower than comparing two independent means.
     """
-    from service.analytics.paired import paired_interval
+    from service.analytics.diffusion.paired import paired_interval
 
     measure = "target_reach" if targeted else "expected_reach"
     unit = "of the target audience" if targeted else "people"
@@ -395,7 +395,7 @@ def warm_kernels() -> None:
 
     A fresh process otherwise pays the numba cache load on its first forecast.
     """
-    from service.analytics.forecasts import forecast
+    from service.analytics.diffusion.forecasts import forecast
     from service.analytics.graph import GraphArrays, diffusion_graph
 
     g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([1, 2], np.int32), np.ones(2))

@@ -3,7 +3,7 @@
 Hides a random share of the ties (reproducible from ``random_seed``), builds
 the neighbour index on the rest, and scores the hidden pairs against sampled
 untied pairs with each method, by
-``service.analytics.linkpred_eval.evaluate_link_prediction``. The answer is
+``service.analytics.ties.evaluation.evaluate_link_prediction``. The answer is
 AUC and precision at k per method and the best method by AUC.
 
 A kind of its own rather than a flag on ``recommendations``: it shares no
@@ -58,7 +58,7 @@ class LinkEvaluationParams(BaseModel):
 
 
 def run(ctx: TaskContext, params: LinkEvaluationParams) -> TaskOutput:
-    from service.analytics.linkpred_eval import evaluate_link_prediction
+    from service.analytics.ties.evaluation import evaluate_link_prediction
 
     v = ctx.load()
     methods = list(dict.fromkeys(METHOD_ALIASES.get(m, m) for m in params.methods))

@@ -1,7 +1,7 @@
 """``profile``: the expensive parts of a version's graph profile.
 
 Degree distribution with its power-law fit, clustering, assortativity and
-distance estimates, computed by ``service.analytics.profile.graph_profile``;
+distance estimates, computed by ``service.analytics.structure.profile.graph_profile``;
 the cheap figures (size, density, components, reciprocity) are already in
 the version's stored summary.
 """
@@ -29,7 +29,7 @@ class ProfileParams(BaseModel):
 
 
 def run(ctx: TaskContext, params: ProfileParams) -> TaskOutput:
-    from service.analytics.profile import graph_profile
+    from service.analytics.structure.profile import graph_profile
 
     version = ctx.load()
     options = {"bfs_samples": params.bfs_samples} if params.bfs_samples is not None else {}

@@ -1,7 +1,7 @@
 """``recommendations``: introductions for many people in one batch, for nightly exports.
 
 The same ranking as ``GET /v1/graphs/{id}/nodes/{node}/recommendations``
-(``service.analytics.recommend.recommend_for``), for every node or a given
+(``service.analytics.ties.recommend.recommend_for``), for every node or a given
 list. The result document holds the counts; the rows are stored as arrays
 (one entry per recommendation) and exported as CSV by
 ``GET /v1/jobs/{job_id}/result.csv`` (see :func:`csv_table`).
@@ -78,7 +78,7 @@ def resolve_ids(index: dict[str, int], ids: Sequence[str], field: str) -> NDArra
 
 
 def run(ctx: TaskContext, params: RecommendationsParams) -> TaskOutput:
-    from service.analytics.recommend import recommend_all
+    from service.analytics.ties.recommend import recommend_all
     from service.indexes import neighbour_index_for
 
     v = ctx.load()

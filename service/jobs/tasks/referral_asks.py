@@ -1,7 +1,7 @@
 """``referral_asks``: for every adopter of a campaign, whom they should be asked to refer.
 
 The batch form of ``POST /v1/graphs/{id}/next-contacts`` with
-``group_by=adopter`` (:func:`service.analytics.referrals.referral_asks`), for
+``group_by=adopter`` (:func:`service.analytics.ties.referrals.referral_asks`), for
 nightly exports: each exposed non-adopter is assigned to one adopter only,
 its strongest tie, at most ``per_adopter`` per adopter. Contact consent is
 honoured for targets and askers. Rows are stored as arrays and exported by
@@ -24,7 +24,7 @@ from .diffusion_settings import ProbabilitySettings
 from .recommendations import resolve_ids
 
 if TYPE_CHECKING:
-    from service.analytics.referrals import NextContact
+    from service.analytics.ties.referrals import NextContact
     from service.loader import LoadedVersion
 
 __all__ = ["FollowOn", "ReferralAsksParams", "contact_reason", "exposure_explained", "run", "csv_table", "KIND"]
@@ -79,7 +79,7 @@ def contact_reason(c: NextContact, ids: list[str], model: str, follow_on: str | 
 
 
 def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
-    from service.analytics.referrals import referral_asks
+    from service.analytics.ties.referrals import referral_asks
     from service.diffusion_cache import diffusion_graph_for
     from service.indexes import follow_on_for, neighbour_index_for
 
@@ -137,7 +137,7 @@ def csv_table(
     version: LoadedVersion, data: dict[str, Any], arrays: dict[str, NDArray[Any]]
 ) -> tuple[list[str], Iterator[list[Any]]]:
     """One row per (adopter, target), adopters by expected referrals, targets best first."""
-    from service.analytics.referrals import NextContact
+    from service.analytics.ties.referrals import NextContact
 
     ids, labels = version.ids, version.labels
     params = data.get("params") or {}

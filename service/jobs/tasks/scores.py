@@ -1,6 +1,6 @@
 """``scores``: node scores of a version, stored ready to rank.
 
-Computes the asked measures with ``service.analytics.centrality.scores`` and
+Computes the asked measures with ``service.analytics.structure.centrality.scores`` and
 stores, per measure, its values, its ranking order and its percentile ranks
 (layout and conventions: :mod:`service.rankings`), so that rankings, the
 node view and the communities view only slice arrays.
@@ -15,7 +15,7 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
-from service.analytics.centrality import MEASURES, scores
+from service.analytics.structure.centrality import MEASURES, scores
 from service.analytics.errors import InvalidParameter, UnknownNode
 from service.rankings import ASCENDING, LABEL_MEASURES, key, result_arrays
 

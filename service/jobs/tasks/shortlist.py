@@ -1,6 +1,6 @@
 """``shortlist``: whom to contact first, under the campaign's contact rules, with a guarantee.
 
-The seeds are chosen by one method of :mod:`service.analytics.seeding`
+The seeds are chosen by one method of :mod:`service.analytics.seeding.shortlists`
 (``imm`` by default, ``opim``, ``celf``, or a baseline heuristic) under the
 shared diffusion settings
 (:class:`~service.jobs.tasks.diffusion_settings.DiffusionSettings`). Then,
@@ -65,10 +65,10 @@ from ._shortlist_rules import Prepared, resolve_rules
 from .diffusion_settings import DiffusionSettings
 
 if TYPE_CHECKING:
-    from service.analytics.forecasts import ForecastResult
+    from service.analytics.diffusion.forecasts import ForecastResult
     from service.analytics.graph import DiffusionGraph, GraphArrays
-    from service.analytics.paired import PairedComparison
-    from service.analytics.seeding import Shortlist
+    from service.analytics.diffusion.paired import PairedComparison
+    from service.analytics.seeding.shortlists import Shortlist
     from service.loader import LoadedVersion
 
 __all__ = [
@@ -335,7 +335,7 @@ def _choose(
     communities: NDArray[np.int32] | None,
     progress: Callable[[float, str], None] | None,
 ) -> Shortlist:
-    from service.analytics import seeding
+    from service.analytics.seeding import shortlists as seeding
 
     kw = _rule_kwargs(params, v, prep)
     kw["communities"] = communities
@@ -361,7 +361,7 @@ def _choose(
             **common,
         )
     if method == "celf":
-        from service.analytics.diffusion import estimate_spread
+        from service.analytics.diffusion.cascades import estimate_spread
 
         _celf_limit(params, prep.eligible)
 
@@ -404,7 +404,7 @@ def _choose(
 def _scores(
     method: str, g: GraphArrays, random_seed: int, progress: Callable[[float, str], None] | None
 ) -> tuple[NDArray[np.float64], str]:
-    from service.analytics import centrality
+    from service.analytics.structure import centrality
     from service.analytics.graph import GraphArrays as GA
 
     if method == "top_degree":
@@ -414,7 +414,7 @@ def _scores(
         # well-placed people: PageRank of the reversed graph.
         rg = GA(g.n, True, g.dst, g.src, g.weight, g.probability) if g.directed else g
         return centrality.pagerank(rg), "pagerank"
-    from service.analytics.paths import betweenness
+    from service.analytics.structure.paths import betweenness
 
     values, _ = betweenness(
         g, method="auto", epsilon=0.05, delta=0.1, random_seed=random_seed, progress=progress
@@ -425,7 +425,7 @@ def _scores(
 def _communities(params: ShortlistParams, g: GraphArrays) -> NDArray[np.int32] | None:
     if not params.explain_communities or g.m == 0 or g.m > COMMUNITY_MAX_EDGES:
         return None
-    from service.analytics.communities import leiden
+    from service.analytics.structure.communities import leiden
 
     return leiden(g, random_seed=params.random_seed)[0]
 
@@ -441,7 +441,7 @@ def _evaluate(
     progress: Callable[[float, str], None],
 ) -> dict[str, Shortlist]:
     """Every list's reach curve on the same fresh RR sets (drawn after all lists were fixed)."""
-    from service.analytics.seeding import evaluate_shortlist
+    from service.analytics.seeding.shortlists import evaluate_shortlist
 
     out = {}
     for i, (name, sl) in enumerate(lists.items()):
@@ -470,7 +470,7 @@ def _compare(
 ) -> PairedComparison | None:
     """Every list on the same simulated campaigns, until each paired difference with the
     chosen list is within RELATIVE_PRECISION of its reach (or the simulation cap)."""
-    from service.analytics.paired import compare_reach
+    from service.analytics.diffusion.paired import compare_reach
 
     sets = {name: list(sl.nodes) for name, sl in lists.items() if sl.seeds}
     if params.method not in sets:
@@ -513,7 +513,7 @@ def _forecasts(
 ) -> dict[str, ForecastResult]:
     """Forward Monte Carlo of every list on the campaigns of the paired comparison (the same
     worlds and number), so each list's mean reach is the comparison's."""
-    from service.analytics.forecasts import forecast
+    from service.analytics.diffusion.forecasts import forecast
 
     out = {}
     for i, (name, sl) in enumerate(lists.items()):
