@@ -25,8 +25,8 @@ from .api.middleware import (
 from .api.openapi import install_openapi, operation_id
 from .api.problems import install_problem_handlers
 from .api.spool import remove_stale_spool
-from .caches import set_max_bytes as set_cache_bytes
-from .logs import configure_logging
+from .usecases.caches import set_max_bytes as set_cache_bytes
+from .telemetry.logs import configure_logging
 from .settings import Settings
 
 __all__ = ["create_app"]

@@ -1,19 +1,19 @@
 """Per-process caches of what synchronous recommendation requests need.
 
 A version is immutable, so the structures built from it can be kept and
-shared by every request in the process, like :mod:`service.loader`'s graphs:
+shared by every request in the process, like :mod:`service.usecases.loading`'s graphs:
 
 - the :class:`~service.analytics.ties.strength.NeighbourIndex` (tie strengths and the
   undirected neighbour rows that introductions walk),
 - per-node follow-on measures (degree, PageRank, ...) used to blend next
   contacts.
 
-They are kept in :data:`service.caches.index_cache` and
-:data:`service.caches.measure_cache`, under the shared byte bound of
-:mod:`service.caches`: each is built once per version and key, and concurrent
+They are kept in :data:`service.usecases.caches.index_cache` and
+:data:`service.usecases.caches.measure_cache`, under the shared byte bound of
+:mod:`service.usecases.caches`: each is built once per version and key, and concurrent
 requests for the same key wait for that one build instead of starting their
 own. (The arcs with probabilities that next contacts walk come from
-:mod:`service.diffusion_cache`.)
+:mod:`service.usecases.diffusion_inputs`.)
 
 Requests run their numeric work on :func:`compute_pool`, a small thread pool:
 the neighbour index keeps per-thread scratch arrays of ~30 bytes per node,
@@ -33,7 +33,7 @@ from numpy.typing import NDArray
 
 from service.analytics.graph import GraphArrays
 from service.analytics.ties.strength import NeighbourIndex, neighbour_index
-from service.caches import index_cache, measure_cache
+from service.usecases.caches import index_cache, measure_cache
 
 __all__ = [
     "FOLLOW_ON_MEASURES",

@@ -22,8 +22,8 @@ Conventions
   decimals so equal mixes tie and fall back to the node-id order.
 
 Loaded arrays and derived orders are kept per result id in
-:data:`service.caches.ranking_cache` (:func:`cached`), under the shared byte
-bound of :mod:`service.caches`; results are immutable, so nothing is ever stale. No database code here: callers pass a ``fetch``
+:data:`service.usecases.caches.ranking_cache` (:func:`cached`), under the shared byte
+bound of :mod:`service.usecases.caches`; results are immutable, so nothing is ever stale. No database code here: callers pass a ``fetch``
 function that reads named arrays.
 """
 
@@ -43,7 +43,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from service.analytics.graph import GraphArrays
-from service.caches import ranking_cache
+from service.usecases.caches import ranking_cache
 
 __all__ = [
     "ASCENDING",

@@ -103,7 +103,7 @@ class Settings(BaseSettings):
     rate_limit_burst: int = 200
 
     # -- Operations: logs, metrics, job time limits ------------------------------------
-    # See service/api/middleware/ and service/metrics.py. The rate limit above is
+    # See service/api/middleware/ and service/telemetry/metrics.py. The rate limit above is
     # per API process; 0 turns it off.
     log_level: str = Field(default="INFO", description="Level of the bellwether.* loggers.")
     log_format: Literal["json", "text"] = Field(
@@ -131,7 +131,7 @@ class Settings(BaseSettings):
         "physical memory and the cgroup limit) divided by the number of workers of `serve`.",
     )
 
-    # -- Per-process caches (service/caches.py) ---------------------------------------
+    # -- Per-process caches (service/usecases/caches.py) ---------------------------------------
     cache_bytes: int = Field(
         default=2 * GiB, ge=0,
         description="Memory each process (the API, every worker) may keep for derived structures "

@@ -101,7 +101,7 @@ async def client(settings) -> AsyncIterator["httpx.AsyncClient"]:  # type: ignor
     import httpx
 
     from service.app import create_app
-    from service.loader import clear_cache
+    from service.usecases.loading import clear_cache
 
     app = create_app(settings)
     async with app.router.lifespan_context(app):

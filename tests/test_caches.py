@@ -9,8 +9,8 @@ from typing import Any, NamedTuple
 import numpy as np
 import pytest
 
-from service import caches
-from service.caches import ByteLRU, NamedCache, nbytes
+from service.usecases import caches
+from service.usecases.caches import ByteLRU, NamedCache, nbytes
 
 
 def blob(n: int) -> np.ndarray[Any, np.dtype[np.uint8]]:

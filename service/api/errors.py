@@ -17,7 +17,6 @@ __all__ = [
     "Forbidden",
     "RateLimited",
     "InvalidParams",
-    "TooManyJobs",
     "JsonLimit",
 ]
 
@@ -81,13 +80,6 @@ class RateLimited(ApiError):
 
     slug = "rate-limited"
     title = "Rate limit exceeded"
-
-
-class TooManyJobs(ApiError):
-    """The tenant has too many queued jobs; wait for some to finish."""
-
-    slug = "too-many-jobs"
-    title = "Queued job limit reached"
 
 
 class JsonLimit(ApiError):

@@ -13,8 +13,6 @@ from fastapi.responses import JSONResponse
 
 from service.intake import SizeLimits
 from service.intake.dialect import DELIMITER_SPELLINGS, parse_delimiter
-from service.loader import load_version
-from storage.db import write_session
 from storage.repo import graphs as graph_repo
 from storage.repo import idempotency as idem_repo
 
@@ -184,7 +182,7 @@ async def create_version(
         parse_delimiter(delimiter)  # refuse a bad value before reading the body
     if fmt == "graphml" and part == "nodes":
         part = "edges"  # a GraphML file carries both; its nodes are applied with its edges
-    from service import ingest
+    from service.usecases import uploads as ingest
 
     maker = request.app.state.sessionmaker
     # Check the graph exists before reading a large body.
@@ -212,64 +210,18 @@ async def create_version(
         route = f"POST /v1/graphs/{graph_id}/versions"
         digest = _hash(spool.sha256, options)
 
-        def work() -> tuple[int, dict[str, object], str]:
-            # Read (and build the new version) outside any write transaction, then
-            # write in one short BEGIN IMMEDIATE transaction: on SQLite a deferred
-            # transaction that reads first and writes later fails with "database is
-            # locked" when another writer got in between. The compare-and-set in
-            # add_version turns a concurrent upload into a clean 409 instead.
-            with maker() as db:
-                g = graph_repo.get_graph(db, tenant, graph_id)
-                if idempotency_key:
-                    replay = idem_repo.get_replay(db, tenant, idempotency_key, route, digest)
-                    if replay is not None:
-                        return replay.status_code, replay.body, replay.location or ""
-                based_on = g.latest_version
-                directed, self_loops = g.directed, g.allow_self_loops
-                previous = load_version(db, graph_repo.get_version(db, g)) if based_on else None
-            made = ingest.build_version(
-                spool.path, options, directed=directed, allow_self_loops=self_loops, previous=previous,
-                limits=limits,
+        def work() -> ingest.Uploaded:
+            return ingest.upload_version(
+                maker, tenant, graph_id, spool.path, options, limits=limits,
+                render=lambda g, v: version_read(g.id, v).model_dump(mode="json"),
+                idempotency_key=idempotency_key, request_hash=digest, route=route,
             )
-            with write_session(maker) as db:
-                g = graph_repo.get_graph(db, tenant, graph_id)
-                if idempotency_key:
-                    replay = idem_repo.get_replay(db, tenant, idempotency_key, route, digest)
-                    if replay is not None:
-                        return replay.status_code, replay.body, replay.location or ""
-                version = graph_repo.add_version(
-                    db,
-                    g,
-                    based_on=based_on,
-                    arrays=made.arrays,
-                    manifest_extra=made.manifest,
-                    summary=made.summary,
-                    origin=made.origin,
-                    nodes=made.nodes,
-                    edges=made.edges,
-                    edges_digest=made.edges_digest,
-                )
-                body = version_read(g.id, version).model_dump(mode="json")
-                location = f"/v1/graphs/{g.id}/versions/{version.number}"
-                if idempotency_key:
-                    idem_repo.add_record(
-                        db,
-                        tenant_id=tenant,
-                        key=idempotency_key,
-                        route=route,
-                        request_hash=digest,
-                        status_code=201,
-                        body=body,
-                        location=location,
-                    )
-                db.commit()
-                return 201, body, location
 
-        code, body, location = await run_in_threadpool(work)
+        done = await run_in_threadpool(work)
     finally:
         spool.remove()
     del graph
-    return JSONResponse(body, status_code=code, headers={"Location": location})
+    return JSONResponse(done.body, status_code=done.status_code, headers={"Location": done.location})
 
 
 @router.get("/{graph_id}/versions", summary="List a graph's versions")

@@ -11,28 +11,25 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
-from pydantic import BaseModel, ValidationError
-from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.jobs import admission, registry, webhooks
+from service.jobs import queueing, registry, webhooks
 from service.jobs.clock import Clock, SystemClock
-from service.jobs.errors import InvalidJobParams, ResultNotReady
-from service.loader import load_version
-from storage.errors import NotFound
-from storage.models import FINISHED_STATUSES, Graph, Job, JobResult
-from storage.repo import graphs as graph_repo
+from service.jobs.errors import ResultNotReady
+from storage.models import FINISHED_STATUSES, Job, JobResult
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
+from service.settings import Settings
+
 from .deps import DbDep, SettingsDep, TenantDep, require_graph
-from .errors import InvalidParams, TooManyJobs
+from .errors import InvalidParams
 from .rendering import round_document
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.results import JobResult as JobResultDocument
-from .schemas.jobs import JobCreate, JobKindList, JobKindRead, JobPage, JobRead, JobSpec, JobStatus
+from .schemas.jobs import JobCreate, JobKindList, JobKindRead, JobPage, JobRead, JobStatus
 
-__all__ = ["router", "clock_of", "resolve_job_spec", "result_response", "etag_matches"]
+__all__ = ["router", "clock_of", "queue_limits", "result_response", "etag_matches"]
 
 router = APIRouter(tags=["jobs"], responses=PROBLEM_RESPONSES)
 
@@ -55,56 +52,14 @@ def clock_of(request: Request) -> Clock:
     return clock or SystemClock()
 
 
+def queue_limits(settings: Settings) -> queueing.QueueLimits:
+    return queueing.QueueLimits(settings.job_max_queued_per_tenant, settings.job_max_attempts,
+                                settings.job_memory_limit())
+
+
 def maker_of(request: Request) -> sessionmaker[Session]:
     maker: sessionmaker[Session] = request.app.state.sessionmaker
     return maker
-
-
-def parse_params_strictly(kind: registry.JobKind, raw: dict[str, Any]) -> BaseModel:
-    """The kind's params as the registry reads them, after a strict pass over the JSON as sent.
-
-    Strict as the request bodies are: ``0`` is no boolean and ``"3"`` no integer (``3.0`` is 3).
-    """
-    params = registry.parse_params(kind, raw)  # the kind's own messages for anything else
-    try:
-        kind.params.model_validate_json(json.dumps(_whole_numbers(raw)), strict=True)
-    except ValidationError as exc:
-        errors = registry.validation_errors(exc)
-        raise InvalidJobParams(f"{'.'.join(errors[0]['loc'])}: {errors[0]['msg']}", field="params",
-                               errors=errors) from exc
-    return params
-
-
-def _whole_numbers(value: Any) -> Any:
-    """3.0 as 3 throughout (JSON Schema's integers); a float field takes an int as well."""
-    if isinstance(value, float) and value.is_integer():
-        return int(value)
-    if isinstance(value, list):
-        return [_whole_numbers(v) for v in value]
-    if isinstance(value, dict):
-        return {k: _whole_numbers(v) for k, v in value.items()}
-    return value
-
-
-def resolve_job_spec(db: Session, tenant: str, graph_id: str, spec: JobSpec) -> tuple[Graph, int, dict[str, Any]]:
-    """Check the kind, params and version of a job spec; return (graph, version, normalised params)."""
-    graph = graph_repo.get_graph(db, tenant, graph_id)  # an unknown graph is a 404 before anything else
-    kind = registry.get_kind(spec.kind)
-    params = parse_params_strictly(kind, spec.params)
-    if spec.version is None:
-        if graph.latest_version < 1:
-            raise InvalidParams("the graph has no versions yet; upload its edges first", field="version")
-        version = graph.latest_version
-    else:
-        try:
-            version = graph_repo.get_version(db, graph, spec.version).number
-        except NotFound as exc:
-            raise InvalidParams(
-                f"version {spec.version} does not exist; the newest is {graph.latest_version}",
-                field="version",
-                value=spec.version,
-            ) from exc
-    return graph, version, params.model_dump(mode="json")
 
 
 def _request_hash(*parts: object) -> str:
@@ -129,46 +84,13 @@ def create_job(
 ) -> JSONResponse:
     registry.import_kind_modules(settings.job_kind_modules)
     digest = _request_hash("POST /v1/graphs/{graph_id}/jobs", graph_id, body.model_dump(mode="json"))
-    now = clock_of(request).now()
-    kind = registry.get_kind(body.kind) if body.kind in registry.REGISTRY else None
-    if kind is not None and (kind.precheck is not None or kind.estimate is not None):
-        # Before the write transaction: checking ids and estimating memory may load the version.
-        with maker_of(request)() as db:
-            graph, number, params = resolve_job_spec(db, tenant, graph_id, body)
-            row = graph_repo.get_version(db, graph, number)
-            parsed = kind.params.model_validate(params)
-            if kind.precheck is not None:
-                kind.precheck(parsed, lambda: load_version(db, row), edges=row.edges)
-            if kind.estimate is not None:
-                limit = settings.job_memory_limit()
-                estimate = kind.estimate(parsed, lambda: load_version(db, row), nodes=row.nodes,
-                                         edges=row.edges, limit=limit)
-                admission.admit(estimate, limit)
-    with job_repo.write_session(maker_of(request)) as db:
-        if idempotency_key:
-            replay = job_repo.get_by_idempotency_key(db, tenant, idempotency_key, digest)
-            if replay is not None:
-                return _job_response(replay, status.HTTP_200_OK)
-        graph, version, params = resolve_job_spec(db, tenant, graph_id, body)
-        if job_repo.count_queued(db, tenant) >= settings.job_max_queued_per_tenant:
-            raise TooManyJobs(
-                f"{settings.job_max_queued_per_tenant} jobs are already queued for this tenant",
-                retry_after=30,
-            )
-        job, created = job_repo.add_job(
-            db,
-            tenant_id=tenant,
-            graph_id=graph.id,
-            version=version,
-            kind=body.kind,
-            params=params,
-            now=now,
-            priority=body.priority,
-            max_attempts=settings.job_max_attempts,
-            idempotency_key=idempotency_key,
-            request_hash=digest if idempotency_key else None,
-        )
-        db.commit()
+    maker = maker_of(request)
+    job, created = queueing.queue_job(
+        maker, lambda: job_repo.write_session(maker), tenant, graph_id,
+        queueing.JobOrder(body.kind, body.params, body.version, body.priority),
+        now=clock_of(request).now(), limits=queue_limits(settings),
+        idempotency_key=idempotency_key, request_hash=digest if idempotency_key else None,
+    )
     return _job_response(job, status.HTTP_202_ACCEPTED if created else status.HTTP_200_OK)
 
 
@@ -236,9 +158,7 @@ async def read_job(
 
     def status_of() -> str | None:
         with maker() as db:
-            return db.execute(
-                select(Job.status).where(Job.id == job_id, Job.tenant_id == tenant)
-            ).scalar_one_or_none()
+            return job_repo.get_job_status(db, tenant, job_id)
 
     job = await run_in_threadpool(fetch)
     deadline = time.monotonic() + min(wait, settings.wait_max_seconds)

@@ -9,10 +9,13 @@ service scrapes without a key; from anywhere else it needs a key with the
 
 from __future__ import annotations
 
+from datetime import datetime
+
 from fastapi import APIRouter, Request, Response
 from fastapi.concurrency import run_in_threadpool
 
-from service.metrics import CONTENT_TYPE_LATEST, QueueCollector, exposition
+from service.telemetry.metrics import CONTENT_TYPE_LATEST, QueueCollector, exposition
+from storage.repo import jobs as job_repo
 
 from .auth import _lookup
 from .errors import Forbidden, Unauthorized
@@ -57,6 +60,12 @@ async def read_metrics(request: Request) -> Response:
     client = request.client.host if request.client else None
     if not (settings.metrics_open_on_loopback and is_loopback(client)):
         await run_in_threadpool(_require_admin, request)
-    queue = QueueCollector(request.app.state.sessionmaker, lease_seconds=settings.job_lease_seconds)
+    maker = request.app.state.sessionmaker
+
+    def read_queue(now: datetime) -> job_repo.QueueFigures:
+        with maker() as db:
+            return job_repo.get_queue_figures(db, now)
+
+    queue = QueueCollector(read_queue, lease_seconds=settings.job_lease_seconds)
     body = await run_in_threadpool(exposition, queue)
     return Response(body, media_type=CONTENT_TYPE_LATEST)

@@ -14,7 +14,7 @@ What is added to what FastAPI writes from the routes:
 - **Security**: the bearer API key (RFC 6750) on every ``/v1`` operation.
 - **Cursors**: every ``cursor`` query parameter has the custom format ``cursor``:
   a string only the service makes (a page's ``next_cursor``).
-- **Results**: a kind registered from ``job_kind_modules`` with a ``result_model``
+- **Results**: a kind registered from ``job_kind_modules`` with a ``result`` model
   joins the ``JobResult`` union (the built-in kinds' models are in ``schemas/results.py``).
 - **Files**: every body that is not JSON (CSV, NDJSON, GraphML uploads, CSV exports,
   SVG plots) is ``{"type": "string", "format": "binary"}`` under its own media type.
@@ -157,7 +157,7 @@ def build_openapi(app: FastAPI) -> dict[str, Any]:
 
 
 def _add_kind_results(app: FastAPI, schemas: dict[str, Any]) -> None:
-    """Kinds from ``job_kind_modules`` that set ``result_model`` join the ``JobResult`` union.
+    """Kinds from ``job_kind_modules`` that set ``result`` join the ``JobResult`` union.
 
     Their model must have ``kind: Literal["<name>"]``, as the built-in result models do.
     """
@@ -166,7 +166,7 @@ def _add_kind_results(app: FastAPI, schemas: dict[str, Any]) -> None:
         return
     registry.import_kind_modules(app.state.settings.job_kind_modules)
     for kind in sorted(registry.REGISTRY.values(), key=lambda k: k.name):
-        model = kind.result_model
+        model = kind.result
         if model is None or kind.name in union["discriminator"]["mapping"]:
             continue
         own = model.model_json_schema(ref_template="#/components/schemas/{model}")

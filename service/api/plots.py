@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import math
-import re
 from typing import Any, Literal
 
 from fastapi import APIRouter, Response
 
-from service import plots
+from service.jobs import registry
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
@@ -20,21 +18,23 @@ __all__ = ["router", "render_plot", "PLOTS"]
 
 router = APIRouter(tags=["plots"], responses=PROBLEM_RESPONSES)
 
+
+def _plots() -> dict[str, tuple[str, ...]]:
+    """Plot name -> the job kinds it is drawn from, as the kinds declare them."""
+    found: dict[str, list[str]] = {}
+    for kind in registry.REGISTRY.values():
+        for name in kind.plots:
+            found.setdefault(name, []).append(kind.name)
+    return {name: tuple(kinds) for name, kinds in found.items()}
+
+
 #: Plot name -> the job kinds it is drawn from.
-PLOTS: dict[str, tuple[str, ...]] = {
-    "degree_distribution": ("profile",),
-    "reach_curve": ("shortlist",),
-    "segment_reach": ("shortlist", "forecast"),
-    "adoption": ("forecast",),
-    "outcomes": ("forecast",),
-}
-PlotName = Literal["degree_distribution", "reach_curve", "segment_reach", "adoption", "outcomes"]
+PLOTS = _plots()
+PlotName: Any = Literal[tuple(PLOTS)]  # the plot names the registry's kinds declare
 
 SVG_RESPONSE: dict[int | str, dict[str, Any]] = {
     200: {"content": {"image/svg+xml": {"schema": {"type": "string"}}}, "description": "An SVG image."}
 }
-Z95 = 1.959963984540054  # two-sided 95% normal quantile
-Z90 = 1.6448536269514722  # two-sided 90% normal quantile (5th to 95th percentile)
 
 
 @router.get(
@@ -53,7 +53,7 @@ Z90 = 1.6448536269514722  # two-sided 90% normal quantile (5th to 95th percentil
 )
 def read_plot(job_id: str, name: PlotName, db: DbDep, tenant: TenantDep) -> Response:
     job = job_repo.get_job(db, tenant, job_id)
-    want = PLOTS[name]
+    want = _plots().get(name, ())
     if job.kind not in want:
         raise InvalidParams(
             f"plot {name!r} is drawn from a {' or '.join(want)} job; job {job.id} is a {job.kind} job", field="name"
@@ -61,178 +61,13 @@ def read_plot(job_id: str, name: PlotName, db: DbDep, tenant: TenantDep) -> Resp
     if job.status != "succeeded":
         raise InvalidParams(f"job {job.id} has not succeeded (status {job.status}); no plot yet", field="job_id")
     result = result_repo.get_result(db, job.id)
-    svg = render_plot(name, result.data)
+    svg = registry.get_kind(job.kind).plots[name](result.data)
     return Response(svg, media_type="image/svg+xml", headers={"ETag": f'"{result.etag}-{name}-2"'})
 
 
 def render_plot(name: str, data: dict[str, Any]) -> str:
-    """The SVG for one plot of a result's data."""
-    if name == "degree_distribution":
-        return _degrees(data)
-    if name == "reach_curve":
-        return _reach_curve(data)
-    if name == "segment_reach":
-        return _segments(data)
-    if name == "adoption":
-        return _adoption(data)
-    if name == "outcomes":
-        return _outcomes(data)
-    raise InvalidParams(f"unknown plot {name!r}; plots: {', '.join(PLOTS)}", field="name")
-
-
-def _degrees(data: dict[str, Any]) -> str:
-    dist = data["degree_distribution"]["total"]
-    edges, density = dist["edges"], dist["density"]
-    # Bin centres on the log scale (geometric mean of the bin's smallest and largest degree).
-    centres = [(a * max(b - 1, a)) ** 0.5 for a, b in zip(edges[:-1], edges[1:])]
-    pts = [(c, d) for c, d in zip(centres, density) if d > 0]
-    fit = data.get("power_law") or {}
-    alpha, xmin = fit.get("alpha"), fit.get("x_min")
-    fx: list[float] = []
-    fy: list[float] = []
-    if alpha and xmin and fit.get("n") and pts:
-        from scipy.special import zeta
-
-        # The fitted law as a probability per degree value, like the histogram's density:
-        # share of people in the tail times x^-alpha / zeta(alpha, x_min) (Clauset, Shalizi,
-        # Newman 2009, eq. 2.4 for discrete data; continuous approximation when not discrete).
-        tail = float(fit.get("n_tail") or 0) / float(fit["n"])
-        top = max(float(edges[-1]) - 1, xmin)
-        steps = 40
-        fx = [xmin * (top / xmin) ** (i / steps) for i in range(steps + 1)]
-        if fit.get("discrete", True):
-            norm = float(zeta(alpha, xmin))
-            fy = [tail * x ** -alpha / norm for x in fx]
-        else:
-            fy = [tail * (alpha - 1) / xmin * (x / xmin) ** -alpha for x in fx]
-    return plots.degree_distribution_svg([p[0] for p in pts], [p[1] for p in pts], fit_x=fx or None,
-                                         fit_y=fy or None, alpha=alpha, x_min=xmin)
-
-
-def _rr_count(source: str | None) -> int | None:
-    m = re.search(r"([\d,]+) fresh RR sets", source or "")
-    return int(m.group(1).replace(",", "")) if m else None
-
-
-def _reach_curve(data: dict[str, Any]) -> str:
-    curve = [float(v) for v in data["reach_curve"]]
-    people = int(data.get("nodes") or 0) or None
-    unit = str(data.get("reach_unit") or "people")
-    low = high = None
-    sets = _rr_count(data.get("reach_curve_source"))
-    if sets and people and unit == "people":
-        # The curve is n times the share f of R random RR sets covered, a binomial share:
-        # its standard error is n * sqrt(f (1 - f) / R).
-        se = [people * math.sqrt(max(f, 0.0) * max(1 - f, 0.0) / sets) for f in (c / people for c in curve)]
-        low = [max(c - Z95 * s, 0.0) for c, s in zip(curve, se)]
-        high = [c + Z95 * s for c, s in zip(curve, se)]
-    others = {
-        plots.nice_name(k): [float(v) for v in b["reach_curve"]]
-        for k, b in (data.get("baselines") or {}).items()
-        if isinstance(b, dict) and b.get("reach_curve")
-    }
-    exp = data.get("expected_reach") or {}
-    check = (float(exp["mean"]), float(exp["ci_low"]), float(exp["ci_high"])) if unit == "people" and exp else None
-    seeds = data.get("seeds") or []
-    return plots.reach_curve_svg(curve, low=low, high=high, others=others, budget=len(seeds) or None,
-                                 people=people, unit=unit, check=check)
-
-
-def _forecast_sets(data: dict[str, Any]) -> list[dict[str, Any]]:
-    sets = data.get("forecasts") or []
-    if not sets:
-        raise InvalidParams("the forecast has no seed sets to plot", field="name")
-    return list(sets)
-
-
-def _set_name(f: dict[str, Any]) -> str:
-    return plots.nice_name(str(f["name"]), f.get("seed_count"))
-
-
-def _segments(data: dict[str, Any]) -> str:
-    if "forecasts" in data:
-        sets = {_set_name(f): f.get("segment_reach") or [] for f in _forecast_sets(data)}
-    else:
-        sets = {"optimised shortlist": data.get("segment_reach") or []}
-    order = [s["segment"] for s in next(iter(sets.values()))]
-    if not order:
-        raise InvalidParams("the result has no segments to plot; upload a segment column with the people",
-                            field="name")
-    values = {name: [next((float(s["expected"]) for s in rows if s["segment"] == seg), 0.0) for seg in order]
-              for name, rows in sets.items()}
-    return plots.segment_reach_svg(order, values)
-
-
-def _adoption(data: dict[str, Any]) -> str:
-    conf = float(data.get("confidence") or 0.95)
-    z = Z95 if abs(conf - 0.95) < 1e-9 else _z(conf)
-    series = []
-    for f in _forecast_sets(data):
-        br = f["by_round"]
-        n = max(int(f.get("simulations") or 1), 1)
-        mean = [float(x["cumulative_mean"]) for x in br]
-        lo = [float(x["ci_low"]) for x in br]
-        hi = [float(x["ci_high"]) for x in br]
-        # The interval's half-width is z * sd / sqrt(runs): the runs' standard deviation per round.
-        sd = [(h - m) * math.sqrt(n) / z for h, m in zip(hi, mean)]
-        floor = float(f.get("seed_count") or 0)
-        p = f.get("percentiles") or {}
-        series.append(plots.AdoptionSeries(
-            name=_set_name(f), rounds=[int(x["round"]) for x in br], mean=mean, ci_low=lo, ci_high=hi,
-            spread_low=[max(m - Z90 * s, floor) for m, s in zip(mean, sd)],
-            spread_high=[m + Z90 * s for m, s in zip(mean, sd)],
-            final_p5=p.get("p5"), final_p95=p.get("p95"),
-        ))
-    return plots.adoption_svg(series, confidence=conf)
-
-
-def _z(confidence: float) -> float:
-    from statistics import NormalDist
-
-    return NormalDist().inv_cdf(0.5 + confidence / 2.0)
-
-
-def _rebin(src_edges: list[float], src_counts: list[int], edges: list[float]) -> list[int]:
-    """Counts moved onto ``edges``, each stored bin shared out by how much of it each new bin covers.
-
-    Sets are stored on bins of their own; moving a whole bin by its left edge piles two
-    source bins into one bar now and then (a spike that is not in the data).
-    """
-    out = [0.0] * (len(edges) - 1)
-    for left, right, c in zip(src_edges[:-1], src_edges[1:], src_counts):
-        span = max(float(right) - float(left), 1e-12)
-        for j in range(len(out)):
-            overlap = min(right, edges[j + 1]) - max(left, edges[j])
-            if overlap > 0:
-                out[j] += c * overlap / span
-    # Whole campaigns per bar, keeping the total (largest remainders get the leftovers).
-    floors = [int(x) for x in out]
-    rest = int(round(sum(src_counts))) - sum(floors)
-    for j in sorted(range(len(out)), key=lambda j: out[j] - floors[j], reverse=True)[:max(rest, 0)]:
-        floors[j] += 1
-    return floors
-
-
-def _outcomes(data: dict[str, Any]) -> str:
-    sets = [f for f in _forecast_sets(data) if f.get("outcome_histogram")]
-    if not sets:
-        raise InvalidParams("this forecast was stored without its outcome histogram; run it again to plot it",
-                            field="name")
-    lo = min(f["outcome_histogram"]["edges"][0] for f in sets)
-    hi = max(f["outcome_histogram"]["edges"][-1] for f in sets)
-    runs = max(sum(int(c) for c in f["outcome_histogram"]["counts"]) for f in sets)
-    bins = max(8, min(30, int(math.sqrt(runs))))  # square-root rule (common practice), at most 30 bars
-    width = max(1.0, float(math.ceil((hi - lo) / bins)))
-    edges = [lo + width * i for i in range(int(math.ceil((hi - lo) / width)) + 1)]
-    counts: dict[str, list[int]] = {}
-    marks: dict[str, dict[str, float]] = {}
-    for f in sets:
-        h = f["outcome_histogram"]
-        cs = _rebin(h["edges"], h["counts"], edges)
-        name = _set_name(f)
-        counts[name] = cs
-        p = f.get("percentiles") or {}
-        marks[name] = {k: float(v) for k, v in (("5th percentile", p.get("p5")),
-                                               ("average", f["expected_reach"]["mean"]),
-                                               ("95th percentile", p.get("p95"))) if v is not None}
-    return plots.outcomes_svg(edges, counts, marks=marks)
+    """The SVG for one plot of a result's data (the first kind that declares the plot draws it)."""
+    kinds = _plots().get(name)
+    if not kinds:
+        raise InvalidParams(f"unknown plot {name!r}; plots: {', '.join(_plots())}", field="name")
+    return registry.get_kind(kinds[0]).plots[name](data)

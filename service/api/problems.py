@@ -72,6 +72,7 @@ PROBLEM_STATUS: dict[type[Exception], int] = {
     jerr.UnsafeWebhookUrl: 422,
     jerr.InvalidSchedule: 422,
     jerr.ResultNotReady: 404,
+    jerr.TooManyJobs: 429,
     apierr.BadRequest: 400,
     apierr.InvalidParams: 422,
     apierr.JsonLimit: 422,
@@ -80,7 +81,6 @@ PROBLEM_STATUS: dict[type[Exception], int] = {
     apierr.Unauthorized: 401,
     apierr.Forbidden: 403,
     apierr.RateLimited: 429,
-    apierr.TooManyJobs: 429,
 }
 
 VALIDATION = ProblemType(422, "validation-error", "Request validation failed")
@@ -143,7 +143,7 @@ def install_problem_handlers(app: FastAPI) -> None:
         if ptype is None:  # a subclass that carries no problem type: an internal error
             return await handle_unexpected(request, exc)
         headers = None
-        if isinstance(exc, (apierr.RateLimited, apierr.TooManyJobs)):
+        if isinstance(exc, (apierr.RateLimited, jerr.TooManyJobs)):
             headers = {"Retry-After": str(int(getattr(exc, "data", {}).get("retry_after", 1)))}
         if isinstance(exc, apierr.Unauthorized):
             headers = {"WWW-Authenticate": 'Bearer realm="bellwether"'}

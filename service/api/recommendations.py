@@ -26,21 +26,18 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.analytics.errors import UnknownNode
 from service.analytics.ties.recommend import Recommendation, recommend_for
 from service.analytics.ties.referrals import NextContact, next_contacts, referral_asks
-from service.diffusion_cache import diffusion_graph_for
+from service.usecases.diffusion_inputs import diffusion_graph_for
 from service.indexes import compute_pool, follow_on_for, neighbour_index_for
+from service.jobs import registry
 from service.jobs.errors import ResultNotReady
-from service.jobs.tasks import link_evaluation as link_evaluation_task
-from service.jobs.tasks import recommendations as recommendations_task
-from service.jobs.tasks import referral_asks as referral_asks_task
 from service.jobs.tasks.referral_asks import contact_reason, exposure_explained
-from service.loader import LoadedVersion, load_version
+from service.usecases.loading import LoadedVersion, load_version
 from service.rankings import safe_cell
 from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 from storage.repo import results as result_repo
 
-from . import result_csv
 from .deps import SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
@@ -56,7 +53,7 @@ from .schemas.recommendations import (
     RecommendationPage,
 )
 
-__all__ = ["CSV_EXPORTS", "csv_cell", "router"]
+__all__ = ["csv_cell", "router"]
 
 router = APIRouter(tags=["recommendations"], responses=PROBLEM_RESPONSES)
 
@@ -66,14 +63,9 @@ T = TypeVar("T")
 # Bumped whenever the ranking or the answer's shape changes, so old ETags stop matching.
 ETAG_SALT = "recommendations/1"
 
-#: Job kinds whose result can be exported as CSV, and how.
-CSV_EXPORTS: dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]] = {
-    "recommendations": recommendations_task.csv_table,
-    "link_evaluation": link_evaluation_task.csv_table,
-    "referral_asks": referral_asks_task.csv_table,
-    "shortlist": result_csv.shortlist_table,
-    "forecast": result_csv.forecast_table,
-}
+def _csv_exports() -> dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]]:
+    """Job kinds whose result can be exported as CSV, and how (each kind declares its ``csv``)."""
+    return {k.name: k.csv for k in registry.REGISTRY.values() if k.csv is not None}
 
 
 def _maker(request: Request) -> sessionmaker[Session]:
@@ -449,11 +441,12 @@ async def read_job_result_csv(
     def prepare() -> Response:
         with maker() as db:
             job = job_repo.get_job(db, tenant, job_id)
-            render = CSV_EXPORTS.get(job.kind)
+            exports = _csv_exports()
+            render = exports.get(job.kind)
             if render is None:
                 raise HTTPException(
                     status.HTTP_406_NOT_ACCEPTABLE,
-                    f"jobs of kind {job.kind!r} have no CSV export; kinds with one: {', '.join(sorted(CSV_EXPORTS))}",
+                    f"jobs of kind {job.kind!r} have no CSV export; kinds with one: {', '.join(sorted(exports))}",
                 )
             if job.status != "succeeded":
                 raise ResultNotReady(f"job {job.id} has no result: it is {job.status}", job_id=job.id,

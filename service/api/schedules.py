@@ -9,7 +9,7 @@ from typing import Annotated
 from fastapi import APIRouter, Header, Query, Request, Response, status
 from fastapi.responses import JSONResponse
 
-from service.jobs import registry
+from service.jobs import queueing, registry
 from service.jobs.errors import ResultNotReady
 from service.jobs.schedules import next_run_after
 from storage.repo import graphs as graph_repo
@@ -25,8 +25,6 @@ from .jobs import (
     IfNoneMatch,
     clock_of,
     maker_of,
-    parse_params_strictly,
-    resolve_job_spec,
     result_response,
 )
 from .schemas.common import PROBLEM_RESPONSES
@@ -57,11 +55,10 @@ def create_schedule(
         graph_repo.get_graph(db, tenant, body.graph_id)  # an unknown graph is a 404 before anything else
         next_run = next_run_after(body.cron, body.timezone, now)
         spec = body.job
-        if spec.version is None:
-            # A schedule without a version follows the newest; only the kind and params are checked now.
-            params = parse_params_strictly(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
-        else:
-            _, _, params = resolve_job_spec(db, tenant, body.graph_id, spec)
+        # A schedule without a version follows the newest; only the kind and params are checked now.
+        params = queueing.parse_job_params(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
+        if spec.version is not None:
+            queueing.resolve_version(db, tenant, body.graph_id, spec.version)
         schedule = schedule_repo.add_schedule(
             db,
             tenant_id=tenant,

@@ -32,7 +32,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from service import rankings as R
 from service.analytics.structure.centrality import MEASURES
 from service.jobs.errors import ResultNotReady
-from service.loader import load_version
+from service.usecases.loading import load_version
 from service.settings import Settings
 from storage.arrays import decode_strings, read_array
 from storage.errors import NotFound

@@ -12,7 +12,7 @@ from typing import TYPE_CHECKING
 
 import uvicorn
 
-from service.logs import configure_logging, uvicorn_log_config
+from service.telemetry.logs import configure_logging, uvicorn_log_config
 from service.settings import Settings
 
 if TYPE_CHECKING:

@@ -26,10 +26,10 @@ from pathlib import Path
 from types import FrameType
 from typing import Any
 
-from service.caches import set_max_bytes as set_cache_bytes
-from service.jobs.tasks.forecast import warm_kernels
+from service.usecases.caches import set_max_bytes as set_cache_bytes
+from service.usecases.forecasts import warm_kernels
 from service.jobs.worker import Worker, WorkerConfig, give_back_jobs
-from service.logs import configure_logging
+from service.telemetry.logs import configure_logging
 from service.settings import Settings
 from storage.db import make_engine, make_sessionmaker
 

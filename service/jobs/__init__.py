@@ -1,6 +1,6 @@
 """Background jobs: the kind registry, the worker, retries, schedules and webhooks.
 
-May import ``service.analytics``, ``service.loader`` and ``storage``; never
+May import ``service.analytics``, ``service.usecases.loading`` and ``storage``; never
 the HTTP layer. Nothing here reads settings: callers pass plain values
 (:class:`service.jobs.worker.WorkerConfig`).
 """

@@ -41,7 +41,7 @@ from typing import TYPE_CHECKING, Any
 from service.analytics.errors import TooExpensive
 
 if TYPE_CHECKING:
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = [
     "Estimate",
@@ -113,7 +113,7 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
     import numpy as np
 
     from service.analytics.seeding._rr import RRCollection, RRSampler
-    from service.diffusion_cache import diffusion_graph_for
+    from service.usecases.diffusion_inputs import diffusion_graph_for
 
     v = load()
     if v.graph.n == 0:

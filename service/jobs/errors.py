@@ -24,6 +24,7 @@ __all__ = [
     "UnsafeWebhookUrl",
     "InvalidSchedule",
     "ResultNotReady",
+    "TooManyJobs",
     "Released",
     "WorkerLost",
     "JobTimeout",
@@ -77,6 +78,13 @@ class InvalidSchedule(JobsError):
 
     slug = "invalid-schedule"
     title = "Invalid schedule"
+
+
+class TooManyJobs(JobsError):
+    """The tenant has too many queued jobs; wait for some to finish."""
+
+    slug = "too-many-jobs"
+    title = "Queued job limit reached"
 
 
 class ResultNotReady(JobsError):

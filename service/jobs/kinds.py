@@ -5,30 +5,19 @@ See :mod:`service.jobs.registry` for how to add a kind.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
-from numpy.typing import NDArray
 from pydantic import BaseModel
 
+from service.usecases.outcome import RESERVED_RESULT_KEYS, Progress
+from service.usecases.outcome import Computed as TaskOutput
+
 if TYPE_CHECKING:
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = ["JobKind", "TaskContext", "TaskOutput", "Progress", "RESERVED_RESULT_KEYS"]
-
-Progress = Callable[[float, "str | None"], None]
-
-# Every result document carries these; a task's own data must not use them.
-RESERVED_RESULT_KEYS = ("kind", "graph_id", "version", "params", "random_seed", "job_id", "created_at", "arrays")
-
-
-@dataclass(frozen=True)
-class TaskOutput:
-    """What a task returns: a JSON-able document and named numpy arrays (one per node, say)."""
-
-    data: dict[str, Any]
-    arrays: dict[str, NDArray[Any]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True, eq=False)
@@ -70,9 +59,15 @@ class JobKind:
     summary: str
     result_description: str
     needs_graph: bool = True
-    # The result document's model, for the OpenAPI document (``kind: Literal[name]`` plus the task's
-    # fields). Built-in kinds leave it None: their models live with the API (service/api/schemas/results.py).
-    result_model: type[BaseModel] | None = None
+    # The result document's model (``kind: Literal[name]`` plus the task's fields): the
+    # ``JobResult`` union of the OpenAPI document is built from these, in registry order.
+    result: type[BaseModel] | None = None
+    # The CSV export of a succeeded result, ``csv(version, data, arrays) -> (header, rows)``
+    # (``GET /v1/jobs/{id}/result.csv``); None: this kind has no CSV export.
+    csv: Callable[..., tuple[list[str], Iterator[list[Any]]]] | None = None
+    # Plots of a succeeded result by name, ``plot(data) -> SVG text``
+    # (``GET /v1/jobs/{id}/plots/{name}.svg``).
+    plots: Mapping[str, Callable[[dict[str, Any]], str]] = field(default_factory=dict)
     # Checks that need the version, run at job creation in the API process:
     # ``precheck(params, load, edges=...)`` raises an analytics error (a 422) or returns.
     precheck: Callable[..., None] | None = None

@@ -1,23 +1,28 @@
 """Every job kind, by name: the map of what the workers can run.
 
-Adding a kind is one file and one line:
+Adding a kind is one module and one line:
 
-1. Write ``service/jobs/tasks/<name>.py`` with a params model (pydantic,
-   ``model_config = ConfigDict(extra="forbid")``, a ``random_seed: int = 0``
-   field when the computation is random) and a task function that reads as
-   three lines: load the version, call one analytics function, return the
-   output::
+1. The capability itself is a use case in ``service/usecases/<family>.py``: a params
+   model (pydantic, ``model_config = ConfigDict(extra="forbid")``, a
+   ``random_seed: int = 0`` field when the computation is random), a result model
+   (subclass ``service.usecases.result_models.Result`` with ``kind: Literal[name]``),
+   and one callable ``(version, params, *, progress) -> Computed`` that calls the
+   engine (``service.analytics``) and returns the document and arrays.
+2. Write ``service/jobs/tasks/<name>.py``, the door: ``run(ctx, params)`` calls the
+   use case with ``ctx.load()`` and ``ctx.progress``, and ``KIND`` declares
+   everything the API and the worker need::
 
        def run(ctx: TaskContext, params: ScoresParams) -> TaskOutput:
-           v = ctx.load()
-           values = analytics.node_scores(v.graph, measures=params.measures,
-                                          progress=ctx.progress)
-           return TaskOutput(data={"measures": params.measures}, arrays=values)
+           return compute_scores(ctx.load(), params, progress=ctx.progress)
 
-       KIND = JobKind(name="scores", params=ScoresParams, run=run,
+       KIND = JobKind(name="scores", params=ScoresParams, result=ScoresResult, run=run,
+                      csv=scores_table,                    # GET /v1/jobs/{id}/result.csv
+                      plots={"degrees": degrees_plot},      # GET /v1/jobs/{id}/plots/{name}.svg
+                      estimate=admission.linear_estimate,  # memory, checked before queueing
                       summary="Node scores", result_description="...")
 
-2. Add the module to ``_BUILTIN`` below.
+3. Add the module to ``_BUILTIN`` below. The ``JobResult`` union of the OpenAPI
+   document, the plot names and the CSV exports are all read from the registry.
 
 The worker adds ``kind``, ``graph_id``, ``version``, ``params`` and
 ``random_seed`` to every result document (and the API ``job_id``,
@@ -55,9 +60,24 @@ __all__ = [
     "validation_errors",
 ]
 
-_BUILTIN = [profile, recommendations, link_evaluation, referral_asks, scores, forecast, shortlist]
+_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
+
+
+def _attach_results() -> None:
+    # Interim: these kinds' params models still live in their task modules, which the result
+    # models import, so their result models are attached here until the params move down.
+    from dataclasses import replace
+
+    from service.usecases import result_models as rm
+
+    for name, model in (("recommendations", rm.RecommendationsResult), ("referral_asks", rm.ReferralAsksResult),
+                        ("link_evaluation", rm.LinkEvaluationResult), ("shortlist", rm.ShortlistResult)):
+        REGISTRY[name] = replace(REGISTRY[name], result=model)
+
+
+_attach_results()
 
 _imported: set[str] = set()
 

@@ -33,13 +33,13 @@ from typing import Any
 
 import httpx
 import numpy as np
-from sqlalchemy import select, update
+from sqlalchemy import update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.analytics._chunks import memory_limit
 from service.analytics.errors import Cancelled
-from service.loader import LoadedVersion, load_version
-from service.metrics import service_metrics, start_worker_metrics_server
+from service.usecases.loading import LoadedVersion, load_version
+from service.telemetry.metrics import service_metrics, start_worker_metrics_server
 from storage.errors import LeaseLost, NotFound
 from storage.models import Graph, Job
 from storage.repo import graphs as graph_repo
@@ -278,10 +278,8 @@ class Worker:
         """Claim one job and run it to its end; None when no job was eligible."""
         now = self.clock.now()
         with self.maker() as db:
-            eligible = db.execute(
-                select(Job.id).where(Job.status == "queued", Job.run_after <= now).limit(1)
-            ).first()
-        if eligible is None:
+            eligible = job_repo.any_due(db, now)
+        if not eligible:
             return None
         with job_repo.write_session(self.maker) as db:
             job = job_repo.claim_next(db, self.worker_id, self.config.lease_seconds, now)
@@ -511,10 +509,8 @@ class Worker:
 
     def requeue_expired(self, now: datetime) -> job_repo.ExpiredJobs | None:
         with self.maker() as db:
-            any_expired = db.execute(
-                select(Job.id).where(Job.status == "running", Job.lease_until < now).limit(1)
-            ).first()
-        if any_expired is None:
+            any_expired = job_repo.any_lease_expired(db, now)
+        if not any_expired:
             return None
         with job_repo.write_session(self.maker) as db:
             result = job_repo.requeue_expired(db, now, lost_error=worker_lost_error)

@@ -41,6 +41,11 @@ __all__ = [
     "get_job",
     "get_by_idempotency_key",
     "get_job_any_tenant",
+    "get_job_status",
+    "any_due",
+    "any_lease_expired",
+    "QueueFigures",
+    "get_queue_figures",
     "list_jobs",
     "count_queued",
     "claim_next",
@@ -138,6 +143,57 @@ def get_job(db: Session, tenant_id: str, job_id: str) -> Job:
     if job is None or job.tenant_id != tenant_id:
         raise NotFound("job not found", resource="job", id=job_id)
     return job
+
+
+def get_job_status(db: Session, tenant_id: str, job_id: str) -> str | None:
+    """One job's status (one primary-key read), or None when the tenant has no such job."""
+    status: str | None = db.execute(
+        select(Job.status).where(Job.id == job_id, Job.tenant_id == tenant_id)
+    ).scalar_one_or_none()
+    return status
+
+
+@dataclass(frozen=True)
+class QueueFigures:
+    """The queue as every worker and host sees it, read at one moment."""
+
+    jobs: list[tuple[str, str, int]]  # (kind, status, count)
+    due: list[tuple[str, int]]  # (kind, queued jobs whose run time has come)
+    oldest_due: datetime | None  # run_after of the oldest due queued job
+    busy_workers: int  # distinct worker ids running a job
+    expired_leases: int  # running jobs whose lease has run out
+    oldest_lease: datetime | None  # the stalest running job's lease end
+
+
+def get_queue_figures(db: Session, now: datetime) -> QueueFigures:
+    """Counts by kind and status, due jobs, busy workers and leases (four aggregate queries)."""
+    jobs = [(k, s, int(n)) for k, s, n in db.execute(
+        select(Job.kind, Job.status, func.count()).group_by(Job.kind, Job.status))]
+    due = [(k, int(n)) for k, n in db.execute(
+        select(Job.kind, func.count()).where(Job.status == "queued", Job.run_after <= now).group_by(Job.kind))]
+    oldest = db.execute(
+        select(func.min(Job.run_after)).where(Job.status == "queued", Job.run_after <= now)
+    ).scalar_one()
+    busy, expired, oldest_lease = db.execute(
+        select(
+            func.count(func.distinct(Job.worker_id)),
+            func.count().filter(Job.lease_until < now),
+            func.min(Job.lease_until),
+        ).where(Job.status == "running")
+    ).one()
+    return QueueFigures(jobs, due, oldest, int(busy), int(expired), oldest_lease)
+
+
+def any_due(db: Session, now: datetime) -> bool:
+    """Whether a queued job's run time has come (a cheap read before the write transaction of a claim)."""
+    return db.execute(select(Job.id).where(Job.status == "queued", Job.run_after <= now).limit(1)).first() is not None
+
+
+def any_lease_expired(db: Session, now: datetime) -> bool:
+    """Whether a running job's lease has run out (read before the write transaction of a requeue)."""
+    return db.execute(
+        select(Job.id).where(Job.status == "running", Job.lease_until < now).limit(1)
+    ).first() is not None
 
 
 def get_job_any_tenant(db: Session, job_id: str) -> Job:

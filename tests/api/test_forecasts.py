@@ -15,7 +15,7 @@ from typing import Any
 import pytest
 
 from service.jobs.kinds import JobKind
-from service.jobs.tasks import forecast as forecast_kind
+from service.usecases import forecasts as forecast_kind
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import assert_problem, run_worker_once, upload_csv, worker_for
 

@@ -16,7 +16,7 @@ import httpx
 import pytest
 
 from service.api.json_limits import MAX_DEPTH
-from service.logs import JsonFormatter, RequestIdFilter
+from service.telemetry.logs import JsonFormatter, RequestIdFilter
 from tests.ops.helpers import PROBLEM, bearer, make_key, secured_app
 
 pytestmark = pytest.mark.anyio

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from service.api.plots import render_plot
-from service.plots import AdoptionSeries, adoption_svg, nice_name, reach_curve_svg
+from service.usecases.plots import AdoptionSeries, adoption_svg, nice_name, reach_curve_svg
 
 SVG = "{http://www.w3.org/2000/svg}"
 #: Names that only a developer knows; a plot shows plain words.

@@ -41,7 +41,7 @@ RANKED = [m for m in MEASURES if m != "community"]
 async def sq_client(sqlite_url: str, tmp_path: Path) -> AsyncIterator[httpx.AsyncClient]:
     """The app on SQLite only, for checks that do not depend on the database."""
     from service.app import create_app
-    from service.loader import clear_cache
+    from service.usecases.loading import clear_cache
 
     app = create_app(make_settings(sqlite_url, tmp_path))
     transport = httpx.ASGITransport(app=app)

@@ -122,7 +122,7 @@ def test_a_registered_kind_with_a_result_model_joins_the_union(monkeypatch: pyte
         people: int
 
     kind = JobKind(name="count_people", params=CountParams, run=lambda ctx, p: TaskOutput(data={}),
-                   summary="Count", result_description="people", result_model=CountResult)
+                   summary="Count", result_description="people", result=CountResult)
     monkeypatch.setitem(registry.REGISTRY, kind.name, kind)
     doc = create_app(make_settings("sqlite://", Path("/nonexistent"))).openapi()
     union = doc["components"]["schemas"]["JobResult"]

@@ -135,7 +135,7 @@ async def test_imm_shortlist_against_brute_force_with_baselines_and_plot(client)
     r = await client.get(f"/v1/jobs/{job['id']}/plots/reach_curve.svg")
     assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
     texts = [t.text for t in ET.fromstring(r.text).iter(SVG + "text")]
-    # Plain words, not method names (see service.plots.nice_name).
+    # Plain words, not method names (see service.usecases.plots.nice_name).
     assert "best-connected people" in texts and "best-connected, skipping close neighbours" in texts
     assert "top_degree" not in texts
 

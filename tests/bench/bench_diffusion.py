@@ -294,7 +294,7 @@ def main() -> None:
     os.environ.setdefault("NUMBA_CACHE_DIR", str(ROOT / ".numba-cache"))
     print(f"machine: {os.cpu_count()} cores; numba cache {os.environ['NUMBA_CACHE_DIR']}")
     if not args.skip_kernels:
-        from service.jobs.tasks.forecast import warm_kernels
+        from service.usecases.forecasts import warm_kernels
 
         warm_kernels()  # numba's cache load is not part of any figure
         with tempfile.TemporaryDirectory() as tmp:

@@ -168,7 +168,7 @@ def main() -> None:
     subprocess.run([sys.executable, "-m", "tests.bench.bench_intake", "--stages", str(csv_path)], check=True)
 
     # 3. Load a stored version into igraph vs igraph from in-memory arrays.
-    from service.loader import clear_cache, load_version
+    from service.usecases.loading import clear_cache, load_version
     from storage.db import make_engine, make_sessionmaker
     from storage.repo import graphs as graph_repo
 
@@ -210,7 +210,7 @@ def stage_breakdown(csv_path: Path) -> None:
     file, in a worker thread as the server runs it, after a small warm-up
     upload. Each stage resets VmHWM on entry, so its peak is its own.
     """
-    from service import ingest
+    from service.usecases import uploads as ingest
     from storage.db import make_engine, make_sessionmaker
     from storage.migrate import upgrade
     from storage.repo import graphs as graph_repo

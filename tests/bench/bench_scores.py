@@ -84,7 +84,7 @@ def synthetic(n: int, k: int) -> None:
     from service.analytics.structure.centrality import MEASURES
     from service.analytics.graph import GraphArrays, NodeAttributes
     from service.app import create_app
-    from service.loader import version_arrays
+    from service.usecases.loading import version_arrays
     from service.rankings import result_arrays
     from service.settings import Settings
     from storage.migrate import upgrade

@@ -17,7 +17,7 @@ from sqlalchemy import Engine, text
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.analytics.graph import GraphArrays, NodeAttributes
-from service.loader import version_arrays
+from service.usecases.loading import version_arrays
 from storage.db import make_engine, make_sessionmaker
 from storage.migrate import upgrade
 from storage.models import Base, Graph, GraphVersion

@@ -10,15 +10,16 @@ import numpy as np
 import pytest
 from pydantic import ValidationError
 
-import service.caches as caches
-import service.diffusion_cache as dc
+import service.usecases.caches as caches
+import service.usecases.diffusion_inputs as dc
 from service.analytics.errors import InfeasibleRequest, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.jobs.kinds import TaskContext
 from service.jobs.registry import REGISTRY, parse_params
-from service.jobs.tasks import forecast as F
-from service.jobs.tasks.diffusion_settings import DiffusionSettings
-from service.loader import LoadedVersion
+from service.jobs.tasks import forecast as forecast_task
+from service.usecases import forecasts as F
+from service.usecases.diffusion_settings import DiffusionSettings
+from service.usecases.loading import LoadedVersion
 
 
 def diamond(*, consent: list[int] | None = None, value: list[float] | None = None,
@@ -162,14 +163,14 @@ def test_run_on_a_cached_graph_does_not_rebuild(monkeypatch: pytest.MonkeyPatch)
     v = diamond()
     params = F.ForecastParams.model_validate({"seeds": ["s"], "probability": {"scheme": "uniform", "p": 0.5},
                                               "simulations": 4000, "min_simulations": 4000})
-    first = F.run(ctx_for(v), params).data
+    first = forecast_task.run(ctx_for(v), params).data
     builds = dc.cache_info().builds
 
     def fail(*a: Any, **k: Any) -> Any:
         raise AssertionError("rebuilt the diffusion graph")
 
     monkeypatch.setattr(dc, "diffusion_graph", fail)
-    again = F.run(ctx_for(v), params).data
+    again = forecast_task.run(ctx_for(v), params).data
     assert dc.cache_info().builds == builds and again == first
     er = first["expected_reach"]
     # Source: exact enumeration of the diamond's 2^4 live-edge worlds (REFERENCES.md: 2.4375).

@@ -64,7 +64,7 @@ ERRORS: list[Exception] = [
     apierr.Unauthorized(),
     apierr.Forbidden("the key lacks the admin scope", scope="admin"),
     apierr.RateLimited(retry_after=3),
-    apierr.TooManyJobs(retry_after=5, queued=100),
+    jerr.TooManyJobs(retry_after=5, queued=100),
 ]
 
 

@@ -18,7 +18,7 @@ from service.jobs.clock import FakeClock
 from service.jobs.kinds import TaskContext
 from service.jobs.tasks import scores as task
 from service.jobs.worker import Worker, WorkerConfig
-from service.loader import LoadedVersion, version_arrays
+from service.usecases.loading import LoadedVersion, version_arrays
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as jr
 from storage.repo import results as rr

@@ -31,7 +31,7 @@ from service.analytics.graph import GraphArrays, NodeAttributes
 from service.jobs.kinds import TaskContext
 from service.jobs.tasks import shortlist as kind
 from service.jobs.tasks.shortlist import ShortlistParams
-from service.loader import LoadedVersion
+from service.usecases.loading import LoadedVersion
 
 Arc = tuple[int, int, float]
 ONE_MINUS_INV_E = 1 - 1 / math.e  # Source: REFERENCES.md constants, 0.6321206

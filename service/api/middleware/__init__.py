@@ -26,7 +26,7 @@ through, and only a small non-upload body is read whole (to count and measure it
 
 from __future__ import annotations
 
-from service.logs import JsonFormatter, RequestIdFilter, configure_logging, request_id_var
+from service.telemetry.logs import JsonFormatter, RequestIdFilter, configure_logging, request_id_var
 
 from .access_log import LOGGED_PARAMS, AccessLog
 from .allow_header import AllowHeader, allowed_methods

@@ -4,7 +4,7 @@ Taken from ``X-Request-ID`` when it is a short token (letters, digits,
 ``._:-``; at most 128), else a new UUID; echoed in the answer's
 ``X-Request-ID``, kept in ``request.state.request_id`` and attached to every
 log record written while the request is served
-(:class:`service.logs.RequestIdFilter` reads :data:`service.logs.request_id_var`).
+(:class:`service.telemetry.logs.RequestIdFilter` reads :data:`service.telemetry.logs.request_id_var`).
 Outermost, so that the other middleware's log lines and answers carry it too.
 """
 
@@ -15,7 +15,7 @@ import uuid
 
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from service.logs import request_id_var
+from service.telemetry.logs import request_id_var
 
 from ._asgi import header
 

@@ -1,6 +1,6 @@
 """Request metrics: requests in flight, and per request its count and duration by route template and status.
 
-The metric objects are :mod:`service.metrics`'; ``/metrics`` serves them.
+The metric objects are :mod:`service.telemetry.metrics`'; ``/metrics`` serves them.
 """
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ import time
 
 from starlette.types import ASGIApp, Receive, Scope, Send
 
-from service.metrics import service_metrics
+from service.telemetry.metrics import service_metrics
 
 from ._asgi import StatusRecorder, route_template
 

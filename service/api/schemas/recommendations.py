@@ -6,7 +6,7 @@ from typing import Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
-from service.jobs.tasks.diffusion_settings import ProbabilitySettings
+from service.usecases.diffusion_settings import ProbabilitySettings
 from service.jobs.tasks.referral_asks import FollowOn
 from .common import JsonInt, PerAdopter, PositiveInt, Seed
 

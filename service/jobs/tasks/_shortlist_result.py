@@ -14,7 +14,7 @@ if TYPE_CHECKING:
     from service.analytics.diffusion.forecasts import ForecastResult
     from service.analytics.diffusion.paired import Interval, PairedComparison
     from service.analytics.seeding.shortlists import Shortlist
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
     from ._shortlist_rules import Prepared
     from .shortlist import ShortlistParams

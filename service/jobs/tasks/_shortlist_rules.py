@@ -16,7 +16,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 if TYPE_CHECKING:
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
     from .shortlist import ShortlistParams
 

@@ -12,6 +12,7 @@ parameter with the batch export and returns a different document.
 
 from __future__ import annotations
 
+
 from collections.abc import Iterator
 from typing import TYPE_CHECKING, Any, Literal
 
@@ -23,7 +24,7 @@ from ..kinds import RESERVED_RESULT_KEYS, JobKind, TaskContext, TaskOutput
 from .recommendations import METHOD_ALIASES, LinkMethodName
 
 if TYPE_CHECKING:
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = ["LinkEvaluationParams", "run", "csv_table", "KIND"]
 
@@ -87,6 +88,7 @@ def csv_table(
 
 
 KIND = JobKind(
+    csv=csv_table,
     name="link_evaluation",
     params=LinkEvaluationParams,
     run=run,

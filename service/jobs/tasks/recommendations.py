@@ -9,6 +9,7 @@ list. The result document holds the counts; the rows are stored as arrays
 
 from __future__ import annotations
 
+
 import time
 from collections.abc import Iterator, Sequence
 from typing import TYPE_CHECKING, Any, Literal
@@ -23,7 +24,7 @@ from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 
 if TYPE_CHECKING:
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = [
     "LinkMethodName", "METHOD_ALIASES", "RecommendationsParams", "run", "csv_table", "resolve_ids", "KIND",
@@ -171,6 +172,7 @@ def csv_table(
 
 
 KIND = JobKind(
+    csv=csv_table,
     name="recommendations",
     params=RecommendationsParams,
     run=run,

@@ -11,6 +11,7 @@ numbers, here and in the HTTP answer.
 
 from __future__ import annotations
 
+
 from collections.abc import Iterator
 from typing import TYPE_CHECKING, Any, Literal
 
@@ -20,12 +21,12 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
-from .diffusion_settings import ProbabilitySettings
+from service.usecases.diffusion_settings import ProbabilitySettings
 from .recommendations import resolve_ids
 
 if TYPE_CHECKING:
     from service.analytics.ties.referrals import NextContact
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = ["FollowOn", "ReferralAsksParams", "contact_reason", "exposure_explained", "run", "csv_table", "KIND"]
 
@@ -80,7 +81,7 @@ def contact_reason(c: NextContact, ids: list[str], model: str, follow_on: str | 
 
 def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
     from service.analytics.ties.referrals import referral_asks
-    from service.diffusion_cache import diffusion_graph_for
+    from service.usecases.diffusion_inputs import diffusion_graph_for
     from service.indexes import follow_on_for, neighbour_index_for
 
     v = ctx.load()
@@ -156,6 +157,7 @@ def csv_table(
 
 
 KIND = JobKind(
+    csv=csv_table,
     name="referral_asks",
     params=ReferralAsksParams,
     run=run,

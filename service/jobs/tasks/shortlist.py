@@ -3,7 +3,7 @@
 The seeds are chosen by one method of :mod:`service.analytics.seeding.shortlists`
 (``imm`` by default, ``opim``, ``celf``, or a baseline heuristic) under the
 shared diffusion settings
-(:class:`~service.jobs.tasks.diffusion_settings.DiffusionSettings`). Then,
+(:class:`~service.usecases.diffusion_settings.DiffusionSettings`). Then,
 for the chosen list and for each baseline list (same rules):
 
 - the reach-versus-budget curve and each seed's marginal gain come from one
@@ -49,6 +49,7 @@ written in ``_shortlist_result.py`` (private to this kind).
 
 from __future__ import annotations
 
+from service.usecases import result_plots, result_tables
 import time
 from collections.abc import Callable, Iterator, Sequence
 from contextlib import contextmanager
@@ -62,14 +63,14 @@ from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from ._shortlist_result import result_document
 from ._shortlist_rules import Prepared, resolve_rules
-from .diffusion_settings import DiffusionSettings
+from service.usecases.diffusion_settings import DiffusionSettings
 
 if TYPE_CHECKING:
     from service.analytics.diffusion.forecasts import ForecastResult
     from service.analytics.graph import DiffusionGraph, GraphArrays
     from service.analytics.diffusion.paired import PairedComparison
     from service.analytics.seeding.shortlists import Shortlist
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = [
     "BASELINES",
@@ -562,6 +563,8 @@ def _named_nodes(ids: Sequence[str]) -> Iterator[None]:
 
 
 KIND = JobKind(
+    csv=result_tables.shortlist_table,
+    plots={"reach_curve": result_plots.reach_curve, "segment_reach": result_plots.segment_reach},
     name="shortlist",
     params=ShortlistParams,
     run=run,

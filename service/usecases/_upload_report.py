@@ -1,6 +1,6 @@
 """What an upload tells its sender beyond the new version: fixes, warnings, edge identity.
 
-Used by :mod:`service.ingest`:
+Used by :mod:`service.usecases.uploads`:
 
 - :func:`add_column_hint` completes a header error (missing or unknown
   column) with the columns the header probably means and the query string

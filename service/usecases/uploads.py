@@ -24,11 +24,11 @@ Modes
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
-from typing import Any, Literal, TypedDict
+from typing import TYPE_CHECKING, Any, Literal, TypedDict
 
 import numpy as np
 from numpy.typing import NDArray
@@ -37,13 +37,21 @@ from service import intake
 from service.analytics.errors import EmptyGraph
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.analytics.structure.summary import graph_summary
-from service import upload_report
+from service.usecases import _upload_report as upload_report
 from service.intake import merge
 from service.intake.dialect import open_csv
 from service.intake.tables import F64, I32, ExtraColumns, Fold
-from service.loader import LoadedVersion, version_arrays
+from service.usecases.loading import LoadedVersion, load_version, version_arrays
+from storage.db import write_session
+from storage.repo import graphs as graph_repo
+from storage.repo import idempotency as idem_repo
 
-__all__ = ["UploadOptions", "BuiltVersion", "build_version"]
+if TYPE_CHECKING:
+    from sqlalchemy.orm import Session, sessionmaker
+
+    from storage.models import Graph, GraphVersion
+
+__all__ = ["UploadOptions", "BuiltVersion", "Uploaded", "build_version", "upload_version"]
 
 
 @dataclass(frozen=True)
@@ -298,3 +306,71 @@ def _has_attributes(a: NodeAttributes) -> NDArray[np.bool_]:
     for col in a.extra.values():
         has |= np.array([v is not None for v in col], dtype=bool)
     return np.asarray(has)
+
+
+# -- an upload becomes a version ------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Uploaded:
+    """The answer to an upload: status, the rendered version, its location (or a replay of them)."""
+
+    status_code: int
+    body: dict[str, Any]
+    location: str
+
+
+def upload_version(
+    maker: sessionmaker[Session],
+    tenant: str,
+    graph_id: str,
+    path: Path,
+    options: UploadOptions,
+    *,
+    limits: intake.SizeLimits,
+    render: Callable[[Graph, GraphVersion], dict[str, Any]],
+    idempotency_key: str | None = None,
+    request_hash: str = "",
+    route: str = "",
+) -> Uploaded:
+    """Build the next version of a graph from a spooled upload and store it.
+
+    The file is read (and the new version built) outside any write transaction,
+    then written in one short ``BEGIN IMMEDIATE`` transaction: on SQLite a deferred
+    transaction that reads first and writes later fails with "database is locked"
+    when another writer got in between. The compare-and-set in ``add_version`` turns
+    a concurrent upload into a clean 409 instead. With an idempotency key, a repeat
+    of the same request answers what the first one did.
+    """
+    def replay_of(db: Session) -> Uploaded | None:
+        if not idempotency_key:
+            return None
+        replay = idem_repo.get_replay(db, tenant, idempotency_key, route, request_hash)
+        return None if replay is None else Uploaded(replay.status_code, replay.body, replay.location or "")
+
+    with maker() as db:
+        g = graph_repo.get_graph(db, tenant, graph_id)
+        earlier = replay_of(db)
+        if earlier is not None:
+            return earlier
+        based_on = g.latest_version
+        directed, self_loops = g.directed, g.allow_self_loops
+        previous = load_version(db, graph_repo.get_version(db, g)) if based_on else None
+    made = build_version(path, options, directed=directed, allow_self_loops=self_loops, previous=previous,
+                         limits=limits)
+    with write_session(maker) as db:
+        g = graph_repo.get_graph(db, tenant, graph_id)
+        earlier = replay_of(db)
+        if earlier is not None:
+            return earlier
+        version = graph_repo.add_version(
+            db, g, based_on=based_on, arrays=made.arrays, manifest_extra=made.manifest, summary=made.summary,
+            origin=made.origin, nodes=made.nodes, edges=made.edges, edges_digest=made.edges_digest,
+        )
+        body = render(g, version)
+        location = f"/v1/graphs/{g.id}/versions/{version.number}"
+        if idempotency_key:
+            idem_repo.add_record(db, tenant_id=tenant, key=idempotency_key, route=route, request_hash=request_hash,
+                                 status_code=201, body=body, location=location)
+        db.commit()
+        return Uploaded(201, body, location)

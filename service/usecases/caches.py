@@ -4,13 +4,13 @@ Graph versions and job results are immutable, so whatever is derived from one
 can be kept by its id and shared by every request and job of the process; it
 is never stale. Five caches do that, named ``<what>_cache``:
 
-- :data:`version_cache`: a version's graph, ids and attributes (:mod:`service.loader`),
+- :data:`version_cache`: a version's graph, ids and attributes (:mod:`service.usecases.loading`),
   keyed by version id;
 - :data:`index_cache`: the recommendation neighbour index (:mod:`service.indexes`),
   keyed by version id;
 - :data:`measure_cache`: per-node follow-on measures (:mod:`service.indexes`),
   keyed by ``(version id, measure)``;
-- :data:`diffusion_cache`: diffusion arrays (:mod:`service.diffusion_cache`),
+- :data:`diffusion_cache`: diffusion arrays (:mod:`service.usecases.diffusion_inputs`),
   keyed by version id and probability settings;
 - :data:`ranking_cache`: stored score arrays and orders derived from them
   (:mod:`service.rankings`), keyed by result id and what was derived.
@@ -41,7 +41,7 @@ if TYPE_CHECKING:
 
     from service.analytics.graph import DiffusionGraph
     from service.analytics.ties.strength import NeighbourIndex
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = [
     "DEFAULT_CACHE_BYTES",

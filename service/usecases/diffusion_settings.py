@@ -30,7 +30,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from service.analytics.graph import DiffusionGraph, ProbabilityScheme
 
 if TYPE_CHECKING:
-    from service.loader import LoadedVersion
+    from service.usecases.loading import LoadedVersion
 
 __all__ = ["ProbabilitySettings", "DiffusionSettings", "MAX_ROUNDS"]
 
@@ -116,7 +116,7 @@ class DiffusionSettings(BaseModel):
 
     def diffusion_graph(self, version: LoadedVersion) -> DiffusionGraph:
         """The version's :class:`DiffusionGraph` under these settings, built once per process."""
-        from service.diffusion_cache import diffusion_graph_for
+        from service.usecases.diffusion_inputs import diffusion_graph_for
 
         pr = self.probability
         return diffusion_graph_for(

@@ -2,8 +2,8 @@
 
 A version is immutable, so once loaded its :class:`LoadedVersion` can be
 kept and shared by every request and job in the process: it is kept in
-:data:`service.caches.version_cache`, keyed by version id, under the shared
-byte bound of :mod:`service.caches`.
+:data:`service.usecases.caches.version_cache`, keyed by version id, under the shared
+byte bound of :mod:`service.usecases.caches`.
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from numpy.typing import NDArray
 from sqlalchemy.orm import Session
 
 from service.analytics.graph import GraphArrays, NodeAttributes
-from service.caches import version_cache
+from service.usecases.caches import version_cache
 from storage.arrays import decode_strings, encode_strings
 from storage.models import GraphVersion
 from storage.repo import graphs as graph_repo

@@ -111,7 +111,7 @@ def uvicorn_log_config(level: str = "INFO", fmt: str = "json") -> dict[str, Any]
     return {
         "version": 1,
         "disable_existing_loggers": False,
-        "handlers": {"service": {"()": "service.logs.LogHandler", "fmt": fmt}},
+        "handlers": {"service": {"()": "service.telemetry.logs.LogHandler", "fmt": fmt}},
         "root": {"handlers": ["service"], "level": "WARNING"},
         "loggers": {
             "uvicorn": {"handlers": [], "level": level.upper(), "propagate": True},

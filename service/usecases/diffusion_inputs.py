@@ -4,7 +4,7 @@ Building a diffusion graph (arcs, probabilities, both CSR orientations) costs
 O(m log m) and about 40 bytes per arc; a version is immutable, so each
 process builds it once per probability model and keeps it. Forecasts,
 shortlists and next contacts all ask here (through
-:meth:`service.jobs.tasks.diffusion_settings.DiffusionSettings.diffusion_graph`
+:meth:`service.usecases.diffusion_settings.DiffusionSettings.diffusion_graph`
 or :func:`diffusion_graph_for`), so a second job on the same version and
 settings reuses the arrays; the compiled kernels then find their prepared
 arrays in their own identity cache (``service.analytics.diffusion._kernels.kernel_graph``).
@@ -12,8 +12,8 @@ arrays in their own identity cache (``service.analytics.diffusion._kernels.kerne
 The key is ``(version_id, model, scheme, p, q, random_seed)`` where the
 settings a scheme ignores are blanked (``p`` only for uniform, ``q`` only
 for per_interaction, the seed only for trivalency), so they do not split the
-cache. Entries are kept in :data:`service.caches.diffusion_cache`, under the
-shared byte bound of :mod:`service.caches`: the first caller of a key builds
+cache. Entries are kept in :data:`service.usecases.caches.diffusion_cache`, under the
+shared byte bound of :mod:`service.usecases.caches`: the first caller of a key builds
 it, concurrent callers of the same key wait for that build, and the least
 recently used entries go first past the bound. Nothing happens at import.
 """
@@ -23,7 +23,7 @@ from __future__ import annotations
 from typing import NamedTuple
 
 from service.analytics.graph import DiffusionGraph, GraphArrays, diffusion_graph
-from service.caches import CacheInfo, diffusion_cache
+from service.usecases.caches import CacheInfo, diffusion_cache
 
 __all__ = ["CacheKey", "CacheInfo", "cache_key", "diffusion_graph_for", "cache_info", "clear_cache"]
 

@@ -29,9 +29,9 @@ from __future__ import annotations
 import os
 import threading
 import time
-from collections.abc import Iterable, Iterator
+from collections.abc import Callable, Iterable, Iterator
 from datetime import UTC, datetime, timedelta
-from typing import Any
+from typing import Any, Protocol
 
 from prometheus_client import (
     CONTENT_TYPE_LATEST,
@@ -44,10 +44,6 @@ from prometheus_client import (
 )
 from prometheus_client.core import GaugeMetricFamily
 from prometheus_client.registry import Collector
-from sqlalchemy import func, select
-from sqlalchemy.orm import Session, sessionmaker
-
-from storage.models import Job
 
 __all__ = [
     "CONTENT_TYPE_LATEST",
@@ -153,11 +149,31 @@ def service_metrics() -> ServiceMetrics:
         return _metrics
 
 
-class QueueCollector(Collector):
-    """Queue figures read from the database at scrape time (true across all workers and hosts)."""
+class QueueFigures(Protocol):
+    """The queue at one moment (``storage.repo.jobs.QueueFigures`` has this shape)."""
 
-    def __init__(self, maker: sessionmaker[Session], *, lease_seconds: float) -> None:
-        self.maker = maker
+    @property
+    def jobs(self) -> list[tuple[str, str, int]]: ...
+    @property
+    def due(self) -> list[tuple[str, int]]: ...
+    @property
+    def oldest_due(self) -> datetime | None: ...
+    @property
+    def busy_workers(self) -> int: ...
+    @property
+    def expired_leases(self) -> int: ...
+    @property
+    def oldest_lease(self) -> datetime | None: ...
+
+
+class QueueCollector(Collector):
+    """Queue figures read from the database at scrape time (true across all workers and hosts).
+
+    ``read(now)`` returns the figures; the caller owns the database access.
+    """
+
+    def __init__(self, read: Callable[[datetime], QueueFigures], *, lease_seconds: float) -> None:
+        self.read = read
         self.lease_seconds = lease_seconds
 
     def describe(self) -> Iterable[Any]:
@@ -171,27 +187,14 @@ class QueueCollector(Collector):
         depth = GaugeMetricFamily(
             "bellwether_queue_depth", "Queued jobs whose run time has come, by kind.", labels=["kind"]
         )
-        with self.maker() as db:
-            for kind, status, n in db.execute(
-                select(Job.kind, Job.status, func.count()).group_by(Job.kind, Job.status)
-            ):
-                jobs.add_metric([kind, status], float(n))
-            for kind, n in db.execute(
-                select(Job.kind, func.count())
-                .where(Job.status == "queued", Job.run_after <= now)
-                .group_by(Job.kind)
-            ):
-                depth.add_metric([kind], float(n))
-            oldest = db.execute(
-                select(func.min(Job.run_after)).where(Job.status == "queued", Job.run_after <= now)
-            ).scalar_one()
-            busy, expired, oldest_lease = db.execute(
-                select(
-                    func.count(func.distinct(Job.worker_id)),
-                    func.count().filter(Job.lease_until < now),
-                    func.min(Job.lease_until),
-                ).where(Job.status == "running")
-            ).one()
+        figures = self.read(now)
+        for kind, status, n in figures.jobs:
+            jobs.add_metric([kind, status], float(n))
+        for kind, n in figures.due:
+            depth.add_metric([kind], float(n))
+        oldest, busy, expired, oldest_lease = (
+            figures.oldest_due, figures.busy_workers, figures.expired_leases, figures.oldest_lease
+        )
         yield jobs
         yield depth
         yield GaugeMetricFamily(

@@ -1,0 +1,1 @@
+"""What every process tells its operators: JSON log lines and Prometheus metrics."""
