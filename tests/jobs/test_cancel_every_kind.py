@@ -47,6 +47,8 @@ EXPENSIVE: dict[str, dict[str, Any]] = {
     "recommendations": {"limit": 1000, "explain": 10},
     "referral_asks": {"adopters": ALL[:1000], "per_adopter": 1000,
                       "probability": {"scheme": "uniform", "p": 0.05}},
+    "odd_neighbourhoods": {"top": 1000, "local_outlier": True, "min_contacts": 1},
+    "dense_groups": {"groups": 50, "min_size": 2, "weighting": "uniform"},
 }
 
 

@@ -1,0 +1,113 @@
+"""Referral integrity over HTTP: both job kinds, their CSV and plot, and the 422s at job creation.
+
+The outside truth is the planted structure (a ring of 10 people who all know each other and
+share an address; a referrer with 25 invitees who do not know each other) on a
+preferential-attachment graph from NetworkX.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from pathlib import Path
+from typing import Any
+
+import networkx as nx
+import pytest
+
+from tests.conftest import make_settings
+from tests.jobs.api_helpers import assert_problem, make_graph, run_worker_once, worker_for
+
+pytestmark = pytest.mark.anyio
+
+RING = [f"r{i}" for i in range(10)]
+
+
+def edges_csv() -> str:
+    G = nx.barabasi_albert_graph(200, 2, seed=9)
+    rows = [(f"p{a}", f"p{b}") for a, b in G.edges()]
+    rows += [(a, b) for i, a in enumerate(RING) for b in RING[i + 1:]]
+    rows += [(RING[0], "p5"), (RING[3], "p17")]
+    rows += [("p3", f"invitee{i}") for i in range(25)]
+    return "source,target\n" + "".join(f"{a},{b}\n" for a, b in rows)
+
+
+def nodes_csv() -> str:
+    people = [f"p{i}" for i in range(200)] + RING
+    return "id,address,signed_up\n" + "".join(
+        f"{p},{'9 Quay Street' if p in RING else p + ' Road'},2024-02-0{1 + RING.index(p) % 3 if p in RING else 9}\n"
+        for p in people)
+
+
+@pytest.fixture
+def db_url(sqlite_url: str) -> str:
+    return sqlite_url
+
+
+@pytest.fixture
+def settings(db_url: str, tmp_path: Path):  # type: ignore[no-untyped-def]
+    return make_settings(db_url, tmp_path, wait_max_seconds=5.0)
+
+
+async def graph(client: Any) -> str:
+    gid = await make_graph(client, edges_csv())
+    r = await client.post(f"/v1/graphs/{gid}/versions", params={"part": "nodes", "mode": "append"},
+                          content=nodes_csv(), headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    return gid
+
+
+async def run(client: Any, gid: str, kind: str, params: dict[str, Any]) -> str:
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params})
+    assert r.status_code == 202, r.text
+    await run_worker_once(worker_for(client))
+    job = (await client.get(f"/v1/jobs/{r.json()['id']}")).json()
+    assert job["status"] == "succeeded", job
+    return str(job["id"])
+
+
+async def test_odd_neighbourhoods_over_http(client: Any) -> None:
+    gid = await graph(client)
+    jid = await run(client, gid, "odd_neighbourhoods", {"top": 10})
+    body = (await client.get(f"/v1/jobs/{jid}/result")).json()
+    assert body["kind"] == "odd_neighbourhoods" and "not verdicts" in body["caution"]
+    assert len({p["node_id"] for p in body["near_cliques"]} & set(RING)) >= 9
+    assert body["near_stars"][0]["node_id"] == "p3"
+    contacts = sum("p3" in line.split(",") for line in edges_csv().splitlines()[1:])
+    assert body["near_stars"][0]["evidence"].startswith(f"{contacts} contacts with ")
+    table = list(csv.reader(io.StringIO((await client.get(f"/v1/jobs/{jid}/result.csv")).text)))
+    assert table[0][:3] == ["list", "rank", "node_id"] and len(table) == 21
+    r = await client.get(f"/v1/jobs/{jid}/plots/neighbourhood_law.svg")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
+    assert "Neighbourhoods against the graph" in r.text
+
+
+async def test_dense_groups_over_http(client: Any) -> None:
+    gid = await graph(client)
+    jid = await run(client, gid, "dense_groups", {"attributes": ["address"], "time_column": "signed_up",
+                                                  "window_hours": 72, "groups": 1})
+    body = (await client.get(f"/v1/jobs/{jid}/result")).json()
+    by = {g["found_in"]: g for g in body["groups"]}
+    assert set(by["ties"]["members"]) == set(RING)
+    assert by["ties"]["evidence"] == ("10 accounts, 45 of the 45 possible ties among them, all created within "
+                                      "2 days, sharing 1 address")  # 1 to 3 February
+    assert set(by["address"]["members"]) == set(RING) and by["address"]["shared_values"] == ["9 Quay Street"]
+    table = list(csv.reader(io.StringIO((await client.get(f"/v1/jobs/{jid}/result.csv")).text)))
+    assert table[0] == ["group", "found_in", "people", "density", "node_id", "label", "evidence"]
+    assert len(table) - 1 == sum(g["people"] for g in body["groups"])
+
+
+async def test_refusals_at_job_creation(client: Any) -> None:
+    gid = await graph(client)
+    cases = [
+        ("dense_groups", {"attributes": ["device"]}, "no node column 'device'", "attributes"),
+        ("dense_groups", {"time_column": "address"}, "'p0 Road' for 'p0'", "time_column"),
+        ("dense_groups", {"ties": False}, "nothing to search", "ties"),
+        ("odd_neighbourhoods", {"min_people": 500}, "lower min_people", "min_people"),
+    ]
+    for kind, params, words, field in cases:
+        r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params})
+        body = assert_problem(r, 422, "invalid-parameter")
+        assert words in body["detail"] and body["field"] == field, body
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "dense_groups", "params": {"groups": 0}})
+    assert r.status_code == 422 and "groups" in r.text
