@@ -41,7 +41,7 @@ from storage.repo import results as result_repo
 from .deps import SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
-from .jobs import etag_matches
+from .etags import etag_matches
 from .node_ids import node_route
 from .rendering import round_document, round_cell
 from .schemas.common import PROBLEM_RESPONSES

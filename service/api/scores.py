@@ -43,7 +43,7 @@ from .rendering import round_value
 from .deps import get_principal, require_graph
 from .errors import InvalidParams
 from .graphs import parse_version
-from .jobs import etag_matches
+from .etags import etag_matches
 from .node_ids import node_route
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.scores import CommunityPage, NodeRead, ScorePage
