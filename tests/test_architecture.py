@@ -159,14 +159,14 @@ def _runtime_imports(path: Path) -> set[str]:
 
 
 def test_the_cache_roof_imports_only_the_standard_library_and_numpy() -> None:
-    # service/caches.py sits under loader, indexes, diffusion_cache and rankings: it must
+    # service/caches.py sits under loader, indexes, diffusion_cache and the ranking tables: it must
     # import none of them (or the database, HTTP or settings) when it is loaded.
     allowed_top = {"__future__", "dataclasses", "threading", "collections", "concurrent", "typing", "numpy"}
     bad = sorted(n for n in _runtime_imports(ROOT / "service/caches.py") if n.split(".")[0] not in allowed_top)
     assert not bad, bad
 
 
-@pytest.mark.parametrize("module", ["loader", "indexes", "diffusion_cache", "rankings"])
+@pytest.mark.parametrize("module", ["loader", "indexes", "diffusion_cache", "usecases/_ranking_tables"])
 def test_per_process_caches_live_under_the_one_roof(module: str) -> None:
     # A cache is a NamedCache of service.caches (one store, one byte bound), never a module's
     # own dictionary and lock.

@@ -34,7 +34,7 @@ from service.jobs.tasks import recommendations as recommendations_task
 from service.jobs.tasks import referral_asks as referral_asks_task
 from service.jobs.tasks.referral_asks import contact_reason, exposure_explained
 from service.loader import LoadedVersion, load_version
-from service.rankings import safe_cell
+from service.usecases.rankings import safe_cell
 from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
