@@ -1,9 +1,9 @@
-"""Rankings, the node view and communities: the HTTP door of :mod:`service.usecases.rankings`.
+"""Rankings, the node view and communities: doors of :mod:`service.usecases.rankings` and
+:mod:`service.usecases.communities`.
 
-Each route parses its parameters, calls one use case in one thread-pool call
-(sync dependencies would each cost a thread hop, which is most of a top-50
-read), and renders: JSON or CSV, numbers rounded as every answer rounds
-shares, ``ETag``/``Cache-Control``, and 304 when ``If-None-Match`` matches.
+Each route parses, calls one use case in one thread-pool call (sync dependencies would each
+cost a thread hop, most of a top-50 read), and renders: JSON or CSV, figures rounded as every
+answer rounds shares, ETag/Cache-Control, 304 when If-None-Match matches.
 """
 
 from __future__ import annotations
@@ -17,6 +17,7 @@ from fastapi.responses import JSONResponse, StreamingResponse
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.settings import Settings
+from service.usecases import communities as cu
 from service.usecases import rankings as uc
 
 from .deps import get_principal, require_graph
@@ -40,22 +41,19 @@ def _shown(x: float) -> float:
     return round_value(x, "share")
 
 
-def _caller(request: Request) -> tuple[str, Settings, sessionmaker[Session]]:
+def _caller(request: Request, limit: int | None = None) -> tuple[str, int, sessionmaker[Session]]:
+    """The caller's tenant, the page size for ``limit``, and the session maker."""
     settings: Settings = request.app.state.settings
     maker: sessionmaker[Session] = request.app.state.sessionmaker
-    return get_principal(request).tenant_id, settings, maker
+    return get_principal(request).tenant_id, min(limit or settings.page_limit_default, settings.page_limit_max), maker
 
 
-def _page_size(limit: int | None, settings: Settings) -> int:
-    return min(limit or settings.page_limit_default, settings.page_limit_max)
+def _headers(answer: uc.Unchanged | uc.RankingPage | uc.RankingExport | cu.CommunityList) -> dict[str, str]:
+    return {"ETag": answer.etag, "Cache-Control": "no-cache"}
 
 
-def _headers(etag: str) -> dict[str, str]:
-    return {"ETag": etag, "Cache-Control": "no-cache"}
-
-
-def _timestamp(answer: uc.RankingPage | uc.CommunityList) -> str:
-    return answer.computed_at.isoformat().replace("+00:00", "Z")
+def _document(answer: uc.RankingPage | cu.CommunityList) -> dict[str, Any]:
+    return {f.name: getattr(answer, f.name) for f in dataclasses.fields(answer) if f.name != "etag"}
 
 
 @router.get(
@@ -88,29 +86,23 @@ async def list_rankings(
     format_: Annotated[Literal["json", "csv"], Query(alias="format")] = "json",
     if_none_match: IfNoneMatch = None,
 ) -> Response:
-    tenant, settings, maker = _caller(request)
+    tenant, size, maker = _caller(request, limit)
     q = uc.RankingQuery.parse(graph_id, measure=measure, weights=weights, segments=segment or [],
-                              contactable=contactable, community=community, version=version,
-                              limit=_page_size(limit, settings))
+                              contactable=contactable, community=community, version=version, limit=size)
     read = uc.export_ranking if format_ == "csv" else uc.read_ranking
 
     def work() -> Response:
         with maker() as db:
             answer = read(db, tenant, q, cursor=cursor, known_etag=lambda tag: etag_matches(if_none_match, tag),
                           shown=_shown)
-        headers = _headers(answer.etag)
+        headers = _headers(answer)
         if isinstance(answer, uc.Unchanged):
             return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
         if isinstance(answer, uc.RankingExport):
             headers["Content-Disposition"] = f'attachment; filename="{answer.filename}"'
             return StreamingResponse(answer.chunks, media_type="text/csv; charset=utf-8", headers=headers)
-        body = {
-            "graph_id": answer.graph_id, "version": answer.version, "scores_version": answer.scores_version,
-            "job_id": answer.job_id, "computed_at": _timestamp(answer), "measure": answer.measure,
-            "weights": answer.weights, "total": answer.total, "meta": answer.meta, "items": answer.items,
-            "next_cursor": answer.next_cursor,
-        }
-        return JSONResponse(body, headers=headers)
+        stamp = answer.computed_at.isoformat().replace("+00:00", "Z")
+        return JSONResponse(_document(answer) | {"computed_at": stamp}, headers=headers)
 
     return await run_in_threadpool(work)
 
@@ -155,17 +147,16 @@ async def list_communities(
     cursor: str | None = None,
     if_none_match: IfNoneMatch = None,
 ) -> Response:
-    tenant, settings, maker = _caller(request)
-    q = uc.CommunityQuery(graph_id, measure, top, _page_size(limit, settings), version)
+    tenant, size, maker = _caller(request, limit)
+    q = cu.CommunityQuery(graph_id, measure, top, size, version)
 
     def work() -> Response:
         with maker() as db:
-            answer = uc.list_communities(db, tenant, q, cursor=cursor,
+            answer = cu.list_communities(db, tenant, q, cursor=cursor,
                                          known_etag=lambda tag: etag_matches(if_none_match, tag), shown=_shown)
-        headers = _headers(answer.etag)
         if isinstance(answer, uc.Unchanged):
-            return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
-        fields = {f.name: getattr(answer, f.name) for f in dataclasses.fields(answer) if f.name != "etag"}
-        return JSONResponse(CommunityPage.model_validate(fields).model_dump(mode="json"), headers=headers)
+            return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=_headers(answer))
+        page = CommunityPage.model_validate(_document(answer))
+        return JSONResponse(page.model_dump(mode="json"), headers=_headers(answer))
 
     return await run_in_threadpool(work)

@@ -1,4 +1,5 @@
-"""Finding the ``scores`` result a ranking, person or community read is answered from.
+"""Finding the ``scores`` result a ranking, person or community read is answered from,
+and what binds a read to it: the version asked for, cursors and ETags.
 
 A read needs certain stored arrays (a measure's order, the community labels).
 It is answered from the newest succeeded ``scores`` job of the version asked
@@ -12,12 +13,18 @@ reused, the version whose people it showed.
 
 The result's JSON document, its arrays and each version's node table are
 kept per id in the ranking cache (results and versions never change).
+
+A read's query has a digest (:func:`digest`) over what the caller asked,
+with the version as written; a cursor carries its first 16 characters and
+is refused for another query, and the ETag covers the result, the version
+shown, the digest and the page.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -26,6 +33,8 @@ import numpy as np
 from numpy.typing import NDArray
 from sqlalchemy.orm import Session
 
+from service.analytics.errors import InvalidParameter
+from service.analytics.structure.centrality import MEASURES
 from service.jobs.errors import ResultNotReady
 from storage.arrays import decode_strings
 from storage.errors import NotFound
@@ -35,9 +44,112 @@ from storage.repo import results as result_repo
 
 from . import _ranking_tables as R
 
-__all__ = ["ScoresResult", "find_scores_result", "node_table"]
+__all__ = [
+    "RANKED",
+    "KnownEtag",
+    "ScoresResult",
+    "Shown",
+    "Unchanged",
+    "Version",
+    "as_written",
+    "check_measure",
+    "digest",
+    "etag_of",
+    "find_scores_result",
+    "node_table",
+    "read_cursor",
+    "version_number",
+    "whole",
+]
 
 KIND = "scores"
+ETAG_SALT = "scores-views/1"
+#: Measures a ranking can be ordered by (labels such as ``community`` are not scores).
+RANKED = [m for m in MEASURES if m not in R.LABEL_MEASURES]
+
+#: How a door shows a figure (its rounding); :func:`whole` keeps full precision.
+Shown = Callable[[float], float]
+#: True when the caller already holds this ETag (``If-None-Match``).
+KnownEtag = Callable[[str], bool]
+#: A version as a caller writes it: a number, ``"latest"``, or None for the newest.
+Version = int | str | None
+
+
+def whole(x: float) -> float:
+    return x
+
+
+def digest(*parts: object) -> str:
+    """Hex SHA-256 of a query's parts (JSON, keys sorted)."""
+    return hashlib.sha256(json.dumps([ETAG_SALT, *parts], sort_keys=True, default=str).encode()).hexdigest()
+
+
+def etag_of(*parts: object) -> str:
+    return f'"{digest(*parts)[:40]}"'
+
+
+@dataclass(frozen=True)
+class Unchanged:
+    """The caller already holds this answer (its ETag matched)."""
+
+    etag: str
+
+
+def version_number(version: Version) -> int | None:
+    """``"latest"`` (or None) means the newest version; otherwise a positive integer."""
+    if version is None or version == "latest":
+        return None
+    try:
+        n = int(version)
+    except ValueError as exc:
+        raise InvalidParameter("version must be a positive integer or 'latest'", field="version") from exc
+    if n < 1:
+        raise InvalidParameter("version must be a positive integer or 'latest'", field="version")
+    return n
+
+
+def as_written(version: Version) -> str | None:
+    """The version as a caller writes it: cursors and ETags are bound to it."""
+    return None if version is None else str(version)
+
+
+def check_measure(measure: str, weights: str | None) -> dict[str, float] | None:
+    """Check a ranking's measure: the composite's weights, or None for a plain measure.
+
+    Raises InvalidParameter (field ``measure`` or ``weights``) saying what to ask instead.
+    """
+    if measure == "composite":
+        if not weights:
+            raise InvalidParameter("measure=composite needs weights, e.g. weights=pagerank:0.5,degree:0.5",
+                                   field="weights")
+        try:
+            return R.parse_weights(weights, RANKED)
+        except ValueError as exc:
+            raise InvalidParameter(str(exc), field="weights") from exc
+    if measure in R.LABEL_MEASURES:
+        raise InvalidParameter(f"{measure} is a label, not a score: see GET /v1/graphs/{{graph_id}}/communities, "
+                               "or filter a ranking with community=", field="measure", value=measure)
+    if measure not in MEASURES:
+        raise InvalidParameter(f"unknown measure {measure!r}; expected one of {', '.join(RANKED)}, or composite",
+                               field="measure", value=measure, expected=[*RANKED, "composite"])
+    if weights:
+        raise InvalidParameter("weights apply to measure=composite only", field="weights")
+    return None
+
+
+def read_cursor(cursor: str | None, query: str) -> tuple[str | None, int, str | None]:
+    """(pinned result id, position, version id shown) of a cursor issued for this query
+    (``query``: its digest); (None, 0, None) without one."""
+    if cursor is None:
+        return None, 0, None
+    try:
+        pinned, position, issued_for, nodes_id = R.decode_cursor(cursor)
+    except ValueError as exc:
+        raise InvalidParameter(str(exc), field="cursor") from exc
+    if issued_for != query[:16]:
+        raise InvalidParameter("the cursor belongs to another query; repeat that query's parameters",
+                               field="cursor")
+    return pinned, position, nodes_id
 
 
 @dataclass(frozen=True)
