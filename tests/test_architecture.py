@@ -16,6 +16,7 @@ FORBIDDEN = {
     "service/intake": {"sqlalchemy", "fastapi", "starlette", "pydantic", "httpx", "storage", "uvicorn", "alembic"},
     "storage": {"service", "fastapi", "starlette", "pydantic", "uvicorn", "httpx"},
     "service/jobs": {"fastapi", "starlette", "uvicorn"},
+    "service/usecases": {"fastapi", "starlette", "uvicorn", "httpx"},
     # Pure ASGI middleware on Starlette's types: no routes, no database, no request models.
     "service/api/middleware": {"fastapi", "sqlalchemy", "pydantic", "storage", "uvicorn", "httpx"},
 }
@@ -24,6 +25,7 @@ FORBIDDEN_SERVICE = {
     "service/analytics": {"service.api", "service.jobs", "service.intake", "service.cli", "service.app", "service.settings", "service.loader", "service.ingest"},
     "service/intake": {"service.api", "service.jobs", "service.cli", "service.app", "service.settings", "service.loader", "service.ingest"},
     "service/jobs": {"service.api", "service.cli", "service.app"},
+    "service/usecases": {"service.api", "service.cli", "service.app", "service.jobs.worker"},
     "service/api/middleware": {"service.jobs", "service.cli", "service.app", "service.loader", "service.ingest"},
 }
 

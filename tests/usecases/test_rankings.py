@@ -34,6 +34,7 @@ from service.usecases.rankings import (
     RankingExport, RankingPage, RankingQuery, Unchanged, export_ranking, read_person, read_ranking,
 )
 from storage.db import make_engine, make_sessionmaker, write_session
+from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
 
@@ -128,6 +129,9 @@ def test_degree_ranking_matches_networkx_and_pages_by_cursor(stored: Stored) -> 
         read_ranking(db, TENANT, RankingQuery.parse(stored.graph_id, measure="pagerank", limit=5),
                      cursor=first.next_cursor)
     assert err.value.data["field"] == "cursor"
+    with stored.maker() as db, pytest.raises(NotFound) as missing:
+        read_ranking(db, "another-tenant", q)  # another tenant's graph does not exist for this one
+    assert missing.value.data["resource"] == "graph"
 
 
 def test_filters_keep_the_segment_and_the_consent_asked_for(stored: Stored) -> None:
