@@ -73,8 +73,9 @@ COMPOSITE = "sum_m w_m p_m / sum_m w_m over percentile ranks p_m (0..100; undefi
 class RankingQuery:
     """A ranking asked for: measure (or composite weights), filters, version and page size.
 
-    Build it with :meth:`parse` from what a caller wrote. ``version``: a
-    number, ``"latest"`` or None (the newest); ``number`` is it checked.
+    Build it with :meth:`parse` from what a caller wrote (it checks the
+    measure). ``version``: a number, ``"latest"`` or None (the newest), as
+    written; ``number``: that version checked, None for the newest.
     """
 
     graph_id: str
