@@ -32,7 +32,7 @@ from service.jobs import registry
 from service.jobs.errors import ResultNotReady
 from service.jobs.tasks.referral_asks import contact_reason, exposure_explained
 from service.usecases.loading import LoadedVersion, load_version
-from service.rankings import safe_cell
+from service.usecases.rankings import safe_cell
 from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
