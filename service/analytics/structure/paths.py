@@ -13,19 +13,18 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
 from . import _kernels as _k
 from .._chunks import run_chunked
+from ._views import _Views
 from ._weighted_sampling import rk_sample_weighted
 from ..errors import InvalidParameter
 from ..graph import GraphArrays, arcs, csr
 
-if TYPE_CHECKING:
-    from .centrality import _Views
 
 Progress = Callable[[float, str], None] | None
 
@@ -159,8 +158,6 @@ def betweenness(
     if method == "auto":
         method = "exact" if float(n) * g.m <= exact_limit else "sampled"
     if method == "exact":
-        from .centrality import _Views  # centrality imports this module
-
         v = _views or _Views(g)
         lengths = _path_lengths(v, use_w)
         raw = np.zeros(n)
@@ -293,7 +290,6 @@ def harmonic_closeness(
         raise InvalidParameter("harmonic mode must be 'out' or 'in'", field="mode")
     if cutoff is not None and not cutoff > 0:
         raise InvalidParameter("harmonic_cutoff must be positive", field="harmonic_cutoff")
-    from .centrality import _Views  # centrality imports this module
 
     v = _views or _Views(g)
     if g.n == 0:
