@@ -74,8 +74,7 @@ def degree(g: GraphArrays, *, mode: str = "all") -> NDArray[np.float64]:
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, True, np.array([0, 0, 1], np.int32), np.array([1, 2, 2], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (1, 2)], n=4, directed=True)
     >>> degree(g, mode="out").tolist(), degree(g, mode="in").tolist()
     ([2.0, 1.0, 0.0, 0.0], [0.0, 1.0, 2.0, 0.0])
     """
@@ -88,8 +87,7 @@ def strength(g: GraphArrays, *, mode: str = "all", weights: bool = True) -> NDAr
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1], np.int32), np.array([1, 2], np.int32),
-    ...                 np.array([2.0, 3.0]))
+    >>> g = from_edges([(0, 1), (1, 2)], n=4, weights=[2.0, 3.0])
     >>> strength(g).tolist()
     [2.0, 5.0, 3.0, 0.0]
     """
@@ -187,8 +185,7 @@ def pagerank(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> pr = pagerank(g)
     >>> round(float(pr.sum()), 6), int(pr.argmax())
     (1.0, 0)
@@ -225,8 +222,7 @@ def eigenvector_centrality(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 3], np.int32),
-    ...                 np.array([1, 2, 3, 0], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 3), (3, 0)])
     >>> np.round(eigenvector_centrality(g), 6).tolist()
     [0.5, 0.5, 0.5, 0.5]
     """
@@ -264,8 +260,7 @@ def hits(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, True, np.array([0, 0, 1], np.int32), np.array([2, 3, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 2), (0, 3), (1, 3)], directed=True)
     >>> hub, auth = hits(g)
     >>> int(hub.argmax()), int(auth.argmax())
     (0, 3)
@@ -308,8 +303,7 @@ def coreness(g: GraphArrays, *, _views: _Views | None = None) -> NDArray[np.floa
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 2], np.int32),
-    ...                 np.array([1, 2, 0, 3], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 0), (2, 3)])
     >>> coreness(g).tolist()
     [2.0, 2.0, 2.0, 1.0]
     """
@@ -335,8 +329,7 @@ def local_clustering(g: GraphArrays, *, _views: _Views | None = None) -> NDArray
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 2], np.int32),
-    ...                 np.array([1, 2, 0, 3], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 0), (2, 3)])
     >>> np.round(local_clustering(g), 4).tolist()
     [1.0, 1.0, 0.3333, 0.0]
     """
@@ -370,8 +363,7 @@ def constraint(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> np.round(constraint(g), 4).tolist()
     [0.3333, 1.0, 1.0, 1.0]
     """
@@ -392,7 +384,7 @@ def default_measures(g: GraphArrays, *, exact_limit: float = EXACT_WORK_LIMIT) -
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, False, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)], n=3)
     >>> len(default_measures(g)) == len(MEASURES)
     True
     """
@@ -448,8 +440,7 @@ def scores(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> r = scores(g, ["degree", "pagerank"])
     >>> r.values["degree"].tolist(), r.meta["pagerank"]["damping"]
     ([3.0, 1.0, 1.0, 1.0], 0.85)

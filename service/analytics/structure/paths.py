@@ -133,8 +133,7 @@ def betweenness(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> b, meta = betweenness(g)
     >>> b.tolist(), meta["method"]
     ([1.0, 0.0, 0.0, 0.0], 'exact')
@@ -281,8 +280,7 @@ def harmonic_closeness(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> harmonic_closeness(g).tolist()
     [3.0, 2.0, 2.0, 2.0]
     """
