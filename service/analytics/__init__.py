@@ -105,6 +105,8 @@ from .seeding import (
     ReachEstimate,
     rr_estimate,
     SeedChoice,
+    SeedRules,
+    SeedGuarantee,
     Shortlist,
     top_score_seeds,
 )
@@ -357,6 +359,8 @@ __all__ = [
     "sdsm",
     "sdsm_p_values",
     "SeedChoice",
+    "SeedGuarantee",
+    "SeedRules",
     "shared_attribute_groups",
     "SharedContact",
     "Shortlist",
