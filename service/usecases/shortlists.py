@@ -3,7 +3,7 @@
 The seeds are chosen by one method of :mod:`service.analytics.seeding.shortlists`
 (``imm`` by default, ``opim``, ``celf``, or a baseline heuristic) under the
 shared diffusion settings
-(:class:`~service.jobs.tasks.diffusion_settings.DiffusionSettings`). Then,
+(:class:`~service.usecases.diffusion_settings.DiffusionSettings`). Then,
 for the chosen list and for each baseline list (same rules):
 
 - the reach-versus-budget curve and each seed's marginal gain come from one

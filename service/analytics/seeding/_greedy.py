@@ -159,12 +159,12 @@ def _lazy(f: Callable[[Sequence[int]], float], rules: SeedRules, first: dict[int
     picked: list[int] = []
     gains: list[float] = []
     cur = base
-    room = math.inf if rules.cost_left is None else rules.cost_left
+    cost_left = math.inf if rules.cost_left is None else rules.cost_left
     used = None if rules.caps_left is None else np.zeros_like(rules.caps_left)
     places = rules.free_places
     while heap and len(picked) < places:
         _, _, v, last, g = heapq.heappop(heap)
-        if costs is not None and costs[v] > room:
+        if costs is not None and costs[v] > cost_left:
             continue  # the budget only shrinks: it never fits again
         if used is not None and rules.group is not None and rules.caps_left is not None:
             grp = int(rules.group[v])
@@ -182,7 +182,7 @@ def _lazy(f: Callable[[Sequence[int]], float], rules: SeedRules, first: dict[int
         gains.append(g)
         cur += g
         if costs is not None:
-            room -= float(costs[v])
+            cost_left -= float(costs[v])
         if used is not None and rules.group is not None:
             used[int(rules.group[v])] += 1
         if progress is not None:
@@ -213,20 +213,20 @@ def _pick(scores_at: Callable[[], NDArray[np.float64]], rules: SeedRules,
     avail = rules.candidates.copy()
     close_full_groups(avail, rules)
     used = None if rules.caps_left is None else np.zeros_like(rules.caps_left)
-    room = math.inf if rules.cost_left is None else rules.cost_left
+    cost_left = math.inf if rules.cost_left is None else rules.cost_left
     costs = rules.costs if rules.costs is not None else np.empty(0)
     places = rules.free_places
     while len(seeds) - len(rules.must) < places:
         s = scores_at()
         v = int(K.best_candidate(np.where(np.isnan(s), -1e300, s), avail, rules.tiebreak,
-                                 costs, False, room))
+                                 costs, False, cost_left))
         if v < 0:
             break
         seeds.append(v)
         avail[v] = False
         on_pick(v)
         if rules.costs is not None:
-            room -= float(rules.costs[v])
+            cost_left -= float(rules.costs[v])
         if used is not None and rules.group is not None and rules.caps_left is not None:
             grp = int(rules.group[v])
             used[grp] += 1
