@@ -72,7 +72,7 @@ def py_files(folder: str) -> list[Path]:
 # Interim, while these kinds' params models move from their task modules into their use cases
 # and the rankings and recommendations routers move their logic into use cases.
 INTERIM = {("service/usecases/result_models.py", f"service.jobs.tasks.{k}")
-           for k in ("recommendations", "referral_asks", "link_evaluation", "shortlist")} | {
+           for k in ("recommendations", "referral_asks", "link_evaluation")} | {
     ("service/api/recommendations.py", "service.analytics.ties.recommend"),
     ("service/api/recommendations.py", "service.jobs.tasks.referral_asks"),
     ("service/api/recommendations.py", "service.analytics.ties.referrals"),

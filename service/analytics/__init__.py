@@ -106,6 +106,8 @@ from .seeding import (
     ReachEstimate,
     rr_estimate,
     SeedChoice,
+    SeedGuarantee,
+    SeedRules,
     Shortlist,
     top_score_seeds,
 )
@@ -359,6 +361,8 @@ __all__ = [
     "sdsm",
     "sdsm_p_values",
     "SeedChoice",
+    "SeedGuarantee",
+    "SeedRules",
     "shared_attribute_groups",
     "SharedContact",
     "Shortlist",
