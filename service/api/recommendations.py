@@ -32,7 +32,7 @@ from service.jobs import registry
 from service.jobs.errors import ResultNotReady
 from service.jobs.tasks.referral_asks import contact_reason, exposure_explained
 from service.usecases.loading import LoadedVersion, load_version
-from service.rankings import safe_cell
+from service.usecases.rankings import safe_cell
 from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
@@ -41,7 +41,7 @@ from storage.repo import results as result_repo
 from .deps import SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
-from .jobs import etag_matches
+from .etags import etag_matches
 from .node_ids import node_route
 from .rendering import round_document, round_cell
 from .schemas.common import PROBLEM_RESPONSES

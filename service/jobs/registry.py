@@ -73,7 +73,7 @@ def _attach_results() -> None:
     from service.usecases import result_models as rm
 
     for name, model in (("recommendations", rm.RecommendationsResult), ("referral_asks", rm.ReferralAsksResult),
-                        ("link_evaluation", rm.LinkEvaluationResult), ("shortlist", rm.ShortlistResult)):
+                        ("link_evaluation", rm.LinkEvaluationResult)):
         REGISTRY[name] = replace(REGISTRY[name], result=model)
 
 

@@ -13,7 +13,7 @@ is never stale. Five caches do that, named ``<what>_cache``:
 - :data:`diffusion_cache`: diffusion arrays (:mod:`service.usecases.diffusion_inputs`),
   keyed by version id and probability settings;
 - :data:`ranking_cache`: stored score arrays and orders derived from them
-  (:mod:`service.rankings`), keyed by result id and what was derived.
+  (:mod:`service.usecases._ranking_tables`), keyed by result id and what was derived.
 
 They are views of one :class:`ByteLRU` store, so one bound covers them all:
 ``Settings.cache_bytes``, passed to :func:`set_max_bytes` when the API process

@@ -27,7 +27,7 @@ from service.usecases.profile import ProfileParams
 from service.jobs.tasks.recommendations import RecommendationsParams
 from service.jobs.tasks.referral_asks import ReferralAsksParams
 from service.usecases.scores import ScoresParams
-from service.jobs.tasks.shortlist import ShortlistParams
+from service.usecases.shortlist_params import ShortlistParams
 
 __all__ = [
     "Result",
