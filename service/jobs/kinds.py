@@ -71,6 +71,10 @@ class JobKind:
     # Checks that need the version, run at job creation in the API process:
     # ``precheck(params, load, edges=...)`` raises an analytics error (a 422) or returns.
     precheck: Callable[..., None] | None = None
+    # Params that name another job's result, completed when the job is queued (before
+    # ``precheck``): ``resolve(params, db, tenant, load, graph_id=, version=)`` returns the
+    # params to store, or raises an analytics error (a 422).
+    resolve: Callable[..., BaseModel] | None = None
     # Peak memory from the version's size and the params, checked against the per-job
     # limit at creation and before running: ``estimate(params, load, nodes=, edges=, limit=)``
     # returns a :class:`service.jobs.admission.Estimate` (None: not estimated).

@@ -116,11 +116,14 @@ def queue_job(
         graph_repo.get_graph(db, tenant, graph_id)
     kind = registry.get_kind(order.kind)
     params = parse_job_params(kind, order.params)
-    if kind.precheck is not None or kind.estimate is not None:
+    if kind.precheck is not None or kind.estimate is not None or kind.resolve is not None:
         # Before the write transaction: checking ids and estimating memory may load the version.
         with maker() as db:
             graph, number = resolve_version(db, tenant, graph_id, order.version)
             row = graph_repo.get_version(db, graph, number)
+            if kind.resolve is not None:
+                params = kind.resolve(params, db, tenant, lambda: load_version(db, row), graph_id=graph.id,
+                                      version=number)
             if kind.precheck is not None:
                 kind.precheck(params, lambda: load_version(db, row), edges=row.edges)
             if kind.estimate is not None:

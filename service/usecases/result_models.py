@@ -165,6 +165,7 @@ class ReferralAsksResult(Result):
     expected_referrals_explained: str | None = Field(
         default=None, description="What the expected referrals figure counts, in plain words."
     )
+    warnings: list[ResultWarning] = Field(default_factory=list, description="People left out, and why.")
 
 
 class LinkMethodScore(_Open):

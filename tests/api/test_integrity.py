@@ -111,3 +111,45 @@ async def test_refusals_at_job_creation(client: Any) -> None:
         assert words in body["detail"] and body["field"] == field, body
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "dense_groups", "params": {"groups": 0}})
     assert r.status_code == 422 and "groups" in r.text
+
+
+async def test_shortlists_and_referral_asks_exclude_flagged_people(client: Any) -> None:
+    gid = await graph(client)
+    odd = await run(client, gid, "odd_neighbourhoods", {"top": 10})
+    flagged = {p["node_id"] for k in ("near_cliques", "near_stars")
+               for p in (await client.get(f"/v1/jobs/{odd}/result")).json()[k]}
+    assert "p3" in flagged  # the planted referrer with 25 invitees, the best-connected person
+    plain = await run(client, gid, "shortlist", {"budget": 3, "method": "top_degree", "baselines": [],
+                                                 "forecast_runs": 100, "evaluation_samples": 1000})
+    assert "p3" in {s["node_id"] for s in (await client.get(f"/v1/jobs/{plain}/result")).json()["seeds"]}
+    rule = {"job": odd}
+    sid = await run(client, gid, "shortlist", {"budget": 3, "method": "top_degree", "baselines": [],
+                                               "forecast_runs": 100, "evaluation_samples": 1000,
+                                               "exclude_flagged": rule})
+    body = (await client.get(f"/v1/jobs/{sid}/result")).json()
+    assert not {s["node_id"] for s in body["seeds"]} & flagged
+    note = next(w for w in body["warnings"] if w["code"] == "excluded_flagged")
+    assert note["count"] == len(flagged) and odd in note["message"]
+    stored = body["params"]["exclude_flagged"]
+    assert set(stored["node_ids"]) == flagged and stored["lists"] == ["near_cliques", "near_stars"]
+
+    dense = await run(client, gid, "dense_groups", {"groups": 1})
+    members = set((await client.get(f"/v1/jobs/{dense}/result")).json()["groups"][0]["members"])
+    rid = await run(client, gid, "referral_asks", {"adopters": ["r0", "p5", "p17"], "strict": False,
+                                                   "exclude_flagged": {"job": dense}})
+    asks = list(csv.reader(io.StringIO((await client.get(f"/v1/jobs/{rid}/result.csv")).text)))[1:]
+    assert asks and not ({row[0] for row in asks} | {row[3] for row in asks}) & members
+    body = (await client.get(f"/v1/jobs/{rid}/result")).json()
+    assert body["warnings"][0]["code"] == "excluded_flagged" and body["warnings"][0]["count"] == len(members)
+
+    other = await graph(client)
+    elsewhere = await run(client, other, "odd_neighbourhoods", {})
+    await client.post(f"/v1/graphs/{gid}/versions", params={"part": "edges", "mode": "append"},
+                      content="source,target\np1,p2\n", headers={"Content-Type": "text/csv"})
+    for job, words in ((elsewhere, "another graph"), (odd, "version 2"), ("j_nobody", "does not exist"),
+                       (plain, "name an odd_neighbourhoods or dense_groups job")):
+        for kind, params in (("shortlist", {"budget": 3}), ("referral_asks", {"adopters": ["p5"]})):
+            r = await client.post(f"/v1/graphs/{gid}/jobs",
+                                  json={"kind": kind, "params": {**params, "exclude_flagged": {"job": job}}})
+            body = assert_problem(r, 422, "invalid-parameter")
+            assert words in body["detail"] and body["field"] == "exclude_flagged", body

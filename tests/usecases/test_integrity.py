@@ -216,3 +216,18 @@ def test_uploaded_csv_columns_reach_the_attribute_search(tmp_path: Path) -> None
     first = d["groups"][0]
     assert set(first["members"]) == {"0", "1", "3", "9"} and first["shared_values"] == ["a"]
     assert first["evidence"].startswith("4 accounts sharing 1 device ")
+
+
+def test_a_flagged_person_cannot_be_a_must_include_seed(stored: Any) -> None:
+    from service.analytics.errors import InfeasibleRequest
+    from service.usecases.contact_rules import ContactRules, resolve_rules
+    from service.usecases.integrity_rules import FlaggedRule
+
+    _, v = stored
+    rule = FlaggedRule(job="j_odd", lists=["near_cliques"], node_ids=["m100", "m101"])
+    resolved = resolve_rules(ContactRules(budget=3, flagged=rule), v)
+    assert not resolved.rules.eligible[[100, 101]].any() and resolved.rules.eligible[102]
+    assert any(w["code"] == "excluded_flagged" and w["count"] == 2 for w in resolved.warnings)
+    with pytest.raises(InfeasibleRequest) as err:
+        resolve_rules(ContactRules(budget=3, must_include=("m101",), flagged=rule), v)
+    assert err.value.data["field"] == "must_include" and "flagged for review by job j_odd" in err.value.reason

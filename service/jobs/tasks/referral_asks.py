@@ -22,6 +22,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from service.usecases.diffusion_settings import ProbabilitySettings
+from service.usecases.integrity_rules import FlaggedRule, flagged_warning, resolve_exclude_flagged
 from .recommendations import resolve_ids
 
 if TYPE_CHECKING:
@@ -44,6 +45,9 @@ class ReferralAsksParams(BaseModel):
     follow_on: FollowOn | None = Field(default=None, description="Blend in this per-node measure.")
     blend: float | None = Field(default=None, ge=0, le=1, description="Weight of follow_on (default 0.5 with it).")
     strict: bool = Field(default=True, description="Unknown adopter ids fail the job (true) or are skipped.")
+    exclude_flagged: FlaggedRule | None = Field(
+        default=None, description="People an odd_neighbourhoods or dense_groups job of this version flagged for "
+                                  "review are neither asked nor asked about: {job, lists}.")
 
 
 def exposure_explained(model: str, scheme: str) -> str:
@@ -93,6 +97,13 @@ def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
     dg = diffusion_graph_for(v.version_id, v.graph, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
                              random_seed=params.random_seed)
     ok = v.attrs.contactable()
+    warnings: list[dict[str, Any]] = []
+    if params.exclude_flagged is not None:
+        flagged = resolve_ids(v.index, params.exclude_flagged.node_ids, "exclude_flagged")
+        ok = ok.copy()
+        ok[flagged] = False
+        note = flagged_warning(params.exclude_flagged, len(flagged))
+        warnings += [note] if note else []
     blend = params.blend if params.blend is not None else (0.5 if params.follow_on else 0.0)
     values = follow_on_for(v.version_id, v.graph, params.follow_on) if params.follow_on else None
     ctx.progress(0.5, "ranking")
@@ -125,6 +136,7 @@ def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
                 "won over if every adopter asks each of their targets once."
             ),
             "columns": HEADER,
+            **({"warnings": warnings} if warnings else {}),
         },
         arrays=arrays,
     )
@@ -162,6 +174,7 @@ KIND = JobKind(
     params=ReferralAsksParams,
     run=run,
     estimate=admission.linear_estimate,
+    resolve=resolve_exclude_flagged,
     summary="For every adopter, whom to ask them to refer (each target assigned to one adopter)",
     result_description=(
         "Counts (adopters, unknown_adopters, askers, targets, expected_referrals), exposure_explained "
