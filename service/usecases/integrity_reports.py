@@ -86,8 +86,9 @@ def neighbourhood_law(data: dict[str, Any]) -> str:
     ax.plot(line_x, [x * (x + 1) / 2 for x in line_x], color="#888", linestyle=":", linewidth=1,
             label="everyone knows everyone (fully connected)")
     ax.plot(line_x, line_x, color="#888", linestyle="--", linewidth=1, label="nobody knows each other (star)")
-    drawn: dict[str, Any] = {"law": {"exponent": a, "constant": c},
-                             "points": {"contacts": xs, "ties": ys, "people": people}}
+    series: list[dict[str, Any]] = [
+        {"name": "people compared", "x": xs, "y": ys, "people": people},
+        {"name": "fitted law", "x": line_x, "y": [c * x**a for x in line_x], "exponent": a, "constant": c}]
     for (key, name), colour, marker in zip(_LISTS, (plots.PALETTE[1], plots.PALETTE[3]), ("^", "v")):
         flagged = data.get(key) or []
         fx, fy = [p["contacts"] for p in flagged], [p["ties"] for p in flagged]
@@ -96,7 +97,7 @@ def neighbourhood_law(data: dict[str, Any]) -> str:
         for p in flagged[:1]:
             ax.annotate("top: " + str(p.get("label") or p["node_id"])[:24], (p["contacts"], p["ties"]), fontsize=8,
                         xytext=(4, 3), textcoords="offset points", color=colour)
-        drawn[key] = [{"node_id": p["node_id"], "contacts": p["contacts"], "ties": p["ties"]} for p in flagged]
+        series.append({"name": f"{name}s", "x": fx, "y": fy, "node_ids": [p["node_id"] for p in flagged]})
     top = max(max(ys), *(p["ties"] for k, _ in _LISTS for p in data.get(k) or []))
     ax.set_xlim(lo / 1.4, hi * 1.4)
     ax.set_ylim(max(min(ys) / 1.6, 0.5), top * 2.0)
@@ -113,4 +114,4 @@ def neighbourhood_law(data: dict[str, Any]) -> str:
     ax.set_title(title, loc="left", fontweight="bold")
     ax.legend(loc="upper left", frameon=True, framealpha=0.92, fontsize=8.5)
     plots._note(fig, "Flags are leads for a person to review, not verdicts.")
-    return plots._svg(fig, title, drawn)
+    return plots._svg(fig, title, {"series": series})

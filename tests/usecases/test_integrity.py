@@ -139,8 +139,12 @@ def test_plot_marks_the_flagged_people(stored: Any) -> None:
     d = find_odd_neighbourhoods(v, OddNeighbourhoodsParams(top=5), progress=_noop).data
     svg = reports.neighbourhood_law(d)
     drawn = json.loads(unescape(re.search(r'<desc id="chart-data">(.*?)</desc>', svg, re.S).group(1)))  # type: ignore[union-attr]
-    assert [p["node_id"] for p in drawn["near_cliques"]] == [p["node_id"] for p in d["near_cliques"]]
-    assert drawn["near_stars"][0]["node_id"] == "m7"
+    series = {x["name"]: x for x in drawn["series"]}
+    assert series["near-cliques"]["node_ids"] == [p["node_id"] for p in d["near_cliques"]]
+    assert series["near-cliques"]["x"] == [p["contacts"] for p in d["near_cliques"]]
+    assert series["near-stars"]["node_ids"][0] == "m7"
+    assert series["fitted law"]["exponent"] == d["laws"][0]["exponent"]
+    assert sum(series["people compared"]["people"]) == d["people_fitted"]
     assert "not verdicts" in svg
     header, rows = reports.odd_neighbourhoods_table(v, d, {})
     table = list(rows)
