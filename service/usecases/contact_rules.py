@@ -21,7 +21,7 @@ from numpy.typing import NDArray
 
 from service.analytics.errors import InfeasibleRequest, InvalidParameter, UnknownNode
 from service.analytics.seeding.rules import SeedRules
-from service.usecases.integrity_rules import FlaggedRule, flagged_warning
+from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning
 from service.usecases.loading import LoadedVersion
 
 if TYPE_CHECKING:
@@ -221,7 +221,7 @@ def _flagged(contact: ContactRules, version: LoadedVersion, must: list[int],
     rule = contact.flagged
     if rule is None:
         return []
-    flagged = _resolve(version, list(rule.node_ids), "exclude_flagged", warnings)
+    flagged = _resolve(version, flagged_ids(rule), "exclude_flagged", warnings)
     both = sorted(set(must) & set(flagged))
     if both:
         names = [version.ids[v] for v in both]

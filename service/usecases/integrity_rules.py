@@ -25,7 +25,7 @@ from storage.repo import results as result_repo
 if TYPE_CHECKING:
     from .loading import LoadedVersion
 
-__all__ = ["FLAGGING_KINDS", "FlaggedRule", "flagged_warning", "resolve_exclude_flagged"]
+__all__ = ["FLAGGING_KINDS", "FlaggedRule", "flagged_ids", "flagged_warning", "resolve_exclude_flagged"]
 
 FLAGGING_KINDS: dict[str, tuple[str, ...]] = {"odd_neighbourhoods": ("near_cliques", "near_stars"), "dense_groups": ("groups",)}
 FlaggedList = Literal["near_cliques", "near_stars", "groups"]
@@ -39,8 +39,8 @@ class FlaggedRule(BaseModel):
     lists: list[FlaggedList] | None = Field(
         default=None, max_length=3,
         description="Which of its lists to leave out (default: every list the job has).")
-    node_ids: list[str] = Field(
-        default_factory=list,
+    node_ids: list[str] | None = Field(
+        default=None,
         description="Filled in when the job is queued: the people that job flagged (anything sent is replaced).")
 
 
@@ -87,6 +87,16 @@ def resolve_exclude_flagged(
         ids.update((names[int(i)], None) for i in members.tolist())
     flagged = rule.model_copy(update={"lists": list(lists), "node_ids": list(ids)})
     return params.model_copy(update={"exclude_flagged": flagged})
+
+
+def flagged_ids(rule: FlaggedRule) -> list[str]:
+    """The people the rule leaves out; refused when they were never read from the named job."""
+    if rule.node_ids is None:
+        raise InvalidParameter(
+            f"exclude_flagged was not read from job {rule.job}: scheduled jobs are queued without it; queue "
+            "this job with POST /v1/graphs/{graph_id}/jobs, or list the people in exclude", field="exclude_flagged",
+            value=rule.job)
+    return rule.node_ids
 
 
 def flagged_warning(rule: FlaggedRule | None, left_out: int) -> dict[str, Any] | None:

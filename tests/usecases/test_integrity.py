@@ -235,3 +235,7 @@ def test_a_flagged_person_cannot_be_a_must_include_seed(stored: Any) -> None:
     with pytest.raises(InfeasibleRequest) as err:
         resolve_rules(ContactRules(budget=3, must_include=("m101",), flagged=rule), v)
     assert err.value.data["field"] == "must_include" and "flagged for review by job j_odd" in err.value.reason
+    unread = FlaggedRule(job="j_odd")  # as a schedule would store it: never read from the job
+    with pytest.raises(InvalidParameter) as err:
+        resolve_rules(ContactRules(budget=3, flagged=unread), v)
+    assert err.value.data["field"] == "exclude_flagged" and "POST /v1/graphs" in err.value.reason

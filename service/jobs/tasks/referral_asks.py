@@ -22,7 +22,7 @@ from pydantic import BaseModel, ConfigDict, Field
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from service.usecases.diffusion_settings import ProbabilitySettings
-from service.usecases.integrity_rules import FlaggedRule, flagged_warning, resolve_exclude_flagged
+from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning, resolve_exclude_flagged
 from .recommendations import resolve_ids
 
 if TYPE_CHECKING:
@@ -99,7 +99,7 @@ def run(ctx: TaskContext, params: ReferralAsksParams) -> TaskOutput:
     ok = v.attrs.contactable()
     warnings: list[dict[str, Any]] = []
     if params.exclude_flagged is not None:
-        flagged = resolve_ids(v.index, params.exclude_flagged.node_ids, "exclude_flagged")
+        flagged = resolve_ids(v.index, flagged_ids(params.exclude_flagged), "exclude_flagged")
         ok = ok.copy()
         ok[flagged] = False
         note = flagged_warning(params.exclude_flagged, len(flagged))
