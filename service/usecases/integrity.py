@@ -165,11 +165,22 @@ def find_odd_neighbourhoods(
 
     g = version.graph
     _check_enough(g, params)
-    res = oddball(g, method="huber" if params.fit == "robust" else "least-squares",
-                  min_neighbours=params.min_contacts, min_egos=params.min_people,
-                  lof=params.local_outlier, top=params.top,
-                  ring_score="shared-contacts" if params.ring_score == "shared_contacts" else "own",
-                  progress=progress)
+    try:
+        res = oddball(g, method="huber" if params.fit == "robust" else "least-squares",
+                      min_neighbours=params.min_contacts, min_egos=params.min_people,
+                      lof=params.local_outlier, top=params.top,
+                      ring_score="shared-contacts" if params.ring_score == "shared_contacts" else "own",
+                      progress=progress)
+    except InvalidParameter as exc:
+        law = exc.data.get("field")
+        if law == "lof":
+            raise InvalidParameter("too few different neighbourhoods for the local outlier factor; set "
+                                   "local_outlier to false", field="local_outlier",
+                                   distinct=exc.data.get("distinct")) from None
+        if law in _LAW_WORDS:  # a law with too few positive figures (ties of weight 0, say)
+            raise InvalidParameter(f"too few people with positive figures to fit {_LAW_WORDS[law]}; give "
+                                   "ties positive weights", field="min_people", law=law) from None
+        raise
     f = res.features
     labels = version.labels
 

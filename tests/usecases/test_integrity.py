@@ -207,6 +207,10 @@ def test_graphs_too_small_to_fit_a_law_are_refused() -> None:
     assert "lower min_people" in err.value.reason
     with pytest.raises(EmptyGraph):
         find_odd_neighbourhoods(tiny([], 3), OddNeighbourhoodsParams(), progress=_noop)
+    ring = tiny([(i, (i + 1) % 12) for i in range(12)], 12)  # a cycle: every neighbourhood alike
+    with pytest.raises(InvalidParameter) as err:
+        find_odd_neighbourhoods(ring, OddNeighbourhoodsParams(local_outlier=True), progress=_noop)
+    assert err.value.data["field"] == "local_outlier" and "set local_outlier to false" in err.value.reason
     with pytest.raises(EmptyGraph):
         find_dense_groups(tiny([], 3), DenseGroupsParams(), progress=_noop)
 
