@@ -166,7 +166,7 @@ def test_the_cache_roof_imports_only_the_standard_library_and_numpy() -> None:
     assert not bad, bad
 
 
-@pytest.mark.parametrize("module", ["loader", "indexes", "diffusion_cache", "rankings"])
+@pytest.mark.parametrize("module", ["loader", "usecases/indexes", "diffusion_cache", "rankings"])
 def test_per_process_caches_live_under_the_one_roof(module: str) -> None:
     # A cache is a NamedCache of service.caches (one store, one byte bound), never a module's
     # own dictionary and lock.
