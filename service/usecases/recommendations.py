@@ -92,7 +92,7 @@ class PersonQuery:
 
     graph_id: str
     node_id: str
-    method: str = "adamic_adar"
+    method: LinkMethodName = "adamic_adar"
     limit: int = 10
     contactable: bool = False
     explain: int = 3
