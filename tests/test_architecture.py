@@ -69,24 +69,11 @@ def py_files(folder: str) -> list[Path]:
     return sorted((ROOT / folder).rglob("*.py"))
 
 
-# Interim, while these kinds' params models move from their task modules into their use cases
-# and the rankings and recommendations routers move their logic into use cases.
-INTERIM = {("service/usecases/result_models.py", f"service.jobs.tasks.{k}")
-           for k in ("recommendations", "referral_asks", "link_evaluation")} | {
-    ("service/api/recommendations.py", "service.analytics.ties.recommend"),
-    ("service/api/recommendations.py", "service.jobs.tasks.referral_asks"),
-    ("service/api/recommendations.py", "service.analytics.ties.referrals"),
-    ("service/api/schemas/recommendations.py", "service.jobs.tasks.referral_asks"),
-}
-
-
 @pytest.mark.parametrize("folder", sorted(set(FORBIDDEN) | set(FORBIDDEN_SERVICE)))
 def test_layers_import_only_what_they_may(folder: str) -> None:
     bad = []
     for f in py_files(folder):
         for name in imports_of(f):
-            if (f.relative_to(ROOT).as_posix(), name) in INTERIM:
-                continue
             top = name.split(".")[0]
             if top in FORBIDDEN.get(folder, ()):
                 bad.append(f"{f.relative_to(ROOT)} imports {name}")
@@ -99,8 +86,7 @@ def test_layers_import_only_what_they_may(folder: str) -> None:
 def test_routers_run_no_sql() -> None:
     """Queries live in storage/repo; a router may name a Session type (sqlalchemy.orm) and nothing else."""
     bad = [f"{f.relative_to(ROOT)} imports {name}" for f in py_files("service/api") for name in imports_of(f)
-           if name.split(".")[0] == "sqlalchemy" and name != "sqlalchemy.orm"
-           and (f.relative_to(ROOT).as_posix(), name) not in INTERIM]
+           if name.split(".")[0] == "sqlalchemy" and name != "sqlalchemy.orm"]
     assert not bad, "\n".join(bad)
 
 
@@ -206,7 +192,7 @@ def test_the_cache_roof_imports_only_the_standard_library_and_numpy() -> None:
     assert not bad, bad
 
 
-@pytest.mark.parametrize("module", ["loading", "diffusion_inputs", "_ranking_tables"])
+@pytest.mark.parametrize("module", ["loading", "diffusion_inputs", "_ranking_tables", "indexes"])
 def test_per_process_caches_live_under_the_one_roof(module: str) -> None:
     # A cache is a NamedCache of service.usecases.caches (one store, one byte bound), never a module's
     # own dictionary and lock.

@@ -11,7 +11,7 @@ version.
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -31,7 +31,7 @@ from . import admission, registry, webhooks
 from .errors import InvalidJobParams, ResultNotReady, TooManyJobs
 from .kinds import JobKind
 
-__all__ = ["JobOrder", "QueueLimits", "parse_job_params", "resolve_version", "queue_job", "cancel_job", "read_result"]
+__all__ = ["JobOrder", "QueueLimits", "parse_job_params", "resolve_version", "queue_job", "cancel_job", "read_result", "csv_exports", "result_table"]
 
 
 @dataclass(frozen=True)
@@ -184,3 +184,19 @@ def read_result(db: Session, tenant: str, job_id: str) -> tuple[Job, JobResult]:
         hint = _NOT_READY[job.status].replace("{id}", job.id)
         raise ResultNotReady(f"job {job.id} has no result: {hint}", job_id=job.id, job_status=job.status)
     return job, result_repo.get_result(db, job.id)
+
+
+def csv_exports() -> dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]]:
+    """Job kinds whose result can be exported as CSV, and how (each kind declares its ``csv``)."""
+    return {k.name: k.csv for k in registry.REGISTRY.values() if k.csv is not None}
+
+
+def result_table(db: Session, tenant: str, job: Job, result: JobResult) -> tuple[list[str], Iterator[list[Any]]]:
+    """A succeeded job's result as a CSV header and rows, by its kind's ``csv`` (on its version)."""
+    render = registry.get_kind(job.kind).csv
+    if render is None:
+        raise InvalidParameter(f"jobs of kind {job.kind!r} have no CSV export", field="job_id")
+    arrays = result_repo.get_result_arrays(db, result)
+    graph = graph_repo.get_graph(db, tenant, job.graph_id or "")
+    loaded = load_version(db, graph_repo.get_version(db, graph, job.version))
+    return render(loaded, result.data, arrays)

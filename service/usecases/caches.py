@@ -6,9 +6,9 @@ is never stale. Five caches do that, named ``<what>_cache``:
 
 - :data:`version_cache`: a version's graph, ids and attributes (:mod:`service.usecases.loading`),
   keyed by version id;
-- :data:`index_cache`: the recommendation neighbour index (:mod:`service.indexes`),
+- :data:`index_cache`: the recommendation neighbour index (:mod:`service.usecases.indexes`),
   keyed by version id;
-- :data:`measure_cache`: per-node follow-on measures (:mod:`service.indexes`),
+- :data:`measure_cache`: per-node follow-on measures (:mod:`service.usecases.indexes`),
   keyed by ``(version id, measure)``;
 - :data:`diffusion_cache`: diffusion arrays (:mod:`service.usecases.diffusion_inputs`),
   keyed by version id and probability settings;
@@ -229,7 +229,7 @@ class NamedCache(Generic[K, V]):
 
 
 def _index_nbytes(index: NeighbourIndex) -> int:
-    from service.indexes import index_nbytes  # the scratch arrays depend on the compute pool
+    from service.usecases.indexes import index_nbytes  # the scratch arrays depend on the compute pool
 
     return index_nbytes(index)
 

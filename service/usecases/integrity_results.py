@@ -1,7 +1,6 @@
 """The result documents of the referral-integrity job kinds (``odd_neighbourhoods``, ``dense_groups``).
 
-Kept apart from :mod:`service.usecases.integrity` because the result base model is
-read by the job registry, which imports the use cases: this module imports both.
+Kept apart from :mod:`service.usecases.integrity`, which holds the params and the work.
 """
 
 from __future__ import annotations

@@ -19,7 +19,6 @@ import networkx as nx
 import numpy as np
 import pytest
 
-import service.jobs  # noqa: F401  # the registry first: the result models import job kinds
 from service.analytics.errors import EmptyGraph, InvalidParameter
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.usecases import integrity_reports as reports
