@@ -17,6 +17,7 @@ Flags are leads for a person to review, never verdicts; every result says so.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Callable
 from datetime import datetime, timezone
 from typing import TYPE_CHECKING, Any, Literal
@@ -229,8 +230,6 @@ def _plural(column: str) -> str:
 
 def _singular_counts(text: str, columns: list[str]) -> str:
     """"sharing 1 addresses" -> "sharing 1 address": the engine words every count in the plural."""
-    import re
-
     for name in columns:
         text = re.sub(rf"\b1 {re.escape(_plural(name))}\b", f"1 {name.replace('_', ' ').strip()}", text)
     return text
