@@ -25,7 +25,7 @@ from storage.repo import results as result_repo
 if TYPE_CHECKING:
     from .loading import LoadedVersion
 
-__all__ = ["FLAGGING_KINDS", "FlaggedRule", "flagged_ids", "flagged_warning", "resolve_exclude_flagged"]
+__all__ = ["FLAGGING_KINDS", "FlaggedRule", "flagged_ids", "flagged_warning", "read_flagged", "resolve_exclude_flagged"]
 
 FLAGGING_KINDS: dict[str, tuple[str, ...]] = {"odd_neighbourhoods": ("near_cliques", "near_stars"), "dense_groups": ("groups",)}
 FlaggedList = Literal["near_cliques", "near_stars", "groups"]
@@ -55,6 +55,14 @@ def resolve_exclude_flagged(
     rule: FlaggedRule | None = getattr(params, "exclude_flagged", None)
     if rule is None:
         return params
+    flagged = read_flagged(rule, db, tenant, load, graph_id=graph_id, version=version)
+    return params.model_copy(update={"exclude_flagged": flagged})
+
+
+def read_flagged(
+    rule: FlaggedRule, db: Session, tenant: str, load: Callable[[], LoadedVersion], *, graph_id: str, version: int,
+) -> FlaggedRule:
+    """The rule with ``node_ids`` and ``lists`` read from the job it names (checked: same version, succeeded)."""
     try:
         job = job_repo.get_job(db, tenant, rule.job)
     except NotFound:
@@ -85,8 +93,7 @@ def resolve_exclude_flagged(
         members = result_repo.get_result_arrays(db, result, ["member_index"])["member_index"]
         names = load().ids
         ids.update((names[int(i)], None) for i in members.tolist())
-    flagged = rule.model_copy(update={"lists": list(lists), "node_ids": list(ids)})
-    return params.model_copy(update={"exclude_flagged": flagged})
+    return rule.model_copy(update={"lists": list(lists), "node_ids": list(ids)})
 
 
 def flagged_ids(rule: FlaggedRule) -> list[str]:

@@ -25,7 +25,7 @@ from service.analytics.errors import InvalidParameter, UnknownNode
 from service.analytics.ties.referrals import NextContact, next_contacts, referral_asks
 from service.usecases.diffusion_inputs import diffusion_graph_for
 from service.usecases.diffusion_settings import ProbabilitySettings
-from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning
+from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning, read_flagged
 from service.usecases.loading import LoadedVersion, load_version
 from storage.repo import graphs as graph_repo
 
@@ -84,6 +84,7 @@ class AdopterQuery:
     group_by: Literal["adopter"] | None = None
     per_adopter: int = 5
     strict: bool = True
+    exclude_flagged: FlaggedRule | None = None
 
 
 def exposure_explained(model: str, scheme: str) -> str:
@@ -191,6 +192,8 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
         graph = graph_repo.get_graph(db, tenant, query.graph_id)
         ver = graph_repo.get_version(db, graph, query.version)
         loaded = load_version(db, ver)
+        rule = None if query.exclude_flagged is None else read_flagged(
+            query.exclude_flagged, db, tenant, lambda: loaded, graph_id=graph.id, version=ver.number)
     lookup = loaded.index
     got = [lookup.get(s, -1) for s in query.adopters]
     idx = np.asarray(got, dtype=np.int64)
@@ -211,6 +214,13 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
                              random_seed=query.random_seed)
     index = neighbour_index_for(ver.id, loaded.graph)
     ok = loaded.attrs.contactable()
+    warnings: list[dict[str, Any]] = []
+    if rule is not None:
+        flagged = resolve_ids(lookup, flagged_ids(rule), "exclude_flagged")
+        ok = ok.copy()
+        ok[flagged] = False
+        note = flagged_warning(rule, len(flagged))
+        warnings += [note] if note else []
     blend = _blend(query.blend, query.follow_on)
     values = follow_on_for(ver.id, loaded.graph, query.follow_on) if query.follow_on else None
     body: dict[str, Any] = {
@@ -224,6 +234,7 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
         "unknown_adopters": {"count": len(unknown), "examples": unknown[:20]} if unknown else None,
         "group_by": query.group_by,
         "exposure_explained": exposure_explained(query.model, pr.scheme),
+        **({"warnings": warnings} if warnings else {}),
     }
     ids, labels = loaded.ids, loaded.labels
     if query.group_by == "adopter":

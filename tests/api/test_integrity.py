@@ -141,6 +141,12 @@ async def test_shortlists_and_referral_asks_exclude_flagged_people(client: Any) 
     assert asks and not ({row[0] for row in asks} | {row[3] for row in asks}) & members
     body = (await client.get(f"/v1/jobs/{rid}/result")).json()
     assert body["warnings"][0]["code"] == "excluded_flagged" and body["warnings"][0]["count"] == len(members)
+    r = await client.post(f"/v1/graphs/{gid}/next-contacts", json={
+        "adopters": ["r0", "p5", "p17"], "strict": False, "group_by": "adopter", "exclude_flagged": {"job": dense}})
+    assert r.status_code == 200, r.text
+    page = r.json()
+    listed = {g["adopter"] for g in page["groups"]} | {t["node_id"] for g in page["groups"] for t in g["targets"]}
+    assert listed and not listed & members and page["warnings"][0]["code"] == "excluded_flagged"
 
     other = await graph(client)
     elsewhere = await run(client, other, "odd_neighbourhoods", {})
@@ -153,3 +159,6 @@ async def test_shortlists_and_referral_asks_exclude_flagged_people(client: Any) 
                                   json={"kind": kind, "params": {**params, "exclude_flagged": {"job": job}}})
             body = assert_problem(r, 422, "invalid-parameter")
             assert words in body["detail"] and body["field"] == "exclude_flagged", body
+    r = await client.post(f"/v1/graphs/{gid}/next-contacts", json={"adopters": ["p5"], "exclude_flagged": {"job": odd}})
+    body = assert_problem(r, 422, "invalid-parameter")
+    assert "version 2" in body["detail"] and body["field"] == "exclude_flagged", body
