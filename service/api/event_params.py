@@ -7,9 +7,8 @@ from typing import Annotated, Any, Literal
 
 from fastapi import Query
 
-from service.analytics.events import CORRECTIONS, PROJECTIONS
 from service.intake.events import EventColumns
-from service.usecases.event_projection import BACKBONES
+from service.usecases.event_projection import CHOICES
 
 __all__ = ["EventQuery"]
 
@@ -28,22 +27,22 @@ class EventQuery:
         "event")
     time: Annotated[str | None, Query(max_length=200, description="part=events: the time column (seconds since "
                                       "1970 or ISO 8601); a column named `time` is used when present.")] = None
-    projection: Annotated[str | None, _choice(PROJECTIONS, "part=events: how shared events weigh a tie "
+    projection: Annotated[str | None, _choice(CHOICES["projection"], "part=events: how shared events weigh a tie "
                                               "(default newman).")] = None
     half_life_days: Annotated[float | None, Query(gt=0, le=36_500, description="part=events: an event this many "
                                                   "days older than the newest counts half.")] = None
     max_event_size: Annotated[int | None, Query(ge=0, le=10_000_000, description="part=events: events with "
                                                 "more people are dropped or down-weighted (default 100; 0: no "
                                                 "cap).")] = None
-    oversized: Annotated[str | None, _choice(("drop", "downweight"), "part=events: what happens to events above "
+    oversized: Annotated[str | None, _choice(CHOICES["oversized"], "part=events: what happens to events above "
                                              "the cap (default drop).")] = None
-    single_events: Annotated[str | None, _choice(("skip", "refuse"), "part=events: events with one person tie "
+    single_events: Annotated[str | None, _choice(CHOICES["single_events"], "part=events: events with one person tie "
                                                  "nobody: skip them, or refuse the table (default refuse).")] = None
-    backbone: Annotated[str | None, _choice(BACKBONES, "part=events: keep only significant ties (default "
+    backbone: Annotated[str | None, _choice(CHOICES["backbone"], "part=events: keep only significant ties (default "
                                             "none).")] = None
     alpha: Annotated[float | None, Query(gt=0, lt=1, description="part=events: significance level of the "
                                          "backbone (default 0.05).")] = None
-    correction: Annotated[str | None, _choice(CORRECTIONS, "part=events: correction for testing many ties "
+    correction: Annotated[str | None, _choice(CHOICES["correction"], "part=events: correction for testing many ties "
                                               "(default none).")] = None
 
     def columns(self, weight: str | None, extra_columns: Literal["error", "ignore"]) -> EventColumns:

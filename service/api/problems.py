@@ -20,7 +20,6 @@ from fastapi.responses import JSONResponse
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
 from service.analytics import errors as aerr
-from service.analytics.events import EmptyBackbone
 from service.intake import errors as ierr
 from service.jobs import errors as jerr
 from storage import errors as serr
@@ -63,7 +62,6 @@ PROBLEM_STATUS: dict[type[Exception], int] = {
     aerr.UnknownNode: 422,
     aerr.InfeasibleRequest: 422,
     aerr.EmptyGraph: 422,
-    EmptyBackbone: 422,
     aerr.InvalidParameter: 422,
     aerr.Cancelled: 409,
     aerr.TooExpensive: 422,

@@ -20,7 +20,6 @@ from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 from numpy.typing import NDArray
-from pydantic import Field
 
 from service import intake
 from service.analytics.errors import InvalidParameter
@@ -32,7 +31,6 @@ from service.intake.events import EventColumns, read_events_csv, read_events_jso
 from service.usecases.event_projection import EventArrays, ProjectionParams, project, resolve_settings
 from service.usecases.loading import LoadedVersion, load_version, version_arrays
 from service.usecases.outcome import Computed, Progress
-from service.usecases.result_models import Result
 from service.usecases.uploads import Uploaded, _extend_attrs, _has_attributes
 from storage.arrays import decode_strings, encode_strings
 from storage.db import write_session
@@ -45,7 +43,7 @@ if TYPE_CHECKING:
 
     from storage.models import Graph, GraphVersion
 
-__all__ = ["JOB_ROWS", "EventUploadOptions", "ProjectEventsParams", "ProjectEventsResult", "upload_events",
+__all__ = ["JOB_ROWS", "EventUploadOptions", "ProjectEventsParams", "upload_events",
            "project_stored_events"]
 
 # Above this many rows the projection runs as a job. Grouping and projecting a million rows
@@ -69,17 +67,6 @@ class EventUploadOptions:
 
 class ProjectEventsParams(ProjectionParams):
     """Project a version's stored events again (settings left out keep the version's)."""
-
-
-class ProjectEventsResult(Result):
-    kind: Literal["project_events"]
-    params: ProjectEventsParams
-    version_created: int = Field(description="The version whose ties this job made.")
-    nodes: int
-    edges: int
-    projection: dict[str, Any] = Field(description="How ties were weighted, and what the events held.")
-    backbone: dict[str, Any] = Field(description="Which ties were kept, and the share of ties, weight and "
-                                     "people kept.")
 
 
 @dataclass(frozen=True)

@@ -32,15 +32,19 @@ from service.analytics.graph import GraphArrays
 
 from .outcome import Progress
 
-__all__ = ["BACKBONES", "EventArrays", "ProjectionSettings", "ProjectionParams", "ProjectedGraph",
+__all__ = ["BACKBONES", "CHOICES", "EventArrays", "ProjectionChoices", "ProjectionParams", "ProjectedGraph",
            "resolve_settings", "project"]
 
 BACKBONES: tuple[str, ...] = ("none", "disparity_filter", "sdsm")
 DAY = 86_400.0
+# The named settings and their allowed values (the query's enums read them).
+CHOICES: dict[str, tuple[str, ...]] = {"projection": PROJECTIONS, "oversized": ("drop", "downweight"),
+                                       "single_events": ("refuse", "skip"), "backbone": BACKBONES,
+                                       "correction": CORRECTIONS}
 
 
 @dataclass(frozen=True)
-class ProjectionSettings:
+class ProjectionChoices:
     """Every choice that decides the edges; stored with the version and shown by ``GET .../versions/{n}``.
 
     ``max_event_size`` 0 means no cap; ``half_life_days`` None means no time decay.
@@ -76,18 +80,16 @@ class ProjectionParams(BaseModel):
     correction: Literal["none", "bonferroni", "fdr_bh"] | None = None
 
 
-def resolve_settings(given: dict[str, Any], previous: dict[str, Any] | None = None) -> ProjectionSettings:
+def resolve_settings(given: dict[str, Any], previous: dict[str, Any] | None = None) -> ProjectionChoices:
     """Settings from what the request names, else the previous version's, else the defaults.
 
     Raises :class:`InvalidParameter` naming the field for an unknown name or a value out of range.
     """
-    base = asdict(ProjectionSettings())
+    base = asdict(ProjectionChoices())
     if previous:
         base.update({k: v for k, v in previous.items() if k in base})
     base.update({k: v for k, v in given.items() if v is not None})
-    choices = {"projection": PROJECTIONS, "oversized": ("drop", "downweight"),
-               "single_events": ("skip", "refuse"), "backbone": BACKBONES, "correction": CORRECTIONS}
-    for name, allowed in choices.items():
+    for name, allowed in CHOICES.items():
         if base[name] not in allowed:
             raise InvalidParameter(
                 f"there is no {name.replace('_', ' ')} called {base[name]!r}; choose one of "
@@ -100,8 +102,8 @@ def resolve_settings(given: dict[str, Any], previous: dict[str, Any] | None = No
     if base["half_life_days"] is not None and not float(base["half_life_days"]) > 0:
         raise InvalidParameter("half_life_days must be above 0", field="half_life_days",
                                value=base["half_life_days"])
-    names = {f.name for f in fields(ProjectionSettings)}
-    return ProjectionSettings(**{k: v for k, v in base.items() if k in names})
+    names = {f.name for f in fields(ProjectionChoices)}
+    return ProjectionChoices(**{k: v for k, v in base.items() if k in names})
 
 
 @dataclass(frozen=True, eq=False)
@@ -137,7 +139,7 @@ def _share(x: float) -> float:
     return round(float(x), 4)
 
 
-def project(table: EventArrays, settings: ProjectionSettings, *, directed: bool,
+def project(table: EventArrays, settings: ProjectionChoices, *, directed: bool,
             progress: Progress | None = None) -> ProjectedGraph:
     """Project ``table`` by ``settings`` and keep the backbone; the edges of a ``directed`` graph are arcs.
 
@@ -175,8 +177,8 @@ def project(table: EventArrays, settings: ProjectionSettings, *, directed: bool,
         raise InvalidParameter(f"there is no projection called {s.projection!r}", field="projection") from exc
     except SingleParticipantEvent as exc:
         raise InvalidParameter(
-            f"{exc.data['events']} event(s) have a single participant and tie nobody: remove them, or send "
-            "single_events=skip", field="single_events", events=exc.data["events"]) from exc
+            (f"{exc.data['events']} events have" if exc.data["events"] != 1 else "an event has")
+            + " a single participant, which ties nobody: remove such events, or send single_events=skip", field="single_events", events=exc.data["events"]) from exc
     except ProjectionTooLarge as exc:
         raise InvalidParameter(
             f"the kept events would form {exc.data['pair_slots']:,} pairs, more than the limit of "

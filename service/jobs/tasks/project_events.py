@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from service.usecases.event_graphs import ProjectEventsParams, ProjectEventsResult, project_stored_events
+from service.usecases.event_graphs import ProjectEventsParams, project_stored_events
+from service.usecases.event_results import ProjectEventsResult
 
 from ..kinds import JobKind, TaskContext, TaskOutput
 
