@@ -135,6 +135,14 @@ def _quiet(fraction: float, message: str | None = None) -> None:
     return None
 
 
+def _people_tied(src: NDArray[np.int32], dst: NDArray[np.int32], n: int) -> int:
+    """People with at least one tie (a mask, not a sort: the ties may number tens of millions)."""
+    tied = np.zeros(n, bool)
+    tied[src] = True
+    tied[dst] = True
+    return int(tied.sum())
+
+
 def _share(x: float) -> float:
     return round(float(x), 4)
 
@@ -207,9 +215,10 @@ def project(table: EventArrays, settings: ProjectionChoices, *, directed: bool,
         elif s.backbone == "sdsm":
             b = sdsm(table.person, table.event, alpha=s.alpha, correction=s.correction,
                      singletons="skip", n_people=table.n_people, n_events=table.n_events)
-            kept = np.unique(np.minimum(b.src, b.dst).astype(np.int64) * table.n_people + np.maximum(b.src, b.dst))
+            kept = np.sort(b.src.astype(np.int64) * table.n_people + b.dst)  # pairs with src < dst
             mine = np.minimum(src, dst).astype(np.int64) * table.n_people + np.maximum(src, dst)
-            keep = np.isin(mine, kept)
+            at = np.minimum(np.searchsorted(kept, mine), max(kept.size - 1, 0))
+            keep = kept[at] == mine
         else:
             keep = None
     except EmptyBackbone as exc:
@@ -228,9 +237,9 @@ def project(table: EventArrays, settings: ProjectionChoices, *, directed: bool,
                 f"({len(keep):,} ties tested): raise max_event_size or send backbone=none",
                 ties_tested=len(keep), ties_kept=0, alpha=s.alpha, correction=s.correction)
         total = float(w.sum())
-        people_tied = np.union1d(src, dst).size
+        people_tied = _people_tied(src, dst, table.n_people)
         src, dst, w = src[keep], dst[keep], w[keep]
-        left = people_tied - np.union1d(src, dst).size
+        left = people_tied - _people_tied(src, dst, table.n_people)
         backbone.update(ties_tested=int(keep.size),
                         ties_kept=int(keep.sum()), edge_share_kept=_share(keep.mean()),
                         weight_share_kept=_share(w.sum() / total if total > 0 else 0.0),
