@@ -119,3 +119,22 @@ def test_time_decay_halves_an_event_one_half_life_older(maker: Any, tmp_path: Pa
     _upload(maker, gid, path, projection="count", half_life_days=30)
     # Source: closed form 2^(-30/30) + 2^0 = 1.5 shared events.
     assert _ties(maker, gid) == {("ann", "bob"): pytest.approx(1.5)}
+
+
+def test_directed_graph_takes_resource_allocation_and_mirrors_symmetric_ties(maker: Any, tmp_path: Path) -> None:
+    rows = [("ann", "t1"), ("bob", "t1"), ("cy", "t1"), ("ann", "t2"), ("bob", "t2")]
+    gid = _graph(maker, directed=True)
+    _upload(maker, gid, _file(tmp_path, rows), projection="resource_allocation")
+    with maker() as db:
+        v = load_version(db, graph_repo.get_version(db, graph_repo.get_graph(db, "t", gid)))
+    arcs = {(v.ids[a], v.ids[b]): float(w) for a, b, w in zip(v.graph.src, v.graph.dst, v.graph.weight)}
+    # Source: closed form of Zhou et al. (2007), W(j -> i) = (1/k_j) sum_l a_il a_jl / k_l:
+    # bob -> ann = (1/2)(1/3 + 1/2); cy -> ann = (1/1)(1/3); ann -> cy = (1/2)(1/3).
+    assert arcs[("bob", "ann")] == pytest.approx(5 / 12) and arcs[("cy", "ann")] == pytest.approx(1 / 3)
+    assert arcs[("ann", "cy")] == pytest.approx(1 / 6) and len(arcs) == 6
+    gid2 = _graph(maker, directed=True)
+    _upload(maker, gid2, _file(tmp_path, rows, "b.csv"), projection="count")
+    with maker() as db:
+        v = load_version(db, graph_repo.get_version(db, graph_repo.get_graph(db, "t", gid2)))
+    arcs = {(v.ids[a], v.ids[b]): float(w) for a, b, w in zip(v.graph.src, v.graph.dst, v.graph.weight)}
+    assert arcs[("ann", "bob")] == arcs[("bob", "ann")] == 2.0 and len(arcs) == 6
