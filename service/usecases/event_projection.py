@@ -143,6 +143,10 @@ def _people_tied(src: NDArray[np.int32], dst: NDArray[np.int32], n: int) -> int:
     return int(tied.sum())
 
 
+def _ties(n: object) -> str:
+    return f"{n:,} tie{'s' if n != 1 else ''}"
+
+
 def _share(x: float) -> float:
     return round(float(x), 4)
 
@@ -225,7 +229,7 @@ def project(table: EventArrays, settings: ProjectionChoices, *, directed: bool,
         smallest = float(exc.data["smallest_p_value"])  # type: ignore[arg-type]
         raise EmptyBackbone(
             f"no tie is significant at alpha={s.alpha} with correction={s.correction} "
-            f"({exc.data['edges_tested']:,} ties tested, smallest p-value "
+            f"({_ties(exc.data['edges_tested'])} tested, smallest p-value "
             f"{smallest:.3g}): raise alpha"
             + (", use correction=none" if s.correction != "none" else "") + ", or send backbone=none",
             ties_tested=exc.data["edges_tested"], ties_kept=0, alpha=s.alpha, correction=s.correction,
@@ -234,7 +238,7 @@ def project(table: EventArrays, settings: ProjectionChoices, *, directed: bool,
         if not keep.any():
             raise EmptyBackbone(
                 f"the backbone's significant ties all come from events left out of the projection "
-                f"({len(keep):,} ties tested): raise max_event_size or send backbone=none",
+                f"({_ties(len(keep))} tested): raise max_event_size or send backbone=none",
                 ties_tested=len(keep), ties_kept=0, alpha=s.alpha, correction=s.correction)
         total = float(w.sum())
         people_tied = _people_tied(src, dst, table.n_people)
