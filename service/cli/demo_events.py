@@ -81,7 +81,7 @@ def tasting_events(d: Demo, sc: Any, folder: Path, *, seed: int = 7) -> None:
         ["tastings and fairs", f"{p['events']:,}"],
         ["events above 100 people (down-weighted)", f"{p['events_downweighted']:,}"],
         ["members who attended", f"{p['people_in_events']:,}"],
-        ["ties from shared tastings", f"{p['ties']:,}"],
+        ["ties from shared tastings and fairs", f"{p['ties']:,}"],
         ["ties kept by the filter", f"{b['ties_kept']:,} ({b['edge_share_kept']:.0%} of ties, "
                                     f"{b['weight_share_kept']:.0%} of tie weight)"],
         ["members left without a tie", f"{b['people_left_without_ties']:,} ({b['people_left_without_ties_share']:.0%})"],
