@@ -13,7 +13,7 @@ wrote. Smaller tables are projected during the upload.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from datetime import datetime, timezone
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, Literal
@@ -23,7 +23,7 @@ from numpy.typing import NDArray
 
 from service import intake
 from service.analytics.errors import InvalidParameter
-from service.analytics.graph import GraphArrays
+from service.analytics.graph import GraphArrays, NodeAttributes
 from service.analytics.structure.summary import graph_summary
 from service.intake import merge
 from service.intake.dialect import open_csv
@@ -158,8 +158,6 @@ def _build(path: Path, options: EventUploadOptions, *, directed: bool, previous:
         ids = [i for i, gone in zip(ids, drop.tolist()) if not gone]
         n = len(ids)
     if attrs is None:
-        from service.analytics.graph import NodeAttributes
-
         attrs = NodeAttributes.empty(n)
     table = EventArrays(person, event, weight, time, n, len(events))
     origin = {"part": "events", "mode": options.mode, "format": options.fmt, "records": rows.records,
@@ -182,8 +180,6 @@ def _build(path: Path, options: EventUploadOptions, *, directed: bool, previous:
 
 
 def _plain(settings: Any) -> dict[str, Any]:
-    from dataclasses import asdict
-
     return asdict(settings)
 
 
