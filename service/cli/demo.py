@@ -28,6 +28,7 @@ import numpy as np
 
 from service.settings import Settings
 
+from .demo_events import tasting_events
 from .scenario import STORES, generate, write_csv
 
 __all__ = ["run_demo", "CAUTIONS"]
@@ -209,6 +210,7 @@ def run_demo(settings: Settings, args: argparse.Namespace, echo: Callable[[str],
     try:
         demo = Demo(base, key, out, echo)
         _story(demo, sc, edges_csv, nodes_csv)
+        tasting_events(demo, sc, out / "upload", seed=args.seed)
     finally:
         if proc is not None:
             _stop(proc)

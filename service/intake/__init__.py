@@ -51,6 +51,7 @@ from .errors import (
     UnsafeXml,
     UploadError,
 )
+from .events import EventColumns, EventRows, read_events_csv, read_events_json, read_events_ndjson
 from .graphml import GRAPHML_NS, read_graphml
 from .hints import EDGE_NAMES, NODE_NAMES, ColumnHint, normalise, suggest_columns
 from .interner import MAX_NODES, Interner
@@ -112,6 +113,11 @@ __all__ = [
     "read_nodes_ndjson",
     "read_nodes_json",
     "read_graphml",
+    "EventColumns",
+    "EventRows",
+    "read_events_csv",
+    "read_events_ndjson",
+    "read_events_json",
     "GRAPHML_NS",
     # encodings, delimiters and column hints (CSV)
     "open_csv",

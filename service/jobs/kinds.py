@@ -38,6 +38,8 @@ class TaskContext:
     random_seed: int
     progress: Progress
     _load: Callable[[], LoadedVersion]
+    # The worker's database, for the few kinds that write a version (``project_events``).
+    sessions: Any = None
 
     def load(self) -> LoadedVersion:
         """The job's graph version (arrays, caller ids, node attributes), cached per process."""

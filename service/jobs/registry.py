@@ -46,7 +46,8 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import dense_groups, forecast, link_evaluation, odd_neighbourhoods, profile, recommendations, referral_asks, scores, shortlist
+from .tasks import (dense_groups, forecast, link_evaluation, odd_neighbourhoods, profile, project_events, recommendations,
+                    referral_asks, scores, shortlist)
 
 __all__ = [
     "JobKind",
@@ -60,7 +61,10 @@ __all__ = [
     "validation_errors",
 ]
 
-_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist, odd_neighbourhoods, dense_groups]
+_BUILTIN = [
+    profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist,
+    project_events, odd_neighbourhoods, dense_groups,
+]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
 

@@ -321,6 +321,7 @@ class Worker:
                 random_seed=seed,
                 progress=progress,
                 _load=self._loader(run),
+                sessions=self.maker,
             )
             limit = self.config.memory_limit_bytes
             if kind.estimate is not None and job.graph_id is not None:

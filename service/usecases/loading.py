@@ -94,7 +94,8 @@ def load_version(db: Session, version: GraphVersion) -> LoadedVersion:
 
 def _load(db: Session, version: GraphVersion) -> LoadedVersion:
     man = version.manifest
-    a = graph_repo.get_version_arrays(db, version)
+    # Event tables kept with the version are read only by the event use cases.
+    a = graph_repo.get_version_arrays(db, version, [k for k in man["arrays"] if not k.startswith("events.")])
     n = int(man["n"])
     g = GraphArrays(
         n=n,

@@ -39,7 +39,10 @@ RUNS: list[tuple[str, dict[str, Any]]] = [
     ("shortlist", {"cost_budget": 4.0, "must_include": ["1"], "max_per_segment": 2}),
     ("odd_neighbourhoods", {"top": 5}),
     ("dense_groups", {"groups": 2}),
+    ("project_events", {"backbone": "disparity_filter", "alpha": 0.5}),
 ]
+# Kinds that run on a version built from an event table (karate club's edges as two-person events).
+EVENTS_CSV = "person,event\n" + "".join(f"{u},e{i}\n{v},e{i}\n" for i, (u, v) in enumerate(nx.karate_club_graph().edges()))
 
 
 @pytest.fixture
@@ -76,8 +79,13 @@ async def test_every_kind_result_matches_its_model(client: Any) -> None:
     r = await client.post(f"/v1/graphs/{gid}/versions", params={"part": "nodes", "mode": "append"},
                           content=NODES_CSV, headers={"Content-Type": "text/csv"})
     assert r.status_code == 201, r.text
+    events_gid = await make_graph(client, None)
+    r = await client.post(f"/v1/graphs/{events_gid}/versions", params={"part": "events"}, content=EVENTS_CSV,
+                          headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
     for kind, params in RUNS:
-        r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params})
+        on = events_gid if kind == "project_events" else gid
+        r = await client.post(f"/v1/graphs/{on}/jobs", json={"kind": kind, "params": params})
         assert r.status_code == 202, r.text
         await run_worker_once(worker_for(client))
         job = (await client.get(f"/v1/jobs/{r.json()['id']}")).json()

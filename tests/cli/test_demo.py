@@ -23,6 +23,7 @@ SECTIONS = [
     "## Where the shortlist gains, store by store",
     "## The same campaign on a money budget",
     "## First wave",
+    "## Ties from tasting attendance",
     "## Cautions",
 ]
 
