@@ -280,7 +280,8 @@ def campaigns_on_version(db: Session, tenant: str, graph_id: str, version: Loade
     """The chosen uploaded campaigns (None: all), oldest first, as rounds over ``version``.
 
     Timestamps are bucketed into rounds of ``round_hours`` (0 for the seeds);
-    people the version does not know are left out. Returns the episodes and a
+    people the version does not know are left out; each log is taken to have
+    been watched for one round past its last adoption. Returns the episodes and a
     description of each campaign used (id, name, people, unknown).
 
     Raises
@@ -321,7 +322,9 @@ def campaigns_on_version(db: Session, tenant: str, graph_id: str, version: Loade
             rounds = np.array([0 if s else max(int(e[3]), 1) for e, s in zip(entries, seed)], dtype=np.int64)
         else:
             rounds = bucket_rounds(np.array([float(e[2]) for e in entries]), seed, window=round_hours)
-        out.append(Episode(nodes, rounds, max(int(rounds.max()), 1), r.id))
+        # The log is taken to cover one round past its last adoption (nobody adopted then):
+        # without it the last adopters' unanswered chances would be left out and p overstated.
+        out.append(Episode(nodes, rounds, int(rounds.max()) + 1, r.id))
         used.append({"id": r.id, "name": r.name, "started_at": r.started_at.isoformat(),
                      "people": int(nodes.size), "seeds": int(seed.sum()),
                      "unknown": len(r.log or []) - len(entries)})

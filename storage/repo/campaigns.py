@@ -9,10 +9,10 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from ..errors import Conflict, NotFound
-from ..models import Campaign, new_id
+from ..models import Campaign, Graph, new_id
 
 __all__ = ["add_campaign", "get_campaign", "list_campaigns", "find_campaigns", "add_campaign_log",
-           "delete_campaign"]
+           "delete_campaign", "get_graph_tenant"]
 
 
 def add_campaign(
@@ -73,3 +73,11 @@ def add_campaign_log(db: Session, row: Campaign, *, log: list[Any], report: dict
 def delete_campaign(db: Session, row: Campaign) -> None:
     db.delete(row)
     db.flush()
+
+
+def get_graph_tenant(db: Session, graph_id: str) -> str:
+    """The tenant that owns ``graph_id`` (for work that holds only the graph's id)."""
+    tenant = db.scalar(select(Graph.tenant_id).where(Graph.id == graph_id))
+    if tenant is None:
+        raise NotFound("graph not found", resource="graph", id=graph_id)
+    return tenant
