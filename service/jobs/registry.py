@@ -46,7 +46,7 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import forecast, learn_probabilities, link_evaluation, profile, recommendations, referral_asks, scores, shortlist
+from .tasks import backtest, forecast, learn_probabilities, link_evaluation, profile, recommendations, referral_asks, scores, shortlist
 
 __all__ = [
     "JobKind",
@@ -60,7 +60,8 @@ __all__ = [
     "validation_errors",
 ]
 
-_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist, learn_probabilities]
+_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist, learn_probabilities,
+            backtest]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
 

@@ -131,3 +131,29 @@ async def test_bad_models_and_no_campaigns_are_refused(client: httpx.AsyncClient
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "forecast", "params": {
         "seeds": ["n1"], "probability": {"scheme": "learned"}}})
     assert r.status_code == 422 and "needs probability.model" in r.text
+
+
+async def test_backtest_scores_every_scheme_with_csv_and_plot(client: httpx.AsyncClient, tmp_path: Any) -> None:
+    csv, edges = graph_csv()
+    gid = await make_graph(client, csv)
+    # Truth p = 0.35, well above weighted cascade's 1/degree (about 0.17 here).
+    await upload_campaigns(client, gid, edges, 12, p=0.35, seed=9)
+    res = await run_job(client, gid, "backtest", {"latest": 4, "simulations": 200, "methods": ["uniform"]})
+    summary = {s["scheme"]: s for s in res["summary"]}
+    assert set(summary) == {"learned", "weighted_cascade", "uniform", "trivalency"}
+    assert all(s["campaigns"] == 4 for s in summary.values())
+    # The learned model (the truth's form) predicts who adopted better than the misspecified schemes.
+    assert summary["learned"]["log_likelihood"] > summary["weighted_cascade"]["log_likelihood"]
+    assert summary["learned"]["log_likelihood"] > summary["trivalency"]["log_likelihood"]
+    assert summary["learned"]["mean_rel_error"] < summary["weighted_cascade"]["mean_rel_error"]
+    assert res["verdict"].startswith("The learned model's forecasts were off by")
+    assert len(res["campaigns"]) == 4 and len(res["campaigns"][0]["forecasts"]) == 4
+    r = await client.get(f"/v1/jobs/{res['job_id']}/result.csv")
+    assert r.status_code == 200 and r.text.splitlines()[0].startswith("campaign,name,scheme,actual,expected")
+    assert len(r.text.strip().splitlines()) == 1 + 16
+    r = await client.get(f"/v1/jobs/{res['job_id']}/plots/forecast_vs_actual.svg")
+    assert r.status_code == 200 and "<svg" in r.text and "actual reach" in r.text
+    (tmp_path / "backtest.svg").write_text(r.text)
+    # Holding out every campaign leaves nothing to learn from: refused before queueing.
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "backtest", "params": {"latest": 12}})
+    assert assert_problem(r, 422, "invalid-parameter")["field"] == "latest"
