@@ -70,6 +70,7 @@ class BacktestResult(Result):
     """Forecasts of held-out past campaigns against what they reached, per scheme."""
 
     kind: Literal["backtest"] = "backtest"
+    params: BacktestParams
     verdict: str = Field(description="The backtest in plain words, the learned model first.")
     summary: list[dict[str, Any]] = Field(description=(
         "Per scheme: scheme, name, campaigns, mean_abs_error, mean_rel_error, inside (campaigns whose actual "
@@ -123,7 +124,8 @@ def run_backtest(version: LoadedVersion, params: BacktestParams, *, tenant: str,
         res = backtest(version.graph, [episodes[j] for j in order], holdout="latest", latest=held,
                        segments=seg if len(labels) > 2 else None, features=x if x.shape[1] else None,
                        feature_names=names, methods=params.methods, uniform_p=params.uniform_p,
-                       simulations=params.simulations, random_seed=params.random_seed, folds=params.folds)
+                       simulations=params.simulations, random_seed=params.random_seed, folds=params.folds,
+                       progress=_scaled(progress, i, len(splits)))
         scores.extend(res.scores)
         method = res.models[0].method if res.models else ""
         for j in order[-held:]:
@@ -144,6 +146,13 @@ def run_backtest(version: LoadedVersion, params: BacktestParams, *, tenant: str,
         "round_hours": params.round_hours,
     }
     return Computed(doc)
+
+
+def _scaled(progress: Progress, i: int, n: int) -> Callable[[float, str], None]:
+    """Progress of split ``i`` of ``n`` as a share of the whole backtest."""
+    def step(f: float, msg: str) -> None:
+        progress((i + f) / n, msg)
+    return step
 
 
 def _forecast(s: Any) -> dict[str, Any]:

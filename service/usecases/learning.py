@@ -58,6 +58,7 @@ class LearnResult(Result):
     """A learned probability model; the job id is the model's id."""
 
     kind: Literal["learn_probabilities"] = "learn_probabilities"
+    params: LearnParams
     model: dict[str, Any] = Field(description=(
         "method (per_edge, segment_pair, logistic, uniform, weighted_cascade or trivalency), reason, "
         "parameters [{name, value, low, high}], held_out {method: log-likelihood}, log_likelihood, "
@@ -100,7 +101,8 @@ def learn_model(version: LoadedVersion, params: LearnParams, *, tenant: str, pro
     if methods is not None:
         methods = [m for m in methods if not (m == "segment_pair" and segments is None)] or ["uniform"]
     m = learn_probabilities(version.graph, episodes, methods=methods, segments=segments, features=features,
-                            feature_names=names, folds=params.folds, random_seed=params.random_seed)
+                            feature_names=names, folds=params.folds, random_seed=params.random_seed,
+                            progress=lambda f, msg: progress(0.1 + 0.75 * f, msg))
     progress(0.85, "counting Linear Threshold weights")
     lt = goyal_lt_weights(version.graph, episodes)
     progress(0.95, "storing the model")

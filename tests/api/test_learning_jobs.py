@@ -1,8 +1,7 @@
 """Learning probabilities from uploaded campaigns over HTTP, and using the model in forecasts.
 
-Campaigns are simulated here under Independent Cascade with a known uniform
-probability (Kempe, Kleinberg and Tardos 2003: each new adopter gets one chance
-per round to pass it to each connection); the learned model must come back
+Campaigns are simulated under Independent Cascade with a known uniform
+probability (tests/jobs/campaign_helpers.py); the learned model must come back
 near it, and forecasts with ``{"scheme": "learned"}`` must use it.
 """
 
@@ -15,6 +14,7 @@ import numpy as np
 import pytest
 
 from tests.jobs.api_helpers import assert_problem, make_graph, run_worker_once, worker_for
+from tests.jobs.campaign_helpers import upload_campaigns
 
 pytestmark = pytest.mark.anyio
 
@@ -27,50 +27,11 @@ def db_url(sqlite_url: str) -> str:
     return sqlite_url
 
 
-def graph_csv(seed: int = 3) -> tuple[str, list[tuple[int, int]]]:
+def graph_csv(seed: int = 3) -> tuple[str, list[tuple[str, str]]]:
     rng = np.random.default_rng(seed)
     pairs = {(int(a), int(b)) for a, b in rng.integers(0, N, (M, 2)) if a != b}
     edges = sorted({(min(a, b), max(a, b)) for a, b in pairs})
-    return "source,target\n" + "".join(f"n{a},n{b}\n" for a, b in edges), edges
-
-
-def simulate(edges: list[tuple[int, int]], p: float, seeds: list[int], rng: np.random.Generator) -> dict[int, int]:
-    """Independent Cascade on the undirected graph: person -> round adopted (0 = seed)."""
-    nb: dict[int, list[int]] = {}
-    for a, b in edges:
-        nb.setdefault(a, []).append(b)
-        nb.setdefault(b, []).append(a)
-    when = {s: 0 for s in seeds}
-    frontier, t = list(seeds), 0
-    while frontier:
-        t += 1
-        new = []
-        for u in frontier:
-            for v in nb.get(u, []):
-                if v not in when and rng.random() < p:
-                    when[v] = t
-                    new.append(v)
-        frontier = new
-    return when
-
-
-async def upload_campaigns(client: httpx.AsyncClient, gid: str, edges: list[tuple[int, int]], count: int,
-                           p: float = TRUE_P, seed: int = 5) -> list[str]:
-    rng = np.random.default_rng(seed)
-    ids = []
-    for i in range(count):
-        r = await client.post(f"/v1/graphs/{gid}/campaigns",
-                              json={"name": f"c{i}", "started_at": f"2026-01-{i % 28 + 1:02d}T08:00:00Z"})
-        cid = r.json()["id"]
-        when = simulate(edges, p, [int(s) for s in rng.choice(N, 3, replace=False)], rng)
-        log = "person,role,round\n" + "".join(f"n{v},{'seed' if t == 0 else 'adopter'},{t}\n" for v, t in when.items())
-        if len(when) < 2:
-            log += f"n{(max(when) + 1) % N},seed,0\n"
-        r = await client.put(f"/v1/graphs/{gid}/campaigns/{cid}/log", content=log,
-                             headers={"Content-Type": "text/csv"})
-        assert r.status_code == 200, r.text
-        ids.append(cid)
-    return ids
+    return "source,target\n" + "".join(f"n{a},n{b}\n" for a, b in edges), [(f"n{a}", f"n{b}") for a, b in edges]
 
 
 async def run_job(client: httpx.AsyncClient, gid: str, kind: str, params: dict[str, Any]) -> dict[str, Any]:
@@ -87,7 +48,7 @@ async def run_job(client: httpx.AsyncClient, gid: str, kind: str, params: dict[s
 async def test_learned_model_recovers_p_and_drives_forecasts(client: httpx.AsyncClient) -> None:
     csv, edges = graph_csv()
     gid = await make_graph(client, csv)
-    await upload_campaigns(client, gid, edges, 30)
+    await upload_campaigns(client, gid, edges, 30, p=TRUE_P)
     res = await run_job(client, gid, "learn_probabilities", {"methods": ["uniform", "weighted_cascade"]})
     model = res["model"]
     assert model["method"] == "uniform", model
@@ -121,7 +82,7 @@ async def test_bad_models_and_no_campaigns_are_refused(client: httpx.AsyncClient
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "learn_probabilities", "params": {}})
     body = assert_problem(r, 422, "invalid-parameter")
     assert "at least one past campaign" in body["detail"]
-    await upload_campaigns(client, other, edges, 6)
+    await upload_campaigns(client, other, edges, 6, p=TRUE_P)
     res = await run_job(client, other, "learn_probabilities", {"methods": ["uniform"], "folds": 2})
     for model in (res["job_id"], "j_nope"):
         r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "forecast", "params": {
