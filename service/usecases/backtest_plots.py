@@ -57,7 +57,8 @@ def forecast_vs_actual_svg(campaigns: list[dict[str, Any]], *,
     else:
         ax.set_ylim(0, (max(values) if values else 1.0) * 1.15)
     _thousands(ax)  # plain numbers (10, 100), on a log scale too
-    names = [textwrap.shorten(str(c.get("name") or c["id"]), 18, placeholder="...") for c in campaigns]
+    names = [textwrap.fill(textwrap.shorten(str(c.get("name") or c["id"]), 40, placeholder="..."), 16)
+             for c in campaigns]  # whole names on up to three short lines
     ax.set_xticks(range(len(campaigns)), labels=names, rotation=30 if len(campaigns) > 6 else 0,
                   ha="right" if len(campaigns) > 6 else "center")
     ax.set_xlim(-0.6, len(campaigns) - 0.4)
