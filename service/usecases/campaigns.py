@@ -245,18 +245,19 @@ def check_log(rows: list[LogRow], version: LoadedVersion) -> tuple[list[list[Any
         raise InvalidParameter("none of the log's seeds is in this version of the graph; "
                                "check the seed ids", field="log")
     if unknown:
-        warnings.append(_warning("unknown_people", f"{len(unknown)} people in the log are not in "
-                                 f"version {version.number} and are left out", unknown))
+        warnings.append(_warning("unknown_people", f"{_people(len(unknown))} in the log "
+                                 f"{'is' if len(unknown) == 1 else 'are'} not in version {version.number} "
+                                 "of the graph and left out", unknown))
     early = [p for p, (r, w) in keep.items() if by_time and w < 0]
     if early:
-        warnings.append(_warning("before_start", f"{len(early)} rows are timed before the "
+        warnings.append(_warning("before_start", f"{_people(len(early))} timed before the "
                                  "campaign's start", early))
     if duplicates:
-        warnings.append(_warning("duplicate_adoptions", f"{len(duplicates)} repeated adoptions "
-                                 "were merged into the person's first", duplicates))
+        warnings.append(_warning("duplicate_adoptions", f"{_rows(len(duplicates))} repeating an adoption "
+                                 "merged into the person's first", duplicates))
     if by_seeds:
-        warnings.append(_warning("adoptions_by_seeds", f"{len(by_seeds)} seeds are also listed "
-                                 "as adopters; they count as seeds", by_seeds))
+        warnings.append(_warning("adoptions_by_seeds", f"{_people(len(by_seeds))} contacted by the "
+                                 "campaign also listed as adopting; counted as seeds", by_seeds))
     log = [[r.person, r.role, r.time, r.round, r.referred_by] for r, _ in keep.values()]
     adopters = sum(1 for r, _ in keep.values() if r.role == "adopter")
     last = max((w for r, w in keep.values()), default=0.0)
@@ -268,6 +269,14 @@ def check_log(rows: list[LogRow], version: LoadedVersion) -> tuple[list[list[Any
         "warnings": warnings,
     }
     return log, report
+
+
+def _people(n: int) -> str:
+    return f"{n:,} person" if n == 1 else f"{n:,} people"
+
+
+def _rows(n: int) -> str:
+    return f"{n:,} row" if n == 1 else f"{n:,} rows"
 
 
 def _warning(code: str, message: str, ids: list[str]) -> dict[str, Any]:

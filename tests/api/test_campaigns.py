@@ -56,7 +56,7 @@ async def test_upload_reports_unknown_people_duplicates_and_seed_adoptions(clien
     codes = {w["code"]: w for w in out["warnings"]}
     assert codes["duplicate_adoptions"]["ids"] == ["b"]
     assert codes["adoptions_by_seeds"]["ids"] == ["a"]
-    assert codes["unknown_people"]["count"] == 1
+    assert codes["unknown_people"]["count"] == 1 and codes["unknown_people"]["message"].startswith("1 person ")
     # Immutable: the same file again answers the same; another file is a conflict.
     again = await _put(client, gid, cid, log.replace("2026-02-28T09:00:00Z", "2026-03-01T12:00:00Z"))
     assert again.status_code == 200 and again.json() == out
