@@ -27,6 +27,11 @@ def forecast_vs_actual(data: dict[str, Any]) -> str:
     return forecast_vs_actual_svg(campaigns)
 
 
+def _pick(c: dict[str, Any], scheme: str, key: str) -> float | None:
+    f = next((f for f in c["forecasts"] if f["scheme"] == scheme), None)
+    return None if f is None else float(f[key])
+
+
 def forecast_vs_actual_svg(campaigns: list[dict[str, Any]], *,
                            title: str = "Forecasts of past campaigns against what they reached") -> str:
     """One group per campaign: a dot at each scheme's expected reach with its 5-95% band, a bar at the actual."""
@@ -67,7 +72,10 @@ def forecast_vs_actual_svg(campaigns: list[dict[str, Any]], *,
     ax.legend(loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False, fontsize=9)
     _note(fig, "Dots: expected reach; whiskers: 5th to 95th percentile of simulated campaigns; "
                "black bar: what the campaign reached.")
-    data = {"campaigns": [{"name": c.get("name"), "actual": c["actual"],
-                           "forecasts": [{k: f[k] for k in ("scheme", "expected", "p5", "p95")}
-                                         for f in c["forecasts"]]} for c in campaigns]}
+    labels = [str(c.get("name") or c["id"]) for c in campaigns]
+    series = [{"name": NAMES.get(sc, sc), "x": labels,
+               "y": [_pick(c, sc, "expected") for c in campaigns],
+               "p5": [_pick(c, sc, "p5") for c in campaigns],
+               "p95": [_pick(c, sc, "p95") for c in campaigns]} for sc in schemes]
+    data = {"series": [{"name": "actual reach", "x": labels, "y": [c["actual"] for c in campaigns]}, *series]}
     return _svg(fig, title, data)
