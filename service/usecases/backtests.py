@@ -27,13 +27,12 @@ from service.usecases.campaigns import campaigns_on_version
 from service.usecases.learning import MethodName, feature_matrix, segment_codes
 from service.usecases.loading import LoadedVersion, version_origin
 from service.usecases.outcome import Computed, Progress
-from service.usecases.result_models import Result
 from storage.repo import campaigns as campaign_repo
 
 if TYPE_CHECKING:
     from numpy.typing import NDArray
 
-__all__ = ["BacktestParams", "BacktestResult", "run_backtest", "precheck", "backtest_table", "BACKTEST_HEADER",
+__all__ = ["BacktestParams", "run_backtest", "precheck", "backtest_table", "BACKTEST_HEADER",
            "SCHEME_NAMES"]
 
 SCHEME_NAMES = {"learned": "learned model", "weighted_cascade": "weighted cascade", "uniform": "uniform p",
@@ -64,22 +63,6 @@ class BacktestParams(BaseModel):
                              description="Forecast simulations per campaign and scheme.")
     folds: int = Field(default=5, ge=2, le=20, description="Groups of campaigns for choosing the learned model.")
     random_seed: int = Field(default=0, ge=0, le=2**63 - 1)
-
-
-class BacktestResult(Result):
-    """Forecasts of held-out past campaigns against what they reached, per scheme."""
-
-    kind: Literal["backtest"] = "backtest"
-    params: BacktestParams
-    verdict: str = Field(description="The backtest in plain words, the learned model first.")
-    summary: list[dict[str, Any]] = Field(description=(
-        "Per scheme: scheme, name, campaigns, mean_abs_error, mean_rel_error, inside (campaigns whose actual "
-        "reach fell inside the 5-95% band), log_likelihood (higher is better), mean_auc."))
-    campaigns: list[dict[str, Any]] = Field(description=(
-        "Per held-out campaign: id, name, actual, learned_method, and forecasts [{scheme, expected, p5, p95, "
-        "inside_band, abs_error, rel_error, log_likelihood, auc}]."))
-    holdout: str
-    round_hours: float
 
 
 def _splits(n: int, params: BacktestParams) -> list[list[int]]:

@@ -26,10 +26,9 @@ from service.analytics.learning import campaign_episodes, edge_features, goyal_l
 from service.usecases.campaigns import campaigns_on_version
 from service.usecases.loading import LoadedVersion, version_origin
 from service.usecases.outcome import Computed, Progress
-from service.usecases.result_models import Result
 from storage.repo import campaigns as campaign_repo
 
-__all__ = ["LearnParams", "LearnResult", "learn_model", "precheck", "segment_codes", "feature_matrix", "MethodName"]
+__all__ = ["LearnParams", "learn_model", "precheck", "segment_codes", "feature_matrix", "MethodName"]
 
 MethodName = Literal["per_edge", "segment_pair", "logistic", "uniform", "weighted_cascade", "trivalency"]
 NO_SEGMENT = "(no segment)"
@@ -52,20 +51,6 @@ class LearnParams(BaseModel):
         description="Models to compare; null: all the data allows (per pair of segments needs segments).")
     folds: int = Field(default=5, ge=2, le=20, description="Groups of campaigns for the held-out comparison.")
     random_seed: int = Field(default=0, ge=0, le=2**63 - 1, description="Seeds the trivalency draw.")
-
-
-class LearnResult(Result):
-    """A learned probability model; the job id is the model's id."""
-
-    kind: Literal["learn_probabilities"] = "learn_probabilities"
-    params: LearnParams
-    model: dict[str, Any] = Field(description=(
-        "method (per_edge, segment_pair, logistic, uniform, weighted_cascade or trivalency), reason, "
-        "parameters [{name, value, low, high}], held_out {method: log-likelihood}, log_likelihood, "
-        "iterations, converged, new_connection_method, typical_probability {median, p90}."))
-    campaigns: list[dict[str, Any]] = Field(description="The campaigns learned from: id, name, started_at, people, seeds, unknown.")
-    data: dict[str, Any] = Field(description="campaigns, trials, activations, unexplained adoptions, round_hours.")
-    readings: list[str] = Field(description="What the model says, in plain sentences.")
 
 
 def segment_codes(version: LoadedVersion) -> tuple[NDArray[np.int64], tuple[str, ...]]:

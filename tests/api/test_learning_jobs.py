@@ -13,6 +13,10 @@ import httpx
 import numpy as np
 import pytest
 
+from service.analytics.graph import arcs
+from service.usecases.learned_models import learned_probabilities
+from service.usecases.loading import load_version
+from storage.repo import graphs as graph_repo
 from tests.jobs.api_helpers import assert_problem, make_graph, run_worker_once, worker_for
 from tests.jobs.campaign_helpers import upload_campaigns
 
@@ -34,8 +38,9 @@ def graph_csv(seed: int = 3) -> tuple[str, list[tuple[str, str]]]:
     return "source,target\n" + "".join(f"n{a},n{b}\n" for a, b in edges), [(f"n{a}", f"n{b}") for a, b in edges]
 
 
-async def run_job(client: httpx.AsyncClient, gid: str, kind: str, params: dict[str, Any]) -> dict[str, Any]:
-    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params})
+async def run_job(client: httpx.AsyncClient, gid: str, kind: str, params: dict[str, Any],
+                  **order: Any) -> dict[str, Any]:
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params, **order})
     assert r.status_code == 202, r.text
     job = r.json()["id"]
     await run_worker_once(worker_for(client))
@@ -66,6 +71,13 @@ async def test_learned_model_recovers_p_and_drives_forecasts(client: httpx.Async
     same = await run_job(client, gid, "forecast", {"seeds": seeds, "simulations": 400,
                                                    "probability": {"scheme": "uniform", "p": p["value"]}})
     assert learned["expected_reach"]["mean"] == pytest.approx(same["expected_reach"]["mean"], rel=0.02)
+    # Shortlists take the learned model too (the IMM memory estimate builds its graph the same way),
+    # and Linear Threshold uses the counted weights (Goyal et al. 2010), each person's summing to <= 1.
+    short = await run_job(client, gid, "shortlist", {"budget": 2, "probability": {"scheme": "learned", "model": mid}})
+    assert len(short["seeds"]) == 2
+    lt = await run_job(client, gid, "forecast", {"seeds": seeds, "simulations": 200, "model": "lt",
+                                                 "probability": {"scheme": "learned", "model": mid}})
+    assert lt["expected_reach"]["mean"] >= 2
     # A later version: connections kept keep their probability, new ones get the uniform estimate.
     r = await client.post(f"/v1/graphs/{gid}/versions", params={"mode": "append"},
                           content="source,target\nn0,new1\n", headers={"Content-Type": "text/csv"})
@@ -73,6 +85,23 @@ async def test_learned_model_recovers_p_and_drives_forecasts(client: httpx.Async
     later = await run_job(client, gid, "forecast", {"seeds": seeds, "simulations": 400,
                                                     "probability": {"scheme": "learned", "model": mid}})
     assert later["version"] == 2 and later["expected_reach"]["mean"] > 0
+    # A per-connection model carried to version 2: every kept arc keeps its own probability, the
+    # new person's two arcs get the model's one-for-all estimate (checked through the use case).
+    per_edge = await run_job(client, gid, "learn_probabilities", {"methods": ["per_edge"], "folds": 2}, version=1)
+    assert per_edge["version"] == 1 and per_edge["model"]["method"] == "per_edge"
+    maker = client.app.state.sessionmaker  # type: ignore[attr-defined]
+    with maker() as db:
+        g = graph_repo.get_graph(db, client.app.state.settings.default_tenant, gid)  # type: ignore[attr-defined]
+        v1, v2 = (load_version(db, graph_repo.get_version(db, g, n)) for n in (1, 2))
+    p1 = learned_probabilities(per_edge["job_id"], v1)
+    p2 = learned_probabilities(per_edge["job_id"], v2)
+    assert np.ptp(p1) > 0  # really one probability per connection
+    a1, a2 = arcs(v1.graph), arcs(v2.graph)
+    before = {(v1.ids[u], v1.ids[w]): q for u, w, q in zip(a1.src, a1.dst, p1)}
+    for u, w, q in zip(a2.src, a2.dst, p2):
+        key = (v2.ids[u], v2.ids[w])
+        expect = before.get(key, per_edge["model"]["coefficients"]["uniform"][0])
+        assert q == pytest.approx(expect, rel=1e-3), key  # the answer rounds to 4 digits
 
 
 async def test_bad_models_and_no_campaigns_are_refused(client: httpx.AsyncClient) -> None:

@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 from service.usecases.backtest_plots import forecast_vs_actual
-from service.usecases.backtests import BacktestParams, BacktestResult, backtest_table, precheck, run_backtest
+from service.usecases.backtests import BacktestParams, backtest_table, precheck, run_backtest
+from service.usecases.learning_results import BacktestResult
 
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from service.usecases.learning import LearnParams, LearnResult, learn_model, precheck
+from service.usecases.learning import LearnParams, learn_model, precheck
+from service.usecases.learning_results import LearnResult
 
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
