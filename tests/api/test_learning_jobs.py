@@ -111,7 +111,10 @@ async def test_bad_models_and_no_campaigns_are_refused(client: httpx.AsyncClient
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "learn_probabilities", "params": {}})
     body = assert_problem(r, 422, "invalid-parameter")
     assert "at least one past campaign" in body["detail"]
-    await upload_campaigns(client, other, edges, 6, p=TRUE_P)
+    theirs = await upload_campaigns(client, other, edges, 6, p=TRUE_P)
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "learn_probabilities",
+                                                          "params": {"campaigns": theirs[:2]}})
+    assert "is not a campaign of this graph" in assert_problem(r, 422, "invalid-parameter")["detail"]
     res = await run_job(client, other, "learn_probabilities", {"methods": ["uniform"], "folds": 2})
     for model in (res["job_id"], "j_nope"):
         r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "forecast", "params": {
