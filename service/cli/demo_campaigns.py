@@ -18,11 +18,11 @@ from numpy.typing import NDArray
 
 __all__ = ["campaigns_story", "HIDDEN_INTERCEPT", "HIDDEN_SLOPE", "simulate_campaign"]
 
-HIDDEN_INTERCEPT = -3.5
+HIDDEN_INTERCEPT = -4.0
 HIDDEN_SLOPE = 0.6
-CAMPAIGNS = 16
-SEEDS = 12
-HOLD_OUT = 4
+CAMPAIGNS = 20
+SEEDS = 20
+HOLD_OUT = 5
 
 
 def simulate_campaign(n: int, src: NDArray[np.int32], dst: NDArray[np.int32], prob: NDArray[np.float64],
@@ -65,7 +65,8 @@ def campaigns_story(d: Any, sc: Any, gid: str) -> None:
         day = simulate_campaign(sc.members, sc.src, sc.dst, hidden, seeds, rng)
         rows = ["person,role,time"]
         for v, t in day.items():
-            when = started + timedelta(days=t, hours=float(rng.uniform(0, 20)) if t else 0.0)
+            # Day t's adoptions fall some time in the t-th day after the start: round t of one day.
+            when = started + timedelta(hours=24.0 * (t - 1) + float(rng.uniform(1, 23))) if t else started
             rows.append(f"{sc.ids[v]},{'seed' if t == 0 else 'adopter'},{when.isoformat()}")
         d.check(d.http.put(f"/v1/graphs/{gid}/campaigns/{c['id']}/log", content="\n".join(rows) + "\n",
                            headers={"Content-Type": "text/csv"}))
