@@ -18,6 +18,7 @@ It imports the standard library, numpy, defusedxml, ijson, charset-normalizer an
 
 from __future__ import annotations
 
+from .campaign_log import LOG_COLUMNS, LOG_ROLES, LogRow, read_campaign_log
 from .csvfile import read_edges_csv, read_nodes_csv
 from .dialect import (
     DELIMITER_NAMES,
@@ -78,6 +79,11 @@ from .merge import (
 from .tables import CONSENT_WORDS, NODE_COLUMNS, EdgeOptions, EdgeTable, NodeTable
 
 __all__ = [
+    # campaign logs
+    "LOG_COLUMNS",
+    "LOG_ROLES",
+    "LogRow",
+    "read_campaign_log",
     # errors
     "IntakeError",
     "InvalidOption",

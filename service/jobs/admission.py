@@ -106,8 +106,12 @@ def admit(estimate: Estimate | None, limit: int | None) -> None:
 
 
 def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, scheme: str,
-                 p: float | None, q: float | None, rounds: int | None, random_seed: int) -> float | None:
-    """The mean RR-set size measured on :data:`PILOT_SETS` sets, or None for a version too large to load here."""
+                 p: float | None, q: float | None, rounds: int | None, random_seed: int,
+                 settings: Any = None) -> float | None:
+    """The mean RR-set size measured on :data:`PILOT_SETS` sets, or None for a version too large to load here.
+
+    ``settings`` (diffusion settings, optional) builds the graph instead, as a learned model needs.
+    """
     if edges > PILOT_MAX_EDGES:
         return None
     import numpy as np
@@ -118,8 +122,8 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
     v = load()
     if v.graph.n == 0:
         return 0.0
-    dg = diffusion_graph_for(v.version_id, v.graph, model=model, scheme=scheme, p=p, q=q,
-                             random_seed=random_seed)
+    dg = settings.diffusion_graph(v) if settings is not None else diffusion_graph_for(
+        v.version_id, v.graph, model=model, scheme=scheme, p=p, q=q, random_seed=random_seed)
     coll = RRCollection(RRSampler(dg, rounds=rounds), np.uint64(0x9E3779B97F4A7C15))
     target = 4
     while True:  # doubling, so a stop leaves at most twice PILOT_MAX_ENTRIES in the store
@@ -170,7 +174,7 @@ def shortlist_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes:
                         "lower forecast_runs", {"forecast_runs": int(params.forecast_runs)})
     pr = params.probability
     mean = rr_mean_size(load, edges=edges, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                        rounds=params.rounds, random_seed=params.random_seed)
+                        rounds=params.rounds, random_seed=params.random_seed, settings=params)
     mean = 1.0 if mean is None else mean
     per_set = mean * RR_ENTRY_BYTES + RR_SET_BYTES
     sets = int(params.max_samples) + int(params.evaluation_samples)

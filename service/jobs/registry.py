@@ -46,8 +46,8 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import (dense_groups, forecast, link_evaluation, odd_neighbourhoods, profile, project_events, recommendations,
-                    referral_asks, scores, shortlist)
+from .tasks import (backtest, dense_groups, forecast, learn_probabilities, link_evaluation, odd_neighbourhoods, profile,
+                    project_events, recommendations, referral_asks, scores, shortlist)
 
 __all__ = [
     "JobKind",
@@ -63,7 +63,7 @@ __all__ = [
 
 _BUILTIN = [
     profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist,
-    project_events, odd_neighbourhoods, dense_groups,
+    project_events, odd_neighbourhoods, dense_groups, learn_probabilities, backtest,
 ]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}

@@ -13,6 +13,7 @@ from service.api.schemas.results import RESULT_MODELS, JobResult
 from service.jobs.registry import REGISTRY
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import make_graph, run_worker_once, worker_for
+from tests.jobs.campaign_helpers import upload_campaigns
 
 pytestmark = [pytest.mark.anyio, pytest.mark.slow]
 
@@ -40,6 +41,9 @@ RUNS: list[tuple[str, dict[str, Any]]] = [
     ("odd_neighbourhoods", {"top": 5}),
     ("dense_groups", {"groups": 2}),
     ("project_events", {"backbone": "disparity_filter", "alpha": 0.5}),
+    ("learn_probabilities", {}),
+    ("backtest", {"latest": 2, "simulations": 100}),
+    ("backtest", {"holdout": "each", "simulations": 50, "methods": ["uniform"]}),
 ]
 # Kinds that run on a version built from an event table (karate club's edges as two-person events).
 EVENTS_CSV = "person,event\n" + "".join(f"{u},e{i}\n{v},e{i}\n" for i, (u, v) in enumerate(nx.karate_club_graph().edges()))
@@ -83,6 +87,8 @@ async def test_every_kind_result_matches_its_model(client: Any) -> None:
     r = await client.post(f"/v1/graphs/{events_gid}/versions", params={"part": "events"}, content=EVENTS_CSV,
                           headers={"Content-Type": "text/csv"})
     assert r.status_code == 201, r.text
+    karate = [(str(u), str(v)) for u, v in nx.karate_club_graph().edges()]
+    await upload_campaigns(client, gid, karate, 6, p=0.2)  # what learn_probabilities and backtest read
     for kind, params in RUNS:
         on = events_gid if kind == "project_events" else gid
         r = await client.post(f"/v1/graphs/{on}/jobs", json={"kind": kind, "params": params})

@@ -21,6 +21,7 @@ import pytest
 from service.jobs.worker import RunOutcome
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import make_graph, worker_for
+from tests.jobs.campaign_helpers import upload_campaigns
 
 pytestmark = [pytest.mark.anyio, pytest.mark.slow]
 
@@ -50,7 +51,11 @@ EXPENSIVE: dict[str, dict[str, Any]] = {
                       "probability": {"scheme": "uniform", "p": 0.05}},
     "odd_neighbourhoods": {"top": 1000, "local_outlier": True, "min_contacts": 1},
     "dense_groups": {"groups": 50, "min_size": 2, "weighting": "uniform"},
+    # These two learn from the graph's past campaigns (CAMPAIGNS, uploaded first).
+    "learn_probabilities": {"folds": 20},
+    "backtest": {"holdout": "each", "simulations": 100_000, "folds": 20},
 }
+CAMPAIGNS = 20  # simulated past campaigns uploaded for the kinds that learn from them
 
 
 def _csv() -> str:
@@ -90,6 +95,9 @@ async def test_cancel_takes_effect_within_two_seconds(client, case: str) -> None
                               content=_csv().replace("source,target", "person,event"),
                               headers={"Content-Type": "text/csv"})
         assert r.status_code == 201, r.text
+    if kind in ("learn_probabilities", "backtest"):
+        lines = _csv().splitlines()[1:]
+        await upload_campaigns(client, gid, [(a, b) for a, b in (x.split(",") for x in lines)], CAMPAIGNS, p=0.05)
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": EXPENSIVE[case]})
     assert r.status_code == 202, r.text
     job_id = r.json()["id"]
