@@ -15,6 +15,14 @@ pointers and counts. Sampling with lanes (large graphs) adds per node
 2 bytes of visit marks (and for IC 16 bytes of node records), and reserves 4 bytes per node
 per lane of queue space, of which only the pages the largest sets reach are
 ever committed.
+
+Threads. A sampler splits each batch of sets into one contiguous index range per
+thread; every thread samples its range into buffers of its own (scratch marks,
+lane queues, and a store for that batch only), and the parts are appended to the
+collection's store in index order. Set ``j`` depends only on ``(key, j)``, so the
+store is bit-identical whatever the thread count, and the extra memory is one
+batch of sets (about a quarter second of work), never a second copy of the store.
+Coverage counts (:meth:`RRSampler.count_hits`) are split the same way and added.
 """
 
 from __future__ import annotations
@@ -30,7 +38,7 @@ from numpy.typing import NDArray
 
 from . import _rr_kernels as K
 from . import _rr_lanes
-from .._chunks import ChunkSizer, check_memory
+from .._chunks import ChunkSizer, check_memory, map_ordered, split_range, thread_count
 from ..errors import InvalidParameter
 from ..graph import DiffusionGraph
 
@@ -49,6 +57,11 @@ BYTES_PER_ENTRY = 8  # int32 node in the store + int32 set id in the inverted in
 # then fits in a core's L2 cache: about 15% faster sampling, measured); a collection
 # or count that would pass this bound switches to int64 marks.
 _MARK32_LIMIT = 2**31 - 2
+
+
+# Batches smaller than this many sets per thread run in one thread: splitting costs
+# a few buffers per thread and a copy, which pays only once each part has some work.
+PARALLEL_MIN_SETS = 64
 
 
 # Graphs whose in-arcs and node records take more than this many bytes are sampled
@@ -80,8 +93,10 @@ class RRSampler:
         *,
         weights: NDArray[np.float64] | None = None,
         rounds: int | None = None,
+        threads: int | None = None,
     ) -> None:
         self.n = int(dg.n)
+        self.threads = thread_count(threads)
         self.model = dg.model
         self.indptr = np.ascontiguousarray(dg.in_indptr, dtype=np.int64)
         self.indices = np.ascontiguousarray(dg.in_indices, dtype=np.int32)
@@ -98,7 +113,7 @@ class RRSampler:
         if self.lanes and self.model == "ic":
             self.rec, self.recf = _rr_lanes.lane_records(self.indptr, self.mode, self.aux)
             max_in = int(np.diff(self.indptr).max()) if self.n else 0
-            self.pend = np.empty(_rr_lanes.LANES * (max_in + 1), dtype=np.int64)
+            self.pend_size = _rr_lanes.LANES * (max_in + 1)
         if weights is None:
             self.total_weight = float(self.n)
             self.accept = np.empty(0, dtype=np.float64)
@@ -113,11 +128,22 @@ class RRSampler:
     def count_hits(
         self, is_seed: NDArray[np.bool_], key: np.uint64, first: int, count: int
     ) -> tuple[int, int]:
-        """Sets ``first..first+count-1`` that contain a seed (not stored)."""
-        stamp = _marks(self.n, first + count)
+        """Sets ``first..first+count-1`` that contain a seed (not stored); the range is
+        split over the sampler's threads and the counts added."""
         fn: Any = K.hits_ic if self.model == "ic" else K.hits_lt  # numba dispatchers are untyped
-        hits, examined = fn(*self._args(), key, first, count, self.horizon, is_seed, stamp)
-        return int(hits), int(examined)
+
+        def part(a: int, c: int) -> tuple[int, int]:
+            stamp = _marks(self.n, a + c)
+            hits, examined = fn(*self._args(), key, a, c, self.horizon, is_seed, stamp)
+            return int(hits), int(examined)
+
+        parts = split_range(first, count, self._parts(count))
+        out = map_ordered(part, parts)
+        return sum(h for h, _ in out), sum(e for _, e in out)
+
+    def _parts(self, count: int) -> int:
+        """How many threads a batch of ``count`` sets is split over."""
+        return max(1, min(self.threads, count // PARALLEL_MIN_SETS))
 
 
 class RRCollection:
@@ -133,11 +159,8 @@ class RRCollection:
         n = sampler.n
         self._nodes = np.empty(max(4 * n, 1 << 16), dtype=np.int32)
         self._ends = np.empty(1 << 12, dtype=np.int64)
-        self._stamp: NDArray[np.int32] | NDArray[np.int64] = _marks(n, 0)
-        if sampler.lanes:
-            self._vis = np.zeros(n, dtype=np.uint16)
-            # Pages are only committed as lanes write to them (see sample_ic_lanes).
-            self._queues = np.empty(_rr_lanes.LANES * max(n, 1), dtype=np.int32)
+        # Scratch per thread (marks, lane queues, a batch store), made on first use.
+        self._scratch: list[_Scratch] = []
         self.count = 0
         self.entries = 0
         self.examined = 0
@@ -180,8 +203,9 @@ class RRCollection:
                 check_memory((self.entries + mean_now * (target - self.count)) * BYTES_PER_ENTRY
                              + 9 * target + 16 * n, what=f"{target:,} RR sets (about {mean_now:,.0f} "
                              "people each)", relax=self.relax)
-            if self._stamp.dtype == np.int32 and self.count + want >= _MARK32_LIMIT:
-                self._stamp = self._stamp.astype(np.int64)
+            for sc in self._scratch:
+                if sc.stamp.dtype == np.int32 and self.count + want >= _MARK32_LIMIT:
+                    sc.stamp = sc.stamp.astype(np.int64)
             if self._ends.shape[0] < self.count + want:
                 # Set ends are 8 bytes per set: size them for the whole target at once.
                 self._ends = _grow(self._ends, target)
@@ -193,7 +217,11 @@ class RRCollection:
                 whole = self.entries + int(mean * (target - self.count) * 1.1) + n + 16
                 self._nodes = _grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
             t0 = time.perf_counter()
-            done, pos, examined = self._sample(fn, want)
+            parts = self.sampler._parts(want)
+            if parts > 1:
+                done, pos, examined = self._sample_parallel(fn, want, parts)
+            else:
+                done, pos, examined = self._sample(fn, want)
             dt = time.perf_counter() - t0
             self.seconds += dt
             self.count += int(done)
@@ -207,29 +235,56 @@ class RRCollection:
                 frac = (self.count - start_count) / max(target - start_count, 1)
                 progress(span[0] + (span[1] - span[0]) * frac, message)
 
+    def _scratch_for(self, i: int) -> _Scratch:
+        while len(self._scratch) <= i:
+            self._scratch.append(_Scratch(self.sampler, self.count))
+        return self._scratch[i]
+
     def _sample(self, fn: Callable[..., tuple[int, int, int]], want: int) -> tuple[int, int, int]:
-        """Sets ``count .. count+want-1`` into the store, with lanes when the sampler uses them."""
-        smp = self.sampler
-        out_ends = self._ends[self.count:]
-        if smp.lanes and smp.model == "ic":
-            done, pos, examined = _rr_lanes.sample_ic_lanes(
-                smp.rec, smp.recf, smp.indices, smp.arc, smp.accept, smp.alias, self.key,
-                self.count, want, smp.horizon, self._nodes, self.entries, out_ends,
-                self._vis, self._queues, smp.pend,
-            )
-            return int(done), int(pos), int(examined)
-        if smp.lanes:
-            walk: Any = _rr_lanes.sample_lt_lanes  # numba dispatchers are untyped
-            done, pos, examined = walk(
-                *smp._args(), self.key, self.count, want, smp.horizon, self._nodes,
-                self.entries, out_ends, self._vis, self._queues,
-            )
-            return int(done), int(pos), int(examined)
-        done, pos, examined = fn(
-            *smp._args(), self.key, self.count, want, smp.horizon,
-            self._nodes, self.entries, out_ends, self._stamp,
-        )
-        return int(done), int(pos), int(examined)
+        """Sets ``count .. count+want-1`` into the store, in this thread."""
+        return _call(fn, self.sampler, self._scratch_for(0), self.key, self.count, want,
+                     self._nodes, self.entries, self._ends[self.count:])
+
+    def _sample_parallel(self, fn: Callable[..., tuple[int, int, int]], want: int,
+                         parts: int) -> tuple[int, int, int]:
+        """Sets ``count .. count+want-1``, one index range per thread, each into its own
+        batch store, then appended to the store in index order (always all ``want``)."""
+        mean = self.entries / self.count if self.count else 8.0
+        calls = [(fn, self._scratch_for(i), a, c, int(mean * c * 1.25))
+                 for i, (a, c) in enumerate(split_range(self.count, want, parts))]
+        results = map_ordered(self._sample_part, calls)
+        size = sum(len(nodes) for nodes, _, _ in results)
+        if self._nodes.shape[0] < self.entries + size:
+            self._nodes = _grow(self._nodes, self.entries + size)
+        pos, done, examined = self.entries, 0, 0
+        for nodes, ends, ex in results:
+            self._nodes[pos: pos + nodes.shape[0]] = nodes
+            self._ends[self.count + done: self.count + done + ends.shape[0]] = ends + pos
+            pos += nodes.shape[0]
+            done += ends.shape[0]
+            examined += ex
+        return done, pos, examined
+
+    def _sample_part(self, fn: Callable[..., tuple[int, int, int]], sc: _Scratch, first: int,
+                     count: int, expect: int) -> tuple[NDArray[np.int32], NDArray[np.int64], int]:
+        """Sets ``first .. first+count-1`` into ``sc``'s batch store (grown as needed;
+        ``expect`` entries are likely): (nodes, set ends relative to the batch, in-arcs
+        examined). Runs in a pool thread."""
+        n = self.sampler.n
+        ends = np.empty(count, dtype=np.int64)
+        done, pos, examined = 0, 0, 0
+        if sc.nodes.shape[0] < expect + n + 16:
+            sc.nodes = np.empty(expect + n + 16, dtype=np.int32)
+        while done < count:
+            if sc.nodes.shape[0] - pos < n + 16:
+                sc.nodes = _grow(sc.nodes, pos + n + 16)
+            d, pos, ex = _call(fn, self.sampler, sc, self.key, first + done, count - done,
+                               sc.nodes, pos, ends[done:])
+            done += d
+            examined += ex
+            if done < count:  # the batch store ran out of room: grow it and go on
+                sc.nodes = _grow(sc.nodes, sc.nodes.shape[0] + n + 16)
+        return sc.nodes[:pos].copy(), ends, examined
 
     def index(self) -> tuple[NDArray[np.int64], NDArray[np.int32], NDArray[np.int64]]:
         """(node -> sets indptr, set ids, per-node set counts), cached until the next extend."""
@@ -246,6 +301,44 @@ class RRCollection:
     def scale(self) -> float:
         """People (or audience value) represented by one stored set."""
         return self.sampler.total_weight / max(self.count, 1)
+
+
+class _Scratch:
+    """One thread's sampling buffers: visit marks (or lane marks and queues) and a
+    store for one batch of sets."""
+
+    def __init__(self, smp: RRSampler, count: int) -> None:
+        n = smp.n
+        self.stamp: NDArray[np.int32] | NDArray[np.int64] = _marks(n, count)
+        self.nodes = np.empty(1 << 12, dtype=np.int32)
+        if smp.lanes:
+            self.vis = np.zeros(n, dtype=np.uint16)
+            # Pages are only committed as lanes write to them (see sample_ic_lanes).
+            self.queues = np.empty(_rr_lanes.LANES * max(n, 1), dtype=np.int32)
+            if smp.model == "ic":
+                self.pend = np.empty(smp.pend_size, dtype=np.int64)
+
+
+def _call(fn: Callable[..., tuple[int, int, int]], smp: RRSampler, sc: _Scratch, key: np.uint64,
+          first: int, count: int, out_nodes: NDArray[np.int32], pos: int,
+          out_ends: NDArray[np.int64]) -> tuple[int, int, int]:
+    """One kernel call: sets ``first .. first+count-1`` written from ``out_nodes[pos]``,
+    with lanes when the sampler uses them. Returns (sets done, new pos, in-arcs examined)."""
+    if smp.lanes and smp.model == "ic":
+        done, pos, examined = _rr_lanes.sample_ic_lanes(
+            smp.rec, smp.recf, smp.indices, smp.arc, smp.accept, smp.alias, key,
+            first, count, smp.horizon, out_nodes, pos, out_ends, sc.vis, sc.queues, sc.pend,
+        )
+    elif smp.lanes:
+        walk: Any = _rr_lanes.sample_lt_lanes  # numba dispatchers are untyped
+        done, pos, examined = walk(
+            *smp._args(), key, first, count, smp.horizon, out_nodes, pos, out_ends,
+            sc.vis, sc.queues,
+        )
+    else:
+        done, pos, examined = fn(*smp._args(), key, first, count, smp.horizon, out_nodes, pos,
+                                 out_ends, sc.stamp)
+    return int(done), int(pos), int(examined)
 
 
 def _grow(a: NDArray, need: int) -> NDArray:  # type: ignore[type-arg]

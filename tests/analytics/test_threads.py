@@ -1,0 +1,109 @@
+"""Results do not depend on the thread count (1, 2 or 4 threads, and more threads than
+cores): RR sets, reach estimates from RR sets, forecasts, paired comparisons and sampled
+betweenness are bit-identical, because item ``i`` is drawn from a stream keyed only on
+``(random_seed, i)`` and parts are merged in index order.
+
+The reference for every comparison is the one-thread result; the one-thread kernels are
+themselves checked against closed forms, exact enumeration and NetworkX in
+test_rr_kernels.py, test_rr_lanes.py, test_forecasts.py and test_centrality.py. Here the
+unbiasedness checks of those files are repeated with several threads.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from service.analytics import _chunks
+from service.analytics.graph import GraphArrays, diffusion_graph
+from service.analytics.seeding import _rr
+from service.analytics.seeding import _rr_kernels as K
+from service.analytics.seeding._rr import RRCollection, RRSampler
+from service.analytics.errors import InvalidParameter
+
+THREADS = (1, 2, 4)
+
+
+def random_graph(n, m, seed, *, model="ic"):
+    rng = np.random.default_rng(seed)
+    src = rng.integers(0, n, m).astype(np.int32)
+    dst = rng.integers(0, n, m).astype(np.int32)
+    keep = src != dst
+    key = np.unique(src[keep].astype(np.int64) * n + dst[keep])
+    src, dst = (key // n).astype(np.int32), (key % n).astype(np.int32)
+    g = GraphArrays(n, True, src, dst, np.ones(src.size))
+    return diffusion_graph(g, model=model, scheme="weighted_cascade")
+
+
+@pytest.fixture
+def small_parts(monkeypatch):
+    """Split even small batches over threads, so the tests exercise the split."""
+    monkeypatch.setattr(_rr, "PARALLEL_MIN_SETS", 1)
+
+
+@pytest.mark.parametrize("model", ["ic", "lt"])
+@pytest.mark.parametrize("lanes", [False, True], ids=["one-at-a-time", "lanes"])
+def test_rr_sets_are_identical_across_thread_counts(small_parts, monkeypatch, model, lanes):
+    monkeypatch.setattr(_rr, "LANES_MIN_BYTES", -1 if lanes else 1 << 40)
+    dg = random_graph(500, 4000, seed=3, model=model)
+    key = K.stream_key(11, 2)
+    stores = []
+    for threads in THREADS:
+        sampler = RRSampler(dg, threads=threads)
+        assert sampler.lanes == lanes
+        coll = RRCollection(sampler, key)
+        for target in (1, 7, 300, 5000):  # batches of every size, split over the threads
+            coll.extend_to(target)
+        stores.append((coll.nodes.copy(), coll.offsets.copy(), coll.examined))
+    for nodes, offsets, examined in stores[1:]:
+        assert np.array_equal(nodes, stores[0][0])
+        assert np.array_equal(offsets, stores[0][1])
+        assert examined == stores[0][2]
+
+
+@pytest.mark.parametrize("model", ["ic", "lt"])
+def test_rr_hit_counts_are_identical_across_thread_counts(small_parts, model):
+    dg = random_graph(500, 4000, seed=4, model=model)
+    seeds = np.zeros(500, dtype=np.bool_)
+    seeds[[1, 50, 300]] = True
+    key = K.stream_key(5, 1)
+    counts = {t: RRSampler(dg, threads=t).count_hits(seeds, key, 17, 20_000) for t in THREADS}
+    assert len(set(counts.values())) == 1, counts
+    # And they count exactly the stored sets that meet a seed (same streams).
+    coll = RRCollection(RRSampler(dg, threads=1), key)
+    coll.extend_to(20_017)
+    covered = K.covered_by(coll.nodes, coll.offsets, seeds) - K.covered_by(
+        coll.nodes[: coll.offsets[17]], coll.offsets[:18], seeds)
+    assert counts[1][0] == covered
+
+
+def test_rr_estimate_is_unbiased_with_several_threads(small_parts):
+    # Diamond s->a, s->b, a->t, b->t, all p = 0.5. Source: exact enumeration
+    # (REFERENCES.md, derived): sigma({s}) = 1 + 2p + 2p^2 - p^4 = 2.4375.
+    g = GraphArrays(4, True, np.array([0, 0, 1, 2], np.int32), np.array([1, 2, 3, 3], np.int32),
+                    np.ones(4))
+    dg = diffusion_graph(g, scheme="uniform", p=0.5)
+    coll = RRCollection(RRSampler(dg, threads=4), K.stream_key(1, 0))
+    coll.extend_to(200_000)
+    est = coll.hits(np.array([0])) * coll.scale()
+    p = 0.5
+    exact = 1 + 2 * p + 2 * p**2 - p**4
+    # Binomial standard error of n * hits / N: n * sqrt(q (1 - q) / N), q = exact / n.
+    q = exact / 4
+    assert abs(est - exact) <= 5 * 4 * np.sqrt(q * (1 - q) / 200_000)
+
+
+def test_thread_count_rules():
+    assert _chunks.thread_count(3) == 3
+    assert _chunks.thread_count() == _chunks.usable_cores()
+    token = _chunks.thread_limit.set(2)
+    try:
+        assert _chunks.thread_count() == 2
+        assert _chunks.thread_count(5) == 5
+    finally:
+        _chunks.thread_limit.reset(token)
+    for bad in (0, -1, 1.5, True, 10_000):
+        with pytest.raises(InvalidParameter):
+            _chunks.thread_count(bad)
+    assert _chunks.split_range(10, 7, 3) == [(10, 3), (13, 2), (15, 2)]
+    assert _chunks.split_range(0, 2, 5) == [(0, 1), (1, 1)]
