@@ -107,3 +107,77 @@ def test_thread_count_rules():
             _chunks.thread_count(bad)
     assert _chunks.split_range(10, 7, 3) == [(10, 3), (13, 2), (15, 2)]
     assert _chunks.split_range(0, 2, 5) == [(0, 1), (1, 1)]
+
+
+def _forecast_figures(r):
+    return (r.expected_reach, r.percentiles, r.by_round, r.top_nodes, r.simulations,
+            r.stopped_because, r.outcome_histogram, r.per_run.tobytes())
+
+
+@pytest.mark.parametrize("model", ["ic", "lt"])
+def test_forecasts_are_identical_across_thread_counts(model):
+    from service.analytics.diffusion import forecasts as F
+
+    dg = random_graph(800, 6000, seed=7, model=model)
+    sets = {"a": [0, 1, 2], "b": [10, 400]}
+    results = {t: F.forecast(dg, sets, simulations=3000, min_simulations=300,
+                             relative_precision=0.004, random_seed=9, threads=t)
+               for t in THREADS}
+    for t in THREADS[1:]:
+        for name in sets:
+            assert _forecast_figures(results[t][name]) == _forecast_figures(results[1][name])
+            assert results[t][name].threads == t
+
+
+def test_paired_comparisons_and_spread_are_identical_across_thread_counts():
+    from service.analytics.diffusion.cascades import estimate_spread
+    from service.analytics.diffusion.paired import compare_reach
+
+    dg = random_graph(800, 6000, seed=8)
+    sets = {"ref": [0, 1, 2], "other": [3, 4]}
+    cmp = {t: compare_reach(dg, sets, reference="ref", min_simulations=400,
+                            max_simulations=4000, random_seed=2, threads=t) for t in THREADS}
+    spread = {t: estimate_spread(dg, [0, 1], runs=5000, random_seed=3, threads=t)
+              for t in THREADS}
+    for t in THREADS[1:]:
+        assert cmp[t].differences == cmp[1].differences
+        assert all(np.array_equal(cmp[t].per_world[k], cmp[1].per_world[k]) for k in sets)
+        assert spread[t] == spread[1]
+
+
+def test_forecast_is_unbiased_with_several_threads():
+    # Star with 3 leaves, arcs both ways, p = 0.3. Source: exact enumeration
+    # (REFERENCES.md, derived): sigma(centre) = 1 + 3p = 1.9.
+    from service.analytics.diffusion.forecasts import forecast
+
+    src = np.array([0, 0, 0, 1, 2, 3], np.int32)
+    dst = np.array([1, 2, 3, 0, 0, 0], np.int32)
+    dg = diffusion_graph(GraphArrays(4, True, src, dst, np.ones(6)), scheme="uniform", p=0.3)
+    r = forecast(dg, {"c": [0]}, simulations=100_000, min_simulations=100_000, threads=4)["c"]
+    assert abs(r.expected_reach.mean - 1.9) <= 5 * r.expected_reach.stderr
+    # Per-node probabilities: each leaf is reached with p (closed form).
+    for node in r.top_nodes:
+        assert abs(node.probability - 0.3) <= 5 * node.stderr
+
+
+@pytest.mark.parametrize("weighted", [False, True], ids=["hops", "arc-lengths"])
+def test_sampled_betweenness_is_identical_across_thread_counts(weighted):
+    from service.analytics.structure.paths import betweenness
+
+    rng = np.random.default_rng(12)
+    n, m = 300, 1500
+    src = rng.integers(0, n, m).astype(np.int32)
+    dst = rng.integers(0, n, m).astype(np.int32)
+    keep = src != dst
+    w = rng.integers(1, 4, keep.sum()).astype(float) if weighted else np.ones(keep.sum())
+    g = GraphArrays(n, False, src[keep], dst[keep], w)
+    runs = {t: betweenness(g, method="sampled", epsilon=0.05, random_seed=4, threads=t)
+            for t in THREADS}
+    for t in THREADS[1:]:
+        assert np.array_equal(runs[t][0], runs[1][0])
+        assert runs[t][1] == runs[1][1]
+    # The sampled scores stay within the stated bound of the exact ones (Riondato and
+    # Kornaropoulos 2014; exact values from Brandes' algorithm, checked against NetworkX
+    # in test_centrality.py), with several threads.
+    exact, _ = betweenness(g, method="exact")
+    assert np.abs(runs[4][0] - exact).max() <= runs[4][1]["error_bound"]
