@@ -9,7 +9,7 @@ from typing import Literal
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
-__all__ = ["Settings", "machine_memory_bytes"]
+__all__ = ["Settings", "machine_memory_bytes", "usable_cores"]
 
 GiB = 1024**3
 MiB = 1024**2
@@ -29,6 +29,14 @@ def machine_memory_bytes() -> int:
         if text.isdigit() and 0 < int(text) < total:
             total = int(text)
     return int(total)
+
+
+def usable_cores() -> int:
+    """Cores this process may run on (its CPU affinity), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # not Linux
+        return max(1, os.cpu_count() or 1)
 
 
 class Settings(BaseSettings):
@@ -130,6 +138,20 @@ class Settings(BaseSettings):
         "running job stops (too-expensive). Default: half the machine's memory (the smaller of "
         "physical memory and the cgroup limit) divided by the number of workers of `serve`.",
     )
+
+    # -- Threads per job ---------------------------------------------------------------
+    threads: int | None = Field(
+        default=None, ge=1, le=256,
+        description="Threads one job may run on (RR sampling, simulations, sampled betweenness); "
+        "results are the same for any number. Default: the cores the worker may use (its CPU "
+        "affinity), divided among the workers of `serve`.",
+    )
+
+    def thread_count(self, workers: int = 1) -> int:
+        """Threads per job: the setting, else the usable cores shared by ``workers``."""
+        if self.threads is not None:
+            return int(self.threads)
+        return max(1, usable_cores() // max(1, workers))
 
     # -- Per-process caches (service/caches.py) ---------------------------------------
     cache_bytes: int = Field(

@@ -142,7 +142,7 @@ def create_job(
             if kind.estimate is not None:
                 limit = settings.job_memory_limit()
                 estimate = kind.estimate(parsed, lambda: load_version(db, row), nodes=row.nodes,
-                                         edges=row.edges, limit=limit)
+                                         edges=row.edges, limit=limit, threads=settings.thread_count())
                 admission.admit(estimate, limit)
     with job_repo.write_session(maker_of(request)) as db:
         if idempotency_key:

@@ -137,3 +137,6 @@ def test_estimates_count_what_the_params_ask_for() -> None:
         admission.admit(est, 10 << 20)
     assert err.value.data["estimated_bytes"] == est.bytes  # type: ignore[attr-defined]
     admission.admit(est, None)  # no limit: admitted
+    # Every thread beyond the first keeps its own per-node buffers (marks, queue, counts).
+    four = admission.forecast_estimate(P(), lambda: None, nodes=1000, edges=5000, threads=4)
+    assert four.bytes - est.bytes == 3 * admission.THREAD_BYTES_PER_NODE * 1000

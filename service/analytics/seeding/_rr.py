@@ -284,7 +284,7 @@ class RRCollection:
             examined += ex
             if done < count:  # the batch store ran out of room: grow it and go on
                 sc.nodes = _grow(sc.nodes, sc.nodes.shape[0] + n + 16)
-        return sc.nodes[:pos].copy(), ends, examined
+        return sc.nodes[:pos], ends, examined  # a view: copied into the store before sc is reused
 
     def index(self) -> tuple[NDArray[np.int64], NDArray[np.int32], NDArray[np.int64]]:
         """(node -> sets indptr, set ids, per-node set counts), cached until the next extend."""

@@ -278,6 +278,8 @@ class ForecastResult(_Result):
     half_width: float | None = None
     stream_key: str | None = None
     outcome_histogram: OutcomeHistogram | None = None
+    threads: int | None = Field(
+        default=None, description="Threads the job ran on; every figure is the same for any number.")
 
 
 # -- shortlist -------------------------------------------------------------------------
@@ -367,6 +369,8 @@ class ReplacedList(_Open):
 class ShortlistResult(_Result):
     kind: Literal["shortlist"]
     params: ShortlistParams
+    threads: int | None = Field(
+        default=None, description="Threads the job ran on; every figure is the same for any number.")
     model: str
     probability: ProbabilitySettings
     rounds: int | None

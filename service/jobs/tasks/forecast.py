@@ -197,7 +197,9 @@ def run(ctx: TaskContext, params: ForecastParams) -> TaskOutput:
         include_seeds=params.top_nodes_include_seeds,
         progress=ctx.progress,
     )
-    return TaskOutput(data=result_document(params, v, prep, results))
+    doc = result_document(params, v, prep, results)
+    doc["threads"] = next(iter(results.values())).threads
+    return TaskOutput(data=doc)
 
 
 # ------------------------------------------------------------------ the result

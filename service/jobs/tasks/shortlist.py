@@ -58,6 +58,8 @@ import numpy as np
 from numpy.typing import NDArray
 from pydantic import Field, model_validator
 
+from service.analytics._chunks import thread_count
+
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 from ._shortlist_result import result_document
@@ -277,6 +279,7 @@ def run(ctx: TaskContext, params: ShortlistParams) -> TaskOutput:
     clock.lap("forward_monte_carlo")
     doc = result_document(params, v, prep, chosen, evaluated, fc, cmp, used)
     doc["timings"] = {"method": doc["timings"], **clock.laps, "total": clock.total()}
+    doc["threads"] = thread_count()  # what RR sampling and simulations ran on (the worker's setting)
     return TaskOutput(data=doc)
 
 

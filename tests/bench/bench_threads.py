@@ -1,0 +1,263 @@
+"""Benchmark: every core, the same answer. Thread scaling of RR sampling, forward simulation
+and sampled betweenness, side by side with the single-threaded C reference in one run.
+
+Run:  python -m tests.bench.bench_threads [--graphs ca-GrQc,soc-Slashdot0902,com-DBLP]
+                                          [--seconds 1] [--repeats 3] [--skip-imm]
+
+The C reference (``../shared/bench/rr_limit.c``, outside the project, never copied here) is
+built with ``gcc -O3 -march=native`` into a temporary folder. For each graph (ca-GrQc both
+directions, soc-Slashdot0902 and com-DBLP as listed; weighted cascade), measured in
+``--repeats`` alternating rounds (C, then ours at 1 thread, then ours at every thread count
+up to the cores this process may use), medians printed:
+
+(a) RR sampling: edges examined per second, C's fastest method (one thread) against ours
+    (``RRCollection.extend_to``, wall time including the merge of the per-thread parts);
+    printed: ours / C at every thread count, per core, and the parallel efficiency
+    (rate at T threads / (T x rate at 1 thread)). Goal: at least 0.9 per core.
+(b) Forward Independent Cascade from the 50 top out-degree nodes: C's fastest valid method
+    (one thread) against our plain kernel at one thread (``_kernels.run_chunk``, no per-node
+    counts: what C measures; goal >= 0.8), the per-node-count path forecasts run
+    (``_world_kernels.run_chunk`` with counts, one thread; goal within 1.2 of the plain
+    kernel), and ``forecast()`` at every thread count (goal: all cores / C >= 0.8 per core,
+    1.6 on 2 cores).
+(c) IMM, k = 50, epsilon = 0.1, with all cores, against C's time to draw the same number of
+    RR sets with its fastest method (goal: at most 1.0); soc-Slashdot0902 and com-DBLP.
+(d) Sampled betweenness (hops, epsilon 0.02) at every thread count: samples per second and
+    parallel efficiency (no C counterpart).
+
+Every measurement also checks that the result at T threads equals the one-thread result.
+The machine this was written on has 2 cores shared with other people: timings are noisy,
+which is why everything is measured side by side in one run, and ratios, not absolute
+rates, are what the goals are about.
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from tests.bench import bench_diffusion as BD
+from tests.bench import bench_seeding as BS
+
+GRAPHS = {"ca-GrQc": False, "soc-Slashdot0902": True, "com-DBLP": True}  # name -> directed
+IMM_GRAPHS = ("soc-Slashdot0902", "com-DBLP")
+
+
+def thread_counts() -> list[int]:
+    from service.analytics._chunks import usable_cores
+
+    cores = usable_cores()
+    counts = [1]
+    while counts[-1] * 2 <= cores:
+        counts.append(counts[-1] * 2)
+    if counts[-1] != cores:
+        counts.append(cores)
+    return counts
+
+
+def rr_rate(dg: Any, threads: int, seconds: float, rep: int, rate_hint: float) -> tuple[float, Any]:
+    """Edges examined per second of one ``extend_to`` of about ``seconds`` (wall, with the merge)."""
+    from service.analytics.seeding import _rr_kernels as K
+    from service.analytics.seeding._rr import RRCollection, RRSampler
+
+    sampler = RRSampler(dg, threads=threads)
+    target = max(int(rate_hint * threads * seconds), 20_000)
+    coll = RRCollection(sampler, K.stream_key(rep, 0))
+    t0 = time.perf_counter()
+    coll.extend_to(target)
+    wall = time.perf_counter() - t0
+    return coll.examined / wall, coll
+
+
+def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: float,
+             repeats: int) -> dict[str, Any]:
+    from service.analytics.seeding import _rr_kernels as K
+    from service.analytics.seeding._rr import RRCollection, RRSampler
+
+    _, dg = BS.load(name, directed)
+    probe = RRCollection(RRSampler(dg, threads=1), K.stream_key(0, 0))
+    t0 = time.perf_counter()
+    probe.extend_to(20_000)
+    hint = probe.count / (time.perf_counter() - t0)
+    method, _ = BS.fastest_method(exe, name, directed, seconds)
+    c_rates: list[float] = []
+    ours: dict[int, list[float]] = {t: [] for t in counts}
+    same = True
+    for rep in range(repeats):
+        c = BS.run_reference(exe, name, directed, "-M", method, "-T", str(seconds))[0]
+        c_rates.append(c["edges_per_s"])
+        ref = None
+        for t in counts:
+            rate, coll = rr_rate(dg, t, seconds, rep + 1, hint)
+            ours[t].append(rate)
+            cut = min(coll.count, 20_000)  # the first sets, compared bit for bit
+            nodes = coll.nodes[: coll.offsets[cut]].copy()
+            if ref is None:
+                ref = nodes
+            else:
+                same = same and np.array_equal(ref[: nodes.shape[0]], nodes[: ref.shape[0]])
+            del coll
+    c_med = statistics.median(c_rates)
+    med = {t: statistics.median(v) for t, v in ours.items()}
+    print(f"\n(a) RR sampling, {name} ({'as listed' if directed else 'both directions'}): n={dg.n:,}, "
+          f"arcs={dg.in_indices.shape[0]:,}; C {method} (one thread) {c_med:.4g} edges/s "
+          f"(rounds {', '.join(f'{x:.4g}' for x in c_rates)})")
+    for t in counts:
+        eff = med[t] / (t * med[1])
+        print(f"    ours {t} thread{'s' if t > 1 else ' '} {med[t]:.4g} edges/s (rounds "
+              f"{', '.join(f'{x:.4g}' for x in ours[t])}); ours/C = {med[t] / c_med:.2f}, "
+              f"per core {med[t] / c_med / t:.2f}; parallel efficiency {eff:.2f}")
+    top = counts[-1]
+    ratio = med[top] / c_med
+    goal = 0.9 * top
+    print(f"    RATIO RR all {top} cores / C one thread = {ratio:.2f} (goal >= {goal:.1f}: "
+          f"{'met' if ratio >= goal else 'NOT met'}); sets identical across thread counts: {same}")
+    return {"graph": name, "ratio": ratio, "per_core": ratio / top, "same": same,
+            "efficiency": med[top] / (top * med[1])}
+
+
+def bench_forward(exe: Path, name: str, directed: bool, counts: list[int], seconds: float,
+                  repeats: int) -> dict[str, Any]:
+    from service.analytics.diffusion import _kernels as K
+    from service.analytics.diffusion import _world_kernels as W
+    from service.analytics.diffusion.forecasts import forecast
+    from service.analytics.graph import diffusion_graph
+
+    g, _ = BD.load_graph(name, not directed)
+    dg = diffusion_graph(g, scheme="weighted_cascade")
+    kg = K.kernel_graph(dg)
+    seeds = BD.top_out_degree(dg)
+    runs = BD.calibrate(kg, seeds, seconds)
+    W.run_chunk(kg, seeds, 1, 0, 4, -1, np.zeros(0))  # compile / load the kernel cache
+    c_best: list[float] = []
+    c_method = ""
+    plain, track = [], []
+    fc: dict[int, list[float]] = {t: [] for t in counts}
+    same = True
+    for r in range(repeats):
+        c = BD.run_reference(exe, BD.DATASETS / f"{name}.edges.gz", not directed, seconds, 1)
+        c_best.append(c["best"]["sims_per_s"])
+        c_method = c["best"]["method"]
+        plain.append(BD.time_ours(kg, seeds, runs, (r + 1) * runs))
+        t0 = time.perf_counter()
+        W.run_chunk(kg, seeds, 5, (r + 1) * runs, runs, -1, np.zeros(0), track_nodes=True)
+        track.append(runs / (time.perf_counter() - t0))
+        ref = None
+        for t in counts:
+            nsim = runs * t
+            t0 = time.perf_counter()
+            out = forecast(dg, {"b": seeds}, simulations=nsim, min_simulations=nsim,
+                           random_seed=r, threads=t)["b"]
+            fc[t].append(nsim / (time.perf_counter() - t0))
+            if ref is None:
+                ref = out
+            else:  # the first runs of the longer forecast equal the shorter one's
+                same = same and np.array_equal(out.per_run[: ref.per_run.shape[0]], ref.per_run)
+    c_med = statistics.median(c_best)
+    p_med, t_med = statistics.median(plain), statistics.median(track)
+    f_med = {t: statistics.median(v) for t, v in fc.items()}
+    print(f"\n(b) forward IC, {name}: n={dg.n:,}, arcs={dg.out_indices.size:,}, 50 top out-degree "
+          f"seeds; C {c_method} (fastest valid, one thread) {c_med:.4g} sims/s (rounds "
+          f"{', '.join(f'{x:.4g}' for x in c_best)})")
+    print(f"    ours plain kernel, 1 thread {p_med:.4g} sims/s (rounds {', '.join(f'{x:.4g}' for x in plain)});"
+          f" RATIO one-thread kernel / C = {p_med / c_med:.2f} (goal >= 0.8: "
+          f"{'met' if p_med / c_med >= 0.8 else 'NOT met'})")
+    print(f"    ours per-node-count path (common worlds, counts), 1 thread {t_med:.4g} sims/s "
+          f"(rounds {', '.join(f'{x:.4g}' for x in track)}); plain / per-node = {p_med / t_med:.2f} "
+          f"(goal <= 1.2: {'met' if p_med / t_med <= 1.2 else 'NOT met'})")
+    for t in counts:
+        print(f"    forecast() {t} thread{'s' if t > 1 else ' '} {f_med[t]:.4g} sims/s (rounds "
+              f"{', '.join(f'{x:.4g}' for x in fc[t])}); / C = {f_med[t] / c_med:.2f}; parallel "
+              f"efficiency {f_med[t] / (t * f_med[1]):.2f}")
+    top = counts[-1]
+    ratio = f_med[top] / c_med
+    goal = 0.8 * top
+    print(f"    RATIO forecast all {top} cores / C one thread = {ratio:.2f} (goal >= {goal:.1f}: "
+          f"{'met' if ratio >= goal else 'NOT met'}); runs identical across thread counts: {same}")
+    return {"graph": name, "kernel": p_med / c_med, "track": p_med / t_med, "forecast": ratio,
+            "same": same}
+
+
+def bench_imm(exe: Path, name: str, directed: bool) -> dict[str, Any]:
+    from service.analytics._chunks import usable_cores
+    from service.analytics.seeding.shortlists import imm_seeds
+
+    _, dg = BS.load(name, directed)
+    imm_seeds(dg, 2, epsilon=0.5, forecast_runs=0)  # compile / load the kernel caches
+    t0 = time.perf_counter()
+    sl = imm_seeds(dg, 50, epsilon=0.1, l=1.0, forecast_runs=0)
+    wall = time.perf_counter() - t0
+    total = int(sl.samples)
+    method, _ = BS.fastest_method(exe, name, directed, 1.0)
+    c = BS.run_reference(exe, name, directed, "-M", method, "-n", str(total), "-T", "0.2")[0]
+    ratio = wall / c["sec_per_rep"]
+    print(f"\n(c) IMM k = 50, epsilon = 0.1, {name}, all {usable_cores()} cores: wall {wall:.2f} s "
+          f"(estimation {sl.timings.get('estimation', 0):.2f} s, sampling {sl.timings.get('sampling', 0):.2f} s, "
+          f"selection {sl.timings.get('selection', 0):.2f} s), {total:,} RR sets; C {method} draws the same "
+          f"number in {c['sec_per_rep']:.2f} s (one thread); RATIO IMM wall / C time = {ratio:.2f} "
+          f"(goal <= 1.0: {'met' if ratio <= 1.0 else 'NOT met'})")
+    return {"graph": name, "imm": ratio}
+
+
+def bench_betweenness(name: str, directed: bool, counts: list[int]) -> None:
+    from service.analytics.structure.paths import betweenness
+
+    g, _ = BD.load_graph(name, not directed)
+    rates, ref, same = {}, None, True
+    for t in counts:
+        t0 = time.perf_counter()
+        values, meta = betweenness(g, weights=False, method="sampled", epsilon=0.02, random_seed=1,
+                                   threads=t)
+        rates[t] = meta["samples"] / (time.perf_counter() - t0)
+        if ref is None:
+            ref = values
+        else:
+            same = same and np.array_equal(values, ref)
+    print(f"\n(d) sampled betweenness (hops, epsilon 0.02, {meta['samples']:,} samples), {name}: "
+          + "; ".join(f"{t} thread{'s' if t > 1 else ''} {rates[t]:.4g} samples/s, efficiency "
+                      f"{rates[t] / (t * rates[1]):.2f}" for t in counts)
+          + f" (wall time includes the vertex-diameter bound); scores identical: {same}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--graphs", default=",".join(GRAPHS))
+    ap.add_argument("--seconds", type=float, default=1.0)
+    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--skip-imm", action="store_true")
+    args = ap.parse_args(argv)
+    BD.need_shared()
+    counts = thread_counts()
+    print(f"thread counts measured: {counts} (cores this process may use); side by side in one run, "
+          f"on a machine shared with others: expect noise")
+    summary = []
+    with tempfile.TemporaryDirectory() as tmp:
+        exe = BS.build_reference(Path(tmp))
+        for name in args.graphs.split(","):
+            directed = GRAPHS[name]
+            rr = bench_rr(exe, name, directed, counts, args.seconds, args.repeats)
+            fw = bench_forward(exe, name, directed, counts, args.seconds, args.repeats)
+            imm = (bench_imm(exe, name, directed) if name in IMM_GRAPHS and not args.skip_imm
+                   else {"imm": float("nan")})
+            bench_betweenness(name, directed, counts)
+            summary.append((name, rr, fw, imm))
+    print("\nSUMMARY (ratios against the C reference at one thread; T = "
+          f"{counts[-1]} threads)")
+    print("graph | RR T/C (per core, efficiency) | kernel 1/C | plain/per-node | forecast T/C "
+          "| IMM wall/C | identical")
+    for name, rr, fw, imm in summary:
+        print(f"{name} | {rr['ratio']:.2f} ({rr['per_core']:.2f}, {rr['efficiency']:.2f}) | "
+              f"{fw['kernel']:.2f} | {fw['track']:.2f} | {fw['forecast']:.2f} | {imm['imm']:.2f} | "
+              f"{rr['same'] and fw['same']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
