@@ -33,9 +33,10 @@ The estimates count the large buffers only, from their element sizes:
 - threads (``threads``, the setting passed down): every thread beyond the first
   keeps buffers of its own, ``THREAD_BYTES_PER_NODE`` per node (visit marks, a
   queue and per-node counts of a simulation thread; marks and lane queues of an
-  RR-sampling thread) and, when sampling RR sets, one batch store of
-  ``THREAD_BATCH_BYTES`` (a quarter second of sets, appended to the shared store
-  in index order, so the store itself is never held twice).
+  RR-sampling thread) and, with more than one thread sampling RR sets, each thread
+  one batch store of ``THREAD_BATCH_BYTES`` (its part of a quarter second of sets,
+  appended to the shared store in index order, so the store itself is never held
+  twice).
 """
 
 from __future__ import annotations
@@ -106,8 +107,10 @@ def graph_bytes(nodes: int, edges: int) -> int:
 
 def thread_bytes(nodes: int, threads: int, *, rr: bool = False) -> int:
     """What ``threads`` threads hold beyond one thread's buffers (see the module docstring)."""
-    extra = max(0, int(threads) - 1)
-    return extra * (THREAD_BYTES_PER_NODE * int(nodes) + (THREAD_BATCH_BYTES if rr else 0))
+    if int(threads) <= 1:
+        return 0
+    batches = int(threads) * THREAD_BATCH_BYTES if rr else 0
+    return (int(threads) - 1) * THREAD_BYTES_PER_NODE * int(nodes) + batches
 
 
 def _mib(n: float) -> str:

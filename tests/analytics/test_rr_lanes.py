@@ -77,7 +77,7 @@ def test_lanes_give_the_same_sets(lanes_always, mixed, rounds, weighted):
     assert np.array_equal(coll.nodes, nodes)
     assert np.array_equal(coll.offsets[1:], ends)
     assert coll.examined == examined
-    assert not any(sc.vis.any() for sc in coll._scratch)  # marks are left cleared between calls
+    assert not any(sc.vis.any() for sc in coll.sampler.scratch)  # marks are left cleared between calls
 
 
 def test_lanes_survive_a_full_store():
@@ -177,5 +177,5 @@ def test_lt_lanes_give_the_same_sets(lanes_always, scheme, rounds, weighted):
     assert np.array_equal(coll.nodes, nodes[:pos])
     assert np.array_equal(coll.offsets[1:], ends)
     assert coll.examined == examined
-    assert not any(sc.vis.any() for sc in coll._scratch)
+    assert not any(sc.vis.any() for sc in coll.sampler.scratch)
     assert (np.diff(coll.offsets) > 1).any() == (rounds != 0)  # walks longer than the root

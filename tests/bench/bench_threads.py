@@ -34,6 +34,7 @@ rates, are what the goals are about.
 from __future__ import annotations
 
 import argparse
+import os
 import statistics
 import sys
 import tempfile
@@ -90,6 +91,7 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
     c_rates: list[float] = []
     ours: dict[int, list[float]] = {t: [] for t in counts}
     same = True
+    batch = 0  # largest per-thread batch store (bytes)
     for rep in range(repeats):
         c = BS.run_reference(exe, name, directed, "-M", method, "-T", str(seconds))[0]
         c_rates.append(c["edges_per_s"])
@@ -97,6 +99,8 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
         for t in counts:
             rate, coll = rr_rate(dg, t, seconds, rep + 1, hint)
             ours[t].append(rate)
+            if t > 1:
+                batch = max([batch] + [sc.nodes.nbytes for sc in coll.sampler.scratch])
             cut = min(coll.count, 20_000)  # the first sets, compared bit for bit
             nodes = coll.nodes[: coll.offsets[cut]].copy()
             if ref is None:
@@ -118,7 +122,8 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
     ratio = med[top] / c_med
     goal = 0.9 * top
     print(f"    RATIO RR all {top} cores / C one thread = {ratio:.2f} (goal >= {goal:.1f}: "
-          f"{'met' if ratio >= goal else 'NOT met'}); sets identical across thread counts: {same}")
+          f"{'met' if ratio >= goal else 'NOT met'}); sets identical across thread counts: {same}; "
+          f"largest per-thread batch store {batch / 2**20:.1f} MiB (the store itself is shared)")
     return {"graph": name, "ratio": ratio, "per_core": ratio / top, "same": same,
             "efficiency": med[top] / (top * med[1])}
 
@@ -236,7 +241,7 @@ def main(argv: list[str] | None = None) -> int:
     BD.need_shared()
     counts = thread_counts()
     print(f"thread counts measured: {counts} (cores this process may use); side by side in one run, "
-          f"on a machine shared with others: expect noise")
+          f"on a machine shared with others: expect noise; load average {os.getloadavg()[0]:.2f}")
     summary = []
     with tempfile.TemporaryDirectory() as tmp:
         exe = BS.build_reference(Path(tmp))
@@ -249,7 +254,7 @@ def main(argv: list[str] | None = None) -> int:
             bench_betweenness(name, directed, counts)
             summary.append((name, rr, fw, imm))
     print("\nSUMMARY (ratios against the C reference at one thread; T = "
-          f"{counts[-1]} threads)")
+          f"{counts[-1]} threads; load average at the end {os.getloadavg()[0]:.2f})")
     print("graph | RR T/C (per core, efficiency) | kernel 1/C | plain/per-node | forecast T/C "
           "| IMM wall/C | identical")
     for name, rr, fw, imm in summary:

@@ -443,6 +443,9 @@ def run_one(kg: KernelGraph, seeds: NDArray[np.int32], key: int, horizon: int) -
 
 _PILOT_RUNS = 16
 _PARALLEL_MIN_SECONDS = 0.003
+# Batches of at least this many pilots' worth of runs per thread are split without a
+# pilot: the serial pilot would hold up the other threads for 1/_PILOT_SHARE of the work.
+_PILOT_SHARE = 16
 
 
 def simulate(
@@ -477,21 +480,25 @@ def split_runs(
 ) -> ChunkResult:
     """Runs ``run0 .. run0 + nruns - 1`` of ``chunk`` (a ``run_chunk``), merged.
 
-    A serial pilot of a few runs measures the cost; when the rest would take
-    more than a few milliseconds it is split into one contiguous range per
+    A small batch first runs a serial pilot of a few runs to measure the cost (a
+    large one is split at once); when the rest would take more than a few
+    milliseconds it is split into one contiguous range per
     thread (``threads``, default :func:`.._chunks.thread_count`), run at once
     (the kernels release the GIL). The merged result is identical
     whatever the split, because each run's numbers depend only on its index
     and all accumulators are integers. The world kernels use the same split.
     """
-    pilot = min(nruns, _PILOT_RUNS)
-    t0 = time.perf_counter()
-    parts = [chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
-    elapsed = time.perf_counter() - t0
+    nthreads = thread_count(threads)
+    if nthreads == 1 or nruns >= _PILOT_RUNS * _PILOT_SHARE * nthreads:
+        pilot, parts, elapsed = 0, [], math.inf  # a large batch: split it all at once
+    else:
+        pilot = min(nruns, _PILOT_RUNS)
+        t0 = time.perf_counter()
+        parts = [chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
+        elapsed = time.perf_counter() - t0
     rest = nruns - pilot
     if rest:
-        nthreads = thread_count(threads)
-        if elapsed / pilot * rest < _PARALLEL_MIN_SECONDS:
+        if elapsed / max(pilot, 1) * rest < _PARALLEL_MIN_SECONDS:
             nthreads = 1
         jobs = split_range(run0 + pilot, rest, nthreads)
         parts.extend(map_ordered(

@@ -97,6 +97,8 @@ class RRSampler:
     ) -> None:
         self.n = int(dg.n)
         self.threads = thread_count(threads)
+        # Per-thread buffers, used by its collections in turn (never two at once).
+        self.scratch: list[_Scratch] = []
         self.model = dg.model
         self.indptr = np.ascontiguousarray(dg.in_indptr, dtype=np.int64)
         self.indices = np.ascontiguousarray(dg.in_indices, dtype=np.int32)
@@ -159,8 +161,6 @@ class RRCollection:
         n = sampler.n
         self._nodes = np.empty(max(4 * n, 1 << 16), dtype=np.int32)
         self._ends = np.empty(1 << 12, dtype=np.int64)
-        # Scratch per thread (marks, lane queues, a batch store), made on first use.
-        self._scratch: list[_Scratch] = []
         self.count = 0
         self.entries = 0
         self.examined = 0
@@ -203,9 +203,6 @@ class RRCollection:
                 check_memory((self.entries + mean_now * (target - self.count)) * BYTES_PER_ENTRY
                              + 9 * target + 16 * n, what=f"{target:,} RR sets (about {mean_now:,.0f} "
                              "people each)", relax=self.relax)
-            for sc in self._scratch:
-                if sc.stamp.dtype == np.int32 and self.count + want >= _MARK32_LIMIT:
-                    sc.stamp = sc.stamp.astype(np.int64)
             if self._ends.shape[0] < self.count + want:
                 # Set ends are 8 bytes per set: size them for the whole target at once.
                 self._ends = _grow(self._ends, target)
@@ -235,22 +232,33 @@ class RRCollection:
                 frac = (self.count - start_count) / max(target - start_count, 1)
                 progress(span[0] + (span[1] - span[0]) * frac, message)
 
-    def _scratch_for(self, i: int) -> _Scratch:
-        while len(self._scratch) <= i:
-            self._scratch.append(_Scratch(self.sampler, self.count))
-        return self._scratch[i]
+    def _scratch_for(self, i: int, last: int) -> _Scratch:
+        """Thread ``i``'s buffers, able to mark sets up to ``last``. The sampler keeps
+        them, so the next collection reuses their pages (first writes to fresh pages cost
+        far more than the sampling on some machines)."""
+        pool = self.sampler.scratch
+        while len(pool) <= i:
+            pool.append(_Scratch(self.sampler))
+        sc = pool[i]
+        if sc.stamp.dtype == np.int32 and last >= _MARK32_LIMIT:
+            sc.stamp = np.zeros(self.sampler.n, dtype=np.int64)
+        elif sc.owner is not self:  # marks of another collection's sets: clear them
+            sc.stamp.fill(0)
+        sc.owner = self
+        return sc
 
     def _sample(self, fn: Callable[..., tuple[int, int, int]], want: int) -> tuple[int, int, int]:
         """Sets ``count .. count+want-1`` into the store, in this thread."""
-        return _call(fn, self.sampler, self._scratch_for(0), self.key, self.count, want,
-                     self._nodes, self.entries, self._ends[self.count:])
+        sc = self._scratch_for(0, self.count + want)
+        return _call(fn, self.sampler, sc, self.key, self.count, want, self._nodes, self.entries,
+                     self._ends[self.count:])
 
     def _sample_parallel(self, fn: Callable[..., tuple[int, int, int]], want: int,
                          parts: int) -> tuple[int, int, int]:
         """Sets ``count .. count+want-1``, one index range per thread, each into its own
         batch store, then appended to the store in index order (always all ``want``)."""
         mean = self.entries / self.count if self.count else 8.0
-        calls = [(fn, self._scratch_for(i), a, c, int(mean * c * 1.25))
+        calls = [(fn, self._scratch_for(i, a + c), a, c, int(mean * c * 1.25))
                  for i, (a, c) in enumerate(split_range(self.count, want, parts))]
         results = map_ordered(self._sample_part, calls)
         size = sum(len(nodes) for nodes, _, _ in results)
@@ -305,11 +313,12 @@ class RRCollection:
 
 class _Scratch:
     """One thread's sampling buffers: visit marks (or lane marks and queues) and a
-    store for one batch of sets."""
+    store for one batch of sets; ``owner`` is the collection whose marks they hold."""
 
-    def __init__(self, smp: RRSampler, count: int) -> None:
+    def __init__(self, smp: RRSampler) -> None:
         n = smp.n
-        self.stamp: NDArray[np.int32] | NDArray[np.int64] = _marks(n, count)
+        self.owner: object = None
+        self.stamp: NDArray[np.int32] | NDArray[np.int64] = _marks(n, 0)
         self.nodes = np.empty(1 << 12, dtype=np.int32)
         if smp.lanes:
             self.vis = np.zeros(n, dtype=np.uint16)
