@@ -24,6 +24,10 @@ up to the cores this process may use), medians printed:
     RR sets with its fastest method (goal: at most 1.0); soc-Slashdot0902 and com-DBLP.
 (d) Sampled betweenness (hops, epsilon 0.02) at every thread count: samples per second and
     parallel efficiency (no C counterpart).
+(e) How to run threads: the service's pool of Python threads calling kernels that release
+    the GIL, against numba ``prange`` over the same index ranges (a benchmark-only kernel
+    looping over the parts with ``parallel=True``, each part running the same cascade loop),
+    forward simulation with per-node counts at all cores, alternately.
 
 Every measurement also checks that the result at T threads equals the one-thread result.
 The machine this was written on has 2 cores shared with other people: timings are noisy,
@@ -231,6 +235,87 @@ def bench_betweenness(name: str, directed: bool, counts: list[int]) -> None:
           + f" (wall time includes the vertex-diameter bound); scores identical: {same}")
 
 
+_PRANGE: Any = None
+
+
+def _prange_kernel() -> Any:
+    """numba prange over parts: part p runs its range of worlds with its own buffers."""
+    global _PRANGE
+    if _PRANGE is None:
+        from numba import njit, prange
+
+        from service.analytics.diffusion._kernels import _run_state
+        from service.analytics.diffusion._world_kernels import _ic_world
+
+        @njit(parallel=True, cache=False)
+        def runs_prange(indptr, indices, thr, skip, use_skip, seeds, key, starts, counts_per,
+                        maxdeg, reach, count):  # type: ignore[no-untyped-def]
+            n = indptr.size - 1
+            for p in prange(starts.size):
+                stamp = np.zeros(n, np.int32)
+                queue = np.empty(n, np.int32)
+                lvl = np.zeros(16, np.int64)
+                rb = np.zeros(maxdeg // 2 + 1, np.uint64)
+                rb32 = rb.view(np.uint32)
+                for i in range(counts_per[p]):
+                    run = starts[p] + i
+                    tail, nlev, lvl = _ic_world(indptr, indices, thr, skip, use_skip, seeds,
+                                                _run_state(key, run), np.int32(i + 1), stamp,
+                                                queue, lvl, -1, rb, rb32)
+                    reach[run - starts[0]] = tail
+                    for h in range(tail):
+                        count[p, queue[h]] += 1
+
+        _PRANGE = runs_prange
+    return _PRANGE
+
+
+def bench_pool_vs_prange(name: str, directed: bool, threads: int, seconds: float,
+                         repeats: int) -> None:
+    import numba
+
+    from service.analytics._chunks import split_range
+    from service.analytics.diffusion import _kernels as K
+    from service.analytics.diffusion import _world_kernels as W
+    from service.analytics.graph import diffusion_graph
+
+    g, _ = BD.load_graph(name, not directed)
+    dg = diffusion_graph(g, scheme="weighted_cascade")
+    kg = K.kernel_graph(dg)
+    seeds = kg.rank[BD.top_out_degree(dg)]
+    runs = BD.calibrate(kg, BD.top_out_degree(dg), seconds) * threads
+    fn = _prange_kernel()
+    numba.set_num_threads(threads)
+    maxdeg = int(np.diff(kg.indptr).max())
+
+    def prange_once(run0: int) -> tuple[float, np.ndarray, np.ndarray]:
+        parts = split_range(run0, runs, threads)
+        starts = np.array([a for a, _ in parts], np.int64)
+        per = np.array([c for _, c in parts], np.int64)
+        reach = np.zeros(runs, np.int64)
+        count = np.zeros((len(parts), kg.n), np.int64)
+        t0 = time.perf_counter()
+        fn(kg.indptr, kg.indices, kg.thr, kg.skip, kg.use_skip, seeds, np.uint64(3), starts, per,
+           maxdeg, reach, count)
+        total = count.sum(axis=0)  # merged in part order, as the pool's parts are
+        return runs / (time.perf_counter() - t0), reach, total
+
+    prange_once(0)  # compile
+    pool, prl, same = [], [], True
+    for r in range(repeats):
+        t0 = time.perf_counter()
+        res = W.simulate(kg, BD.top_out_degree(dg), 3, (r + 1) * runs, runs, -1, np.zeros(0),
+                         threads=threads)
+        pool.append(runs / (time.perf_counter() - t0))
+        rate, reach, total = prange_once((r + 1) * runs)
+        prl.append(rate)
+        same = same and np.array_equal(reach, res.reach) and np.array_equal(total[kg.rank], res.count)
+    print(f"\n(e) {name}, {threads} threads, forward simulation with per-node counts: pool of threads "
+          f"{statistics.median(pool):.4g} sims/s (rounds {', '.join(f'{x:.4g}' for x in pool)}), numba "
+          f"prange {statistics.median(prl):.4g} sims/s (rounds {', '.join(f'{x:.4g}' for x in prl)}); "
+          f"pool / prange = {statistics.median(pool) / statistics.median(prl):.2f}; same runs: {same}")
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--graphs", default=",".join(GRAPHS))
@@ -252,6 +337,8 @@ def main(argv: list[str] | None = None) -> int:
             imm = (bench_imm(exe, name, directed) if name in IMM_GRAPHS and not args.skip_imm
                    else {"imm": float("nan")})
             bench_betweenness(name, directed, counts)
+            if counts[-1] > 1:
+                bench_pool_vs_prange(name, directed, counts[-1], args.seconds, args.repeats)
             summary.append((name, rr, fw, imm))
     print("\nSUMMARY (ratios against the C reference at one thread; T = "
           f"{counts[-1]} threads; load average at the end {os.getloadavg()[0]:.2f})")
