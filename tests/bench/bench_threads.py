@@ -129,7 +129,7 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
           f"{'met' if ratio >= goal else 'NOT met'}); sets identical across thread counts: {same}; "
           f"largest per-thread batch store {batch / 2**20:.1f} MiB (the store itself is shared)")
     return {"graph": name, "ratio": ratio, "per_core": ratio / top, "same": same,
-            "efficiency": med[top] / (top * med[1])}
+            "efficiency": med[top] / (top * med[1]), "rate1": med[1]}
 
 
 def bench_forward(exe: Path, name: str, directed: bool, counts: list[int], seconds: float,
@@ -190,8 +190,11 @@ def bench_forward(exe: Path, name: str, directed: bool, counts: list[int], secon
     goal = 0.8 * top
     print(f"    RATIO forecast all {top} cores / C one thread = {ratio:.2f} (goal >= {goal:.1f}: "
           f"{'met' if ratio >= goal else 'NOT met'}); runs identical across thread counts: {same}")
+    probe = W.run_chunk(kg, seeds, 11, 0, max(200, runs), -1, np.zeros(0))
+    edges_per_sim = float(probe.count @ np.diff(dg.out_indptr)) / probe.reach.shape[0]
     return {"graph": name, "kernel": p_med / c_med, "track": p_med / t_med, "forecast": ratio,
-            "same": same}
+            "same": same, "fc_rate1": f_med[1], "fc_eff": f_med[top] / (top * f_med[1]),
+            "edges_per_sim": edges_per_sim, "arcs": int(dg.out_indices.size)}
 
 
 def bench_imm(exe: Path, name: str, directed: bool) -> dict[str, Any]:
@@ -212,7 +215,10 @@ def bench_imm(exe: Path, name: str, directed: bool) -> dict[str, Any]:
           f"selection {sl.timings.get('selection', 0):.2f} s), {total:,} RR sets; C {method} draws the same "
           f"number in {c['sec_per_rep']:.2f} s (one thread); RATIO IMM wall / C time = {ratio:.2f} "
           f"(goal <= 1.0: {'met' if ratio <= 1.0 else 'NOT met'})")
-    return {"graph": name, "imm": ratio}
+    d = sl.details
+    return {"graph": name, "imm": ratio, "n": dg.n, "arcs": int(dg.in_indices.shape[0]),
+            "sets": total, "theta": int(sl.theta), "entries_per_set": d["rr_entries"] / max(int(sl.theta), 1),
+            "examined_per_set": d["edges_examined"] / max(int(sl.theta), 1), "wall": wall}
 
 
 def bench_betweenness(name: str, directed: bool, counts: list[int]) -> None:
@@ -316,6 +322,58 @@ def bench_pool_vs_prange(name: str, directed: bool, threads: int, seconds: float
           f"pool / prange = {statistics.median(pool) / statistics.median(prl):.2f}; same runs: {same}")
 
 
+def sizing(rr: dict[str, Any], fw: dict[str, Any], imm: dict[str, Any]) -> None:
+    """The README's sizing table, from the per-core rates and sizes measured in this run.
+
+    Model (graphs shaped like the one measured, weighted cascade): RR sets needed by IMM
+    grow like n ln n (theta = lambda* / LB with the optimum a fixed share of n), each set
+    examines as many arcs as measured here; a forecast's simulation examines the same share
+    of the arcs as here. Time = work / (per-core rate x cores x the parallel efficiency
+    measured at the most threads here). Memory = the loaded graph (admission's 192 bytes
+    per edge, counted as arcs here) + the RR store (8 bytes an entry, 9 a set) or the
+    per-thread simulation buffers (16 bytes a node a thread). A machine is assumed to
+    have 4 GiB of memory per core.
+    """
+    import math
+
+    from service.jobs import admission as A
+
+    eff_rr, eff_fw = min(rr["efficiency"], 1.0), min(fw["fc_eff"], 1.0)
+    arcs_per_node = imm["arcs"] / imm["n"]
+    sets_per_node = imm["sets"] / imm["n"]
+    print(f"\nSIZING MODEL from {imm['graph']}: {sets_per_node:.1f} RR sets per person for IMM k = 50, "
+          f"epsilon 0.1 ({imm['sets']:,} sets, {arcs_per_node:.1f} arcs per person), "
+          f"{imm['entries_per_set']:.2f} people and {imm['examined_per_set']:.1f} arcs examined per set; "
+          f"RR {rr['rate1']:.3g} arcs/s per core (efficiency {eff_rr:.2f}); forecasts "
+          f"{fw['fc_rate1'] * fw['edges_per_sim']:.3g} arcs/s per core, {fw['edges_per_sim'] / fw['arcs']:.3f} "
+          f"of the arcs per simulation (efficiency {eff_fw:.2f}); 4 GiB per core")
+    print("arcs | cores | IMM time | IMM memory | 10,000-simulation forecast | forecast memory | one machine?")
+    for arcs in (10**7, 10**8, 10**9):
+        n = arcs / arcs_per_node
+        sets = sets_per_node * n * math.log(n) / math.log(imm["n"])
+        work = sets * imm["examined_per_set"]
+        graph = A.GRAPH_BYTES_PER_EDGE * arcs
+        store = sets * (imm["entries_per_set"] * A.RR_ENTRY_BYTES + A.RR_SET_BYTES)
+        for cores in (8, 32, 96):
+            t_imm = work / (rr["rate1"] * cores * (eff_rr if cores > 1 else 1.0))
+            t_fc = 1e4 * fw["edges_per_sim"] / fw["arcs"] * arcs / (fw["fc_rate1"] * fw["edges_per_sim"]
+                                                                  * cores * eff_fw)
+            mem_imm = graph + store + A.thread_bytes(int(n), cores, rr=True)
+            mem_fc = graph + A.thread_bytes(int(n), cores) + 16 * n
+            ram = cores * 4 * 2**30
+            fits = "yes" if max(mem_imm, mem_fc) <= ram and t_imm <= 3600 else "no"
+            print(f"{arcs:.0e} | {cores} | {_dur(t_imm)} | {mem_imm / 2**30:.1f} GiB | {_dur(t_fc)} | "
+                  f"{mem_fc / 2**30:.1f} GiB | {fits}")
+
+
+def _dur(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--graphs", default=",".join(GRAPHS))
@@ -348,6 +406,9 @@ def main(argv: list[str] | None = None) -> int:
         print(f"{name} | {rr['ratio']:.2f} ({rr['per_core']:.2f}, {rr['efficiency']:.2f}) | "
               f"{fw['kernel']:.2f} | {fw['track']:.2f} | {fw['forecast']:.2f} | {imm['imm']:.2f} | "
               f"{rr['same'] and fw['same']}")
+    last = [row for row in summary if "sets" in row[3]]
+    if last:
+        sizing(last[-1][1], last[-1][2], last[-1][3])
     return 0
 
 
