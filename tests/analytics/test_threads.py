@@ -181,3 +181,17 @@ def test_sampled_betweenness_is_identical_across_thread_counts(weighted):
     # in test_centrality.py), with several threads.
     exact, _ = betweenness(g, method="exact")
     assert np.abs(runs[4][0] - exact).max() <= runs[4][1]["error_bound"]
+
+
+@pytest.mark.parametrize("threads", [2, 3, 4])
+def test_inverted_index_is_identical_across_thread_counts(small_parts, threads):
+    # Reference: the one-thread index (itself checked against a direct scan in
+    # test_rr_kernels.py); rows must list their sets in ascending order either way.
+    dg = random_graph(300, 3000, seed=9)
+    ref = RRCollection(RRSampler(dg, threads=1), K.stream_key(3, 3))
+    ref.extend_to(30_000)
+    par = RRCollection(RRSampler(dg, threads=threads), K.stream_key(3, 3))
+    par.extend_to(30_000)
+    assert min(threads, par.count, par.entries // (4 * 300)) == threads  # really split
+    for a, b in zip(ref.index(), par.index()):
+        assert np.array_equal(a, b)

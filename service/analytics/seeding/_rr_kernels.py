@@ -58,6 +58,8 @@ __all__ = [
     "hits_ic",
     "hits_lt",
     "inverted_index",
+    "count_members",
+    "fill_members",
     "cover_node",
     "covered_by",
     "best_candidate",
@@ -528,6 +530,25 @@ def inverted_index(nodes: Any, offsets: Any, n: Any) -> Any:  # pragma: no cover
             sets[fill[v]] = s
             fill[v] += 1
     return indptr, sets, counts
+
+
+@njit(cache=True, nogil=True)
+def count_members(nodes: Any, offsets: Any, s0: Any, s1: Any, counts: Any) -> None:  # pragma: no cover
+    """Add to ``counts[v]`` the sets ``s0 .. s1-1`` that contain v (one part of
+    :func:`inverted_index`, run by one thread)."""
+    for i in range(offsets[s0], offsets[s1]):
+        counts[nodes[i]] += 1
+
+
+@njit(cache=True, nogil=True)
+def fill_members(nodes: Any, offsets: Any, s0: Any, s1: Any, fill: Any, sets: Any) -> None:  # pragma: no cover
+    """Write the ids of sets ``s0 .. s1-1`` into their nodes' rows from ``fill[v]`` on
+    (one part of :func:`inverted_index`: each thread fills its own slots of every row)."""
+    for s in range(s0, s1):
+        for i in range(offsets[s], offsets[s + 1]):
+            v = nodes[i]
+            sets[fill[v]] = s
+            fill[v] += 1
 
 
 @njit(cache=True, nogil=True)
