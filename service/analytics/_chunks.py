@@ -30,6 +30,7 @@ are merged in index order, so results never depend on the thread count.
 from __future__ import annotations
 
 import os
+import threading
 import time
 from collections.abc import Callable, Sequence
 from concurrent.futures import ThreadPoolExecutor
@@ -161,6 +162,7 @@ def split_range(start: int, count: int, parts: int) -> list[tuple[int, int]]:
 
 
 _POOLS: dict[int, ThreadPoolExecutor] = {}
+_POOL_PREFIX = "bellwether-compute"
 
 
 def _pool() -> ThreadPoolExecutor:
@@ -170,7 +172,7 @@ def _pool() -> ThreadPoolExecutor:
     if pool is None:
         _POOLS.clear()
         pool = _POOLS[pid] = ThreadPoolExecutor(
-            max_workers=max(2, usable_cores()), thread_name_prefix="bellwether-compute")
+            max_workers=max(2, usable_cores()), thread_name_prefix=_POOL_PREFIX)
     return pool
 
 
@@ -178,11 +180,12 @@ def map_ordered(fn: Callable[..., T], calls: Sequence[tuple[object, ...]]) -> li
     """``[fn(*args) for args in calls]``, the calls run at once in the shared pool
     (the last one in the calling thread), results in the order of ``calls``.
 
-    ``fn`` should spend its time in compiled code that releases the GIL. The
-    calls must not themselves wait on this pool. An exception of any call is
-    raised after all have finished.
+    ``fn`` should spend its time in compiled code that releases the GIL. Called
+    from a thread of the pool itself, the calls run one after the other in that
+    thread (waiting on the pool from inside it could wait forever). An exception
+    of any call is raised after all have finished.
     """
-    if len(calls) <= 1:
+    if len(calls) <= 1 or threading.current_thread().name.startswith(_POOL_PREFIX):
         return [fn(*args) for args in calls]
     pool = _pool()
     futures = [pool.submit(fn, *args) for args in calls[:-1]]

@@ -195,3 +195,20 @@ def test_inverted_index_is_identical_across_thread_counts(small_parts, threads):
     assert min(threads, par.count, par.entries // (4 * 300)) == threads  # really split
     for a, b in zip(ref.index(), par.index()):
         assert np.array_equal(a, b)
+
+
+def test_parts_run_in_order_and_nested_calls_do_not_wait_on_the_pool():
+    def inner(i):
+        return [x * i for x in _chunks.map_ordered(lambda a: a + 1, [(1,), (2,), (3,)])]
+
+    # Nested from pool threads: run in the calling thread, same results in the same order.
+    assert _chunks.map_ordered(inner, [(i,) for i in range(8)]) == [
+        [2 * i, 3 * i, 4 * i] for i in range(8)]
+
+    def boom(i):
+        if i == 1:
+            raise ValueError("part 1")
+        return i
+
+    with pytest.raises(ValueError, match="part 1"):
+        _chunks.map_ordered(boom, [(0,), (1,), (2,)])
