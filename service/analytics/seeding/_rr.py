@@ -161,6 +161,7 @@ class RRCollection:
         n = sampler.n
         self._nodes = np.empty(max(4 * n, 1 << 16), dtype=np.int32)
         self._ends = np.empty(1 << 12, dtype=np.int64)
+        self._sizer = ChunkSizer(first=256, most=1 << 22)
         self.count = 0
         self.entries = 0
         self.examined = 0
@@ -195,7 +196,7 @@ class RRCollection:
         fn = K.sample_ic if self.sampler.model == "ic" else K.sample_lt
         n = self.sampler.n
         start_count = self.count
-        sizer = ChunkSizer(first=256, most=1 << 22)
+        sizer = self._sizer  # kept across calls: IMM's estimation rounds need no new ramp-up
         while self.count < target:
             want = sizer.next(target - self.count)
             if self.count >= 256:  # the mean set size is known: check the whole target's store
