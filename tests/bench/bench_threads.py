@@ -53,6 +53,25 @@ from tests.bench import bench_seeding as BS
 
 GRAPHS = {"ca-GrQc": False, "soc-Slashdot0902": True, "com-DBLP": True}  # name -> directed
 IMM_GRAPHS = ("soc-Slashdot0902", "com-DBLP")
+# (threads, work per CPU second, CPU seconds per wall second) of each timed run: on a
+# machine shared with others the wall-clock rates say little about scaling, but work per
+# CPU second at T threads against one thread shows what splitting and merging cost, and
+# CPU per wall second how many cores the run actually obtained.
+CPU: list[tuple[int, float, float]] = []
+
+
+def cpu_line(what: str) -> str:
+    """Work per CPU second at each thread count / at one thread, and cores obtained."""
+    by: dict[int, list[tuple[float, float]]] = {}
+    for t, per_cpu, cores in CPU:
+        by.setdefault(t, []).append((per_cpu, cores))
+    CPU.clear()
+    if 1 not in by:
+        return ""
+    one = statistics.median(x for x, _ in by[1])
+    return f"    {what}: " + "; ".join(
+        f"{t} thread{'s' if t > 1 else ''}: work per CPU second {statistics.median(x for x, _ in v) / one:.2f} of "
+        f"one thread's, cores obtained {statistics.median(c for _, c in v):.2f}" for t, v in sorted(by.items()))
 
 
 def thread_counts() -> list[int]:
@@ -75,9 +94,10 @@ def rr_rate(dg: Any, threads: int, seconds: float, rep: int, rate_hint: float) -
     sampler = RRSampler(dg, threads=threads)
     target = max(int(rate_hint * threads * seconds), 20_000)
     coll = RRCollection(sampler, K.stream_key(rep, 0))
-    t0 = time.perf_counter()
+    c0, t0 = time.process_time(), time.perf_counter()
     coll.extend_to(target)
-    wall = time.perf_counter() - t0
+    wall, cpu = time.perf_counter() - t0, time.process_time() - c0
+    CPU.append((threads, coll.examined / max(cpu, 1e-9), cpu / wall))
     return coll.examined / wall, coll
 
 
@@ -122,6 +142,7 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
         print(f"    ours {t} thread{'s' if t > 1 else ' '} {med[t]:.4g} edges/s (rounds "
               f"{', '.join(f'{x:.4g}' for x in ours[t])}); ours/C = {med[t] / c_med:.2f}, "
               f"per core {med[t] / c_med / t:.2f}; parallel efficiency {eff:.2f}")
+    print(cpu_line("CPU accounting"))
     top = counts[-1]
     ratio = med[top] / c_med
     goal = 0.9 * top
@@ -161,10 +182,12 @@ def bench_forward(exe: Path, name: str, directed: bool, counts: list[int], secon
         ref = None
         for t in counts:
             nsim = runs * t
-            t0 = time.perf_counter()
+            c0, t0 = time.process_time(), time.perf_counter()
             out = forecast(dg, {"b": seeds}, simulations=nsim, min_simulations=nsim,
                            random_seed=r, threads=t)["b"]
-            fc[t].append(nsim / (time.perf_counter() - t0))
+            wall, cpu = time.perf_counter() - t0, time.process_time() - c0
+            fc[t].append(nsim / wall)
+            CPU.append((t, nsim / max(cpu, 1e-9), cpu / wall))
             if ref is None:
                 ref = out
             else:  # the first runs of the longer forecast equal the shorter one's
@@ -185,6 +208,7 @@ def bench_forward(exe: Path, name: str, directed: bool, counts: list[int], secon
         print(f"    forecast() {t} thread{'s' if t > 1 else ' '} {f_med[t]:.4g} sims/s (rounds "
               f"{', '.join(f'{x:.4g}' for x in fc[t])}); / C = {f_med[t] / c_med:.2f}; parallel "
               f"efficiency {f_med[t] / (t * f_med[1]):.2f}")
+    print(cpu_line("CPU accounting of forecast()"))
     top = counts[-1]
     ratio = f_med[top] / c_med
     goal = 0.8 * top
