@@ -140,3 +140,23 @@ def test_estimates_count_what_the_params_ask_for() -> None:
     # Every thread beyond the first keeps its own per-node buffers (marks, queue, counts).
     four = admission.forecast_estimate(P(), lambda: None, nodes=1000, edges=5000, threads=4)
     assert four.bytes - est.bytes == 3 * admission.THREAD_BYTES_PER_NODE * 1000
+
+
+def test_threads_setting_defaults_to_the_usable_cores_shared_by_the_workers(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    import os
+
+    monkeypatch.delenv("BELLWETHER_THREADS", raising=False)
+
+    from service.settings import Settings, usable_cores
+
+    # Source: the process's CPU affinity (os.sched_getaffinity), the cores it may run on.
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
+    assert usable_cores() == cores
+    s = Settings(data_dir=tmp_path)
+    assert s.threads is None
+    assert s.thread_count() == cores
+    assert s.thread_count(workers=cores * 2) == 1  # never below one
+    assert Settings(data_dir=tmp_path, threads=3).thread_count(workers=4) == 3
+    from service.jobs.worker import WorkerConfig
+    assert WorkerConfig.from_settings(Settings(data_dir=tmp_path, threads=5)).threads == 5
