@@ -16,7 +16,7 @@ import pytest
 
 from service.analytics import _chunks
 from service.analytics.graph import GraphArrays, diffusion_graph
-from service.analytics.seeding import _rr
+from service.analytics.seeding import _rr, _rr_parts
 from service.analytics.seeding import _rr_kernels as K
 from service.analytics.seeding._rr import RRCollection, RRSampler
 from service.analytics.errors import InvalidParameter
@@ -38,7 +38,7 @@ def random_graph(n, m, seed, *, model="ic"):
 @pytest.fixture
 def small_parts(monkeypatch):
     """Split even small batches over threads, so the tests exercise the split."""
-    monkeypatch.setattr(_rr, "PARALLEL_MIN_SETS", 1)
+    monkeypatch.setattr(_rr_parts, "PARALLEL_MIN_SETS", 1)
 
 
 @pytest.mark.parametrize("model", ["ic", "lt"])

@@ -12,7 +12,7 @@ from typing import Any
 import numpy as np
 import pytest
 
-from service.analytics.seeding import _rr
+from service.analytics.seeding import _rr_parts
 from tests.jobs.api_helpers import run_worker_once, worker_for
 
 pytestmark = pytest.mark.anyio
@@ -52,7 +52,7 @@ async def run(client, gid: str, kind: str, params: dict[str, Any], threads: int)
                   "relative_precision": 0.005, "random_seed": 7}),
 ], ids=["imm", "opim", "forecast"])
 async def test_answers_are_identical_across_thread_counts(client, monkeypatch, kind, params) -> None:  # type: ignore[no-untyped-def]
-    monkeypatch.setattr(_rr, "PARALLEL_MIN_SETS", 1)  # split even small batches of RR sets
+    monkeypatch.setattr(_rr_parts, "PARALLEL_MIN_SETS", 1)  # split even small batches of RR sets
     gid = await random_graph(client)
     answers = {t: await run(client, gid, kind, {"probability": {"scheme": "weighted_cascade"},
                                                 **params}, t)

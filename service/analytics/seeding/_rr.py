@@ -17,12 +17,10 @@ per lane of queue space, of which only the pages the largest sets reach are
 ever committed.
 
 Threads. A sampler splits each batch of sets into one contiguous index range per
-thread; every thread samples its range into buffers of its own (scratch marks,
-lane queues, and a store for that batch only), and the parts are appended to the
-collection's store in index order. Set ``j`` depends only on ``(key, j)``, so the
-store is bit-identical whatever the thread count, and the extra memory is one
-batch of sets (about a quarter second of work), never a second copy of the store.
-Coverage counts (:meth:`RRSampler.count_hits`) are split the same way and added.
+thread, sampled into per-thread buffers and appended to the store in index order
+(:mod:`._rr_parts`): the store is bit-identical whatever the thread count and is
+never held twice. Coverage counts (:meth:`RRSampler.count_hits`) are split the
+same way and added.
 """
 
 from __future__ import annotations
@@ -38,6 +36,7 @@ from numpy.typing import NDArray
 
 from . import _rr_kernels as K
 from . import _rr_lanes
+from . import _rr_parts as P
 from .._chunks import ChunkSizer, check_memory, map_ordered, split_range, thread_count
 from ..errors import InvalidParameter
 from ..graph import DiffusionGraph
@@ -53,15 +52,6 @@ __all__ = [
 ]
 
 BYTES_PER_ENTRY = 8  # int32 node in the store + int32 set id in the inverted index
-# Visit marks are set numbers + 1. int32 marks halve the mark array (on com-DBLP it
-# then fits in a core's L2 cache: about 15% faster sampling, measured); a collection
-# or count that would pass this bound switches to int64 marks.
-_MARK32_LIMIT = 2**31 - 2
-
-
-# Batches smaller than this many sets per thread run in one thread: splitting costs
-# a few buffers per thread and a copy, which pays only once each part has some work.
-PARALLEL_MIN_SETS = 64
 
 
 # Graphs whose in-arcs and node records take more than this many bytes are sampled
@@ -71,13 +61,6 @@ PARALLEL_MIN_SETS = 64
 # 2.18 on com-DBLP (9.2 MiB). 1 MiB is the per-core L2 cache of the 2-core machine these
 # were measured on: a graph that fits there gains nothing from lanes (ca-GrQc above).
 LANES_MIN_BYTES = 1 << 20
-
-
-def _marks(n: int, last: int) -> NDArray[np.int32] | NDArray[np.int64]:
-    """A zeroed mark array able to hold marks up to ``last + 1``."""
-    if last < _MARK32_LIMIT:
-        return np.zeros(n, dtype=np.int32)
-    return np.zeros(n, dtype=np.int64)
 
 
 Progress = Callable[[float, str], None]
@@ -98,7 +81,7 @@ class RRSampler:
         self.n = int(dg.n)
         self.threads = thread_count(threads)
         # Per-thread buffers, used by its collections in turn (never two at once).
-        self.scratch: list[_Scratch] = []
+        self.scratch: list[P.Scratch] = []
         self.model = dg.model
         self.indptr = np.ascontiguousarray(dg.in_indptr, dtype=np.int64)
         self.indices = np.ascontiguousarray(dg.in_indices, dtype=np.int32)
@@ -135,7 +118,7 @@ class RRSampler:
         fn: Any = K.hits_ic if self.model == "ic" else K.hits_lt  # numba dispatchers are untyped
 
         def part(a: int, c: int) -> tuple[int, int]:
-            stamp = _marks(self.n, a + c)
+            stamp = P.marks(self.n, a + c)
             hits, examined = fn(*self._args(), key, a, c, self.horizon, is_seed, stamp)
             return int(hits), int(examined)
 
@@ -145,7 +128,7 @@ class RRSampler:
 
     def _parts(self, count: int) -> int:
         """How many threads a batch of ``count`` sets is split over."""
-        return max(1, min(self.threads, count // PARALLEL_MIN_SETS))
+        return P.parts_for(self.threads, count)
 
 
 class RRCollection:
@@ -206,14 +189,14 @@ class RRCollection:
                              "people each)", relax=self.relax)
             if self._ends.shape[0] < self.count + want:
                 # Set ends are 8 bytes per set: size them for the whole target at once.
-                self._ends = _grow(self._ends, target)
+                self._ends = P.grow(self._ends, target)
             mean = self.entries / self.count if self.count else 8.0
             need = self.entries + int(mean * want * 1.25) + n + 16
             if self._nodes.shape[0] < need:
                 # Size for the whole target once the mean set size is known,
                 # so a long run copies the store only a few times.
                 whole = self.entries + int(mean * (target - self.count) * 1.1) + n + 16
-                self._nodes = _grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
+                self._nodes = P.grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
             t0 = time.perf_counter()
             parts = self.sampler._parts(want)
             if parts > 1:
@@ -228,43 +211,26 @@ class RRCollection:
             self._index = None
             sizer.took(int(done), dt)
             if done < want:  # the store ran out of room: grow it before the next call
-                self._nodes = _grow(self._nodes, self._nodes.shape[0] + n + 16)
+                self._nodes = P.grow(self._nodes, self._nodes.shape[0] + n + 16)
             if progress is not None:
                 frac = (self.count - start_count) / max(target - start_count, 1)
                 progress(span[0] + (span[1] - span[0]) * frac, message)
 
-    def _scratch_for(self, i: int, last: int) -> _Scratch:
-        """Thread ``i``'s buffers, able to mark sets up to ``last``. The sampler keeps
-        them, so the next collection reuses their pages (first writes to fresh pages cost
-        far more than the sampling on some machines)."""
-        pool = self.sampler.scratch
-        while len(pool) <= i:
-            pool.append(_Scratch(self.sampler))
-        sc = pool[i]
-        if sc.stamp.dtype == np.int32 and last >= _MARK32_LIMIT:
-            sc.stamp = np.zeros(self.sampler.n, dtype=np.int64)
-        elif sc.owner is not self:  # marks of another collection's sets: clear them
-            sc.stamp.fill(0)
-        sc.owner = self
-        return sc
-
     def _sample(self, fn: Callable[..., tuple[int, int, int]], want: int) -> tuple[int, int, int]:
         """Sets ``count .. count+want-1`` into the store, in this thread."""
-        sc = self._scratch_for(0, self.count + want)
-        return _call(fn, self.sampler, sc, self.key, self.count, want, self._nodes, self.entries,
-                     self._ends[self.count:])
+        sc = P.take_scratch(self.sampler, self, 0, self.count + want)
+        return P.call_kernel(fn, self.sampler, sc, self.key, self.count, want, self._nodes,
+                             self.entries, self._ends[self.count:])
 
     def _sample_parallel(self, fn: Callable[..., tuple[int, int, int]], want: int,
                          parts: int) -> tuple[int, int, int]:
-        """Sets ``count .. count+want-1``, one index range per thread, each into its own
-        batch store, then appended to the store in index order (always all ``want``)."""
+        """Sets ``count .. count+want-1`` over ``parts`` threads (:mod:`._rr_parts`),
+        appended to the store in index order (always all ``want``)."""
         mean = self.entries / self.count if self.count else 8.0
-        calls = [(fn, self._scratch_for(i, a + c), a, c, int(mean * c * 1.25))
-                 for i, (a, c) in enumerate(split_range(self.count, want, parts))]
-        results = map_ordered(self._sample_part, calls)
+        results = P.sample_parts(fn, self.sampler, self, self.key, self.count, want, parts, mean)
         size = sum(len(nodes) for nodes, _, _ in results)
         if self._nodes.shape[0] < self.entries + size:
-            self._nodes = _grow(self._nodes, self.entries + size)
+            self._nodes = P.grow(self._nodes, self.entries + size)
         pos, done, examined = self.entries, 0, 0
         for nodes, ends, ex in results:
             self._nodes[pos: pos + nodes.shape[0]] = nodes
@@ -274,65 +240,21 @@ class RRCollection:
             examined += ex
         return done, pos, examined
 
-    def _sample_part(self, fn: Callable[..., tuple[int, int, int]], sc: _Scratch, first: int,
-                     count: int, expect: int) -> tuple[NDArray[np.int32], NDArray[np.int64], int]:
-        """Sets ``first .. first+count-1`` into ``sc``'s batch store (grown as needed;
-        ``expect`` entries are likely): (nodes, set ends relative to the batch, in-arcs
-        examined). Runs in a pool thread."""
-        n = self.sampler.n
-        ends = np.empty(count, dtype=np.int64)
-        done, pos, examined = 0, 0, 0
-        if sc.nodes.shape[0] < expect + n + 16:
-            sc.nodes = np.empty(expect + n + 16, dtype=np.int32)
-        while done < count:
-            if sc.nodes.shape[0] - pos < n + 16:
-                sc.nodes = _grow(sc.nodes, pos + n + 16)
-            d, pos, ex = _call(fn, self.sampler, sc, self.key, first + done, count - done,
-                               sc.nodes, pos, ends[done:])
-            done += d
-            examined += ex
-            if done < count:  # the batch store ran out of room: grow it and go on
-                sc.nodes = _grow(sc.nodes, sc.nodes.shape[0] + n + 16)
-        return sc.nodes[:pos], ends, examined  # a view: copied into the store before sc is reused
-
     def index(self) -> tuple[NDArray[np.int64], NDArray[np.int32], NDArray[np.int64]]:
         """(node -> sets indptr, set ids, per-node set counts), cached until the next extend.
 
-        Built over the sampler's threads when the sets hold enough entries: thread ``t``
-        counts, then fills, the members of its range of sets; row ``v`` of thread ``t``
-        starts after those of the threads before it, so every row lists its sets in
-        ascending order, as one thread would. Each part costs 8 bytes per person, so
-        the parts together take at most half the bytes of the index's set ids.
+        Built over the sampler's threads when the sets hold enough entries
+        (:func:`._rr_parts.index_parallel`, the same index); each part costs 8 bytes per
+        person, so the parts together take at most half the bytes of the set ids.
         """
         if self._index is None:
             n = self.sampler.n
-            parts = min(self.sampler.threads, self.count // PARALLEL_MIN_SETS,
-                        self.entries // max(4 * n, 1))
+            parts = min(P.parts_for(self.sampler.threads, self.count), self.entries // max(4 * n, 1))
             if parts <= 1:
                 self._index = K.inverted_index(self.nodes, self.offsets, n)
             else:
-                self._index = self._index_parallel(parts)
+                self._index = P.index_parallel(self.nodes, self.offsets, n, self.count, parts)
         return self._index
-
-    def _index_parallel(self, parts: int) -> tuple[NDArray[np.int64], NDArray[np.int32],
-                                                   NDArray[np.int64]]:
-        nodes, offsets, n = self.nodes, self.offsets, self.sampler.n
-        ranges = [(a, a + c) for a, c in split_range(0, self.count, parts)]
-        per = np.zeros((len(ranges), n), dtype=np.int64)
-        map_ordered(K.count_members, [(nodes, offsets, a, b, per[t]) for t, (a, b) in enumerate(ranges)])
-        np.cumsum(per, axis=0, out=per)  # row t: members in the ranges up to t
-        counts = per[-1].copy()
-        indptr = np.zeros(n + 1, dtype=np.int64)
-        np.cumsum(counts, out=indptr[1:])
-        for t in range(len(ranges) - 1, 0, -1):  # row t: members in the ranges before t
-            per[t] = per[t - 1]
-        per[0] = 0
-        per += indptr[:-1]  # row t: where thread t starts writing in each node's row
-        fill = per
-        sets = np.empty(self.entries, dtype=np.int32)
-        map_ordered(K.fill_members, [(nodes, offsets, a, b, fill[t], sets)
-                                     for t, (a, b) in enumerate(ranges)])
-        return indptr, sets, counts
 
     def hits(self, seeds: NDArray[np.int64]) -> int:
         """Stored sets containing at least one of ``seeds``."""
@@ -343,51 +265,6 @@ class RRCollection:
     def scale(self) -> float:
         """People (or audience value) represented by one stored set."""
         return self.sampler.total_weight / max(self.count, 1)
-
-
-class _Scratch:
-    """One thread's sampling buffers: visit marks (or lane marks and queues) and a
-    store for one batch of sets; ``owner`` is the collection whose marks they hold."""
-
-    def __init__(self, smp: RRSampler) -> None:
-        n = smp.n
-        self.owner: object = None
-        self.stamp: NDArray[np.int32] | NDArray[np.int64] = _marks(n, 0)
-        self.nodes = np.empty(1 << 12, dtype=np.int32)
-        if smp.lanes:
-            self.vis = np.zeros(n, dtype=np.uint16)
-            # Pages are only committed as lanes write to them (see sample_ic_lanes).
-            self.queues = np.empty(_rr_lanes.LANES * max(n, 1), dtype=np.int32)
-            if smp.model == "ic":
-                self.pend = np.empty(smp.pend_size, dtype=np.int64)
-
-
-def _call(fn: Callable[..., tuple[int, int, int]], smp: RRSampler, sc: _Scratch, key: np.uint64,
-          first: int, count: int, out_nodes: NDArray[np.int32], pos: int,
-          out_ends: NDArray[np.int64]) -> tuple[int, int, int]:
-    """One kernel call: sets ``first .. first+count-1`` written from ``out_nodes[pos]``,
-    with lanes when the sampler uses them. Returns (sets done, new pos, in-arcs examined)."""
-    if smp.lanes and smp.model == "ic":
-        done, pos, examined = _rr_lanes.sample_ic_lanes(
-            smp.rec, smp.recf, smp.indices, smp.arc, smp.accept, smp.alias, key,
-            first, count, smp.horizon, out_nodes, pos, out_ends, sc.vis, sc.queues, sc.pend,
-        )
-    elif smp.lanes:
-        walk: Any = _rr_lanes.sample_lt_lanes  # numba dispatchers are untyped
-        done, pos, examined = walk(
-            *smp._args(), key, first, count, smp.horizon, out_nodes, pos, out_ends,
-            sc.vis, sc.queues,
-        )
-    else:
-        done, pos, examined = fn(*smp._args(), key, first, count, smp.horizon, out_nodes, pos,
-                                 out_ends, sc.stamp)
-    return int(done), int(pos), int(examined)
-
-
-def _grow(a: NDArray, need: int) -> NDArray:  # type: ignore[type-arg]
-    out = np.empty(max(need, int(a.shape[0] * 1.6)), dtype=a.dtype)
-    out[: a.shape[0]] = a
-    return out
 
 
 @dataclass(frozen=True, eq=False)
