@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 from pathlib import Path
 from typing import Literal
@@ -9,7 +10,7 @@ from typing import Literal
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
-__all__ = ["Settings", "machine_memory_bytes", "usable_cores"]
+__all__ = ["Settings", "machine_memory_bytes", "usable_cores", "cpu_quota"]
 
 GiB = 1024**3
 MiB = 1024**2
@@ -31,12 +32,37 @@ def machine_memory_bytes() -> int:
     return int(total)
 
 
-def usable_cores() -> int:
-    """Cores this process may run on (its CPU affinity), at least 1."""
+def usable_cores(cgroup: Path = Path("/sys/fs/cgroup")) -> int:
+    """Cores this process may run on: its CPU affinity, or the container's CPU quota
+    (cgroup ``cpu.max``, or ``cpu.cfs_quota_us`` / ``cpu.cfs_period_us``) rounded up
+    when lower; at least 1."""
     try:
-        return max(1, len(os.sched_getaffinity(0)))
+        cores = len(os.sched_getaffinity(0))
     except (AttributeError, OSError):  # not Linux
-        return max(1, os.cpu_count() or 1)
+        cores = os.cpu_count() or 1
+    quota = cpu_quota(cgroup)
+    if quota is not None:
+        cores = min(cores, math.ceil(quota))
+    return max(1, cores)
+
+
+def cpu_quota(cgroup: Path = Path("/sys/fs/cgroup")) -> float | None:
+    """CPUs the cgroup may use per period (cgroup v2, else v1), None without a quota."""
+    try:
+        fields = (cgroup / "cpu.max").read_text().split()
+        if len(fields) == 2 and fields[0] != "max":
+            return int(fields[0]) / int(fields[1])
+        return None
+    except (OSError, ValueError):
+        pass
+    for folder in (cgroup / "cpu", cgroup / "cpu,cpuacct"):
+        try:
+            quota = int((folder / "cpu.cfs_quota_us").read_text())
+            period = int((folder / "cpu.cfs_period_us").read_text())
+        except (OSError, ValueError):
+            continue
+        return quota / period if quota > 0 and period > 0 else None
+    return None
 
 
 class Settings(BaseSettings):
@@ -144,7 +170,7 @@ class Settings(BaseSettings):
         default=None, ge=1, le=256,
         description="Threads one job may run on (RR sampling, simulations, sampled betweenness); "
         "results are the same for any number. Default: the cores the worker may use (its CPU "
-        "affinity), divided among the workers of `serve`.",
+        "affinity, or the container's CPU quota when lower), divided among the workers of `serve`.",
     )
 
     def thread_count(self, workers: int = 1) -> int:

@@ -36,7 +36,7 @@ import numpy as np
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.analytics._chunks import memory_limit, thread_limit
+from service.analytics._chunks import memory_limit, thread_limit, usable_cores
 from service.analytics.errors import Cancelled
 from service.loader import LoadedVersion, load_version
 from service.metrics import service_metrics, start_worker_metrics_server
@@ -331,7 +331,7 @@ class Worker:
             if kind.estimate is not None and job.graph_id is not None:
                 v = ctx.load()
                 admission.admit(kind.estimate(params, ctx.load, nodes=v.graph.n, edges=v.graph.m, limit=limit,
-                                              threads=self.config.threads or 1), limit)
+                                              threads=self.config.threads or usable_cores()), limit)
             token = memory_limit.set(limit)  # growing buffers check it (analytics._chunks)
             threads_token = thread_limit.set(self.config.threads)  # threads= defaults to it
             try:
