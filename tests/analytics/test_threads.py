@@ -212,3 +212,20 @@ def test_parts_run_in_order_and_nested_calls_do_not_wait_on_the_pool():
 
     with pytest.raises(ValueError, match="part 1"):
         _chunks.map_ordered(boom, [(0,), (1,), (2,)])
+
+
+@pytest.mark.parametrize("method", ["imm", "opim"])
+def test_brute_force_guarantees_hold_with_four_threads(small_parts, method):
+    # The checks of tests/jobs/test_shortlist_kind.py (exact enumeration of every
+    # live-edge world, brute force over every seed set; IMM and OPIM-C within
+    # 1 - 1/e - epsilon of the optimum, Tang et al. 2015 and 2018), rerun with every RR
+    # batch, hit count and forecast split over four threads.
+    from tests.jobs import test_shortlist_kind as S
+
+    token = _chunks.thread_limit.set(4)
+    try:
+        S.test_reach_is_within_the_guarantee_of_brute_force(method, S.ONE_MINUS_INV_E - 0.1)
+        if method == "imm":  # the Linear Threshold check runs IMM
+            S.test_linear_threshold_against_brute_force()
+    finally:
+        _chunks.thread_limit.reset(token)
