@@ -51,6 +51,7 @@ class QueueLimits:
     max_queued_per_tenant: int
     max_attempts: int
     memory_limit: int | None
+    threads: int = 1  # threads a job runs on (its memory estimate counts each thread's buffers)
 
 
 def parse_job_params(kind: JobKind, raw: dict[str, Any]) -> BaseModel:
@@ -128,7 +129,7 @@ def queue_job(
                 kind.precheck(params, lambda: load_version(db, row), edges=row.edges)
             if kind.estimate is not None:
                 estimate = kind.estimate(params, lambda: load_version(db, row), nodes=row.nodes,
-                                         edges=row.edges, limit=limits.memory_limit)
+                                         edges=row.edges, limit=limits.memory_limit, threads=limits.threads)
                 admission.admit(estimate, limits.memory_limit)
     with write() as db:
         if idempotency_key:

@@ -280,6 +280,8 @@ class ForecastResult(Result):
     half_width: float | None = None
     stream_key: str | None = None
     outcome_histogram: OutcomeHistogram | None = None
+    threads: int | None = Field(
+        default=None, description="Threads the job ran on; every figure is the same for any number.")
 
 
 # -- shortlist -------------------------------------------------------------------------
@@ -369,6 +371,8 @@ class ReplacedList(_Open):
 class ShortlistResult(Result):
     kind: Literal["shortlist"]
     params: ShortlistParams
+    threads: int | None = Field(
+        default=None, description="Threads the job ran on; every figure is the same for any number.")
     model: str
     probability: ProbabilitySettings
     rounds: int | None

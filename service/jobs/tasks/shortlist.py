@@ -17,6 +17,7 @@ from service.usecases.shortlist_params import (
 from service.usecases.integrity_rules import resolve_exclude_flagged
 from service.usecases.shortlists import build_shortlist, precheck, prepare
 
+
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
 
