@@ -32,7 +32,7 @@ from service.analytics.graph import DiffusionGraph, ProbabilityScheme
 if TYPE_CHECKING:
     from service.usecases.loading import LoadedVersion
 
-__all__ = ["ProbabilitySettings", "DiffusionSettings", "MAX_ROUNDS"]
+__all__ = ["ProbabilitySettings", "DiffusionSettings", "MAX_ROUNDS", "diffusion_graph_under"]
 
 MAX_ROUNDS = 100_000
 
@@ -136,14 +136,23 @@ class DiffusionSettings(BaseModel):
 
     def diffusion_graph(self, version: LoadedVersion) -> DiffusionGraph:
         """The version's :class:`DiffusionGraph` under these settings, built once per process."""
-        from service.usecases.diffusion_inputs import diffusion_graph_for
+        return diffusion_graph_under(version, model=self.model, probability=self.probability,
+                                     random_seed=self.random_seed)
 
-        pr = self.probability
-        if pr.scheme == "learned":
-            from service.usecases.learned_models import learned_diffusion_graph_for
 
-            return learned_diffusion_graph_for(pr.model or "", version, model=self.model)
-        return diffusion_graph_for(
-            version.version_id, version.graph, model=self.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-            random_seed=self.random_seed,
-        )
+def diffusion_graph_under(
+    version: LoadedVersion, *, model: Literal["ic", "lt"], probability: ProbabilitySettings, random_seed: int = 0
+) -> DiffusionGraph:
+    """The version's :class:`DiffusionGraph` under a model and probability settings, built once per
+    process; the learned scheme reads its probabilities from the named learn_probabilities job."""
+    from service.usecases.diffusion_inputs import diffusion_graph_for
+
+    pr = probability
+    if pr.scheme == "learned":
+        from service.usecases.learned_models import learned_diffusion_graph_for
+
+        return learned_diffusion_graph_for(pr.model or "", version, model=model)
+    return diffusion_graph_for(
+        version.version_id, version.graph, model=model, scheme=pr.scheme, p=pr.p, q=pr.q,
+        random_seed=random_seed,
+    )

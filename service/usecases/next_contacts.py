@@ -23,8 +23,7 @@ from sqlalchemy.orm import Session
 
 from service.analytics.errors import InvalidParameter, UnknownNode
 from service.analytics.ties.referrals import NextContact, next_contacts, referral_asks
-from service.usecases.diffusion_inputs import diffusion_graph_for
-from service.usecases.diffusion_settings import ProbabilitySettings
+from service.usecases.diffusion_settings import ProbabilitySettings, diffusion_graph_under
 from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning, read_flagged
 from service.usecases.loading import LoadedVersion, load_version
 from storage.repo import graphs as graph_repo
@@ -210,8 +209,7 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
         idx = idx[idx >= 0]
     adopters = np.unique(idx)
     pr = query.probability
-    dg = diffusion_graph_for(ver.id, loaded.graph, model=query.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                             random_seed=query.random_seed)
+    dg = diffusion_graph_under(loaded, model=query.model, probability=pr, random_seed=query.random_seed)
     index = neighbour_index_for(ver.id, loaded.graph)
     ok = loaded.attrs.contactable()
     warnings: list[dict[str, Any]] = []
@@ -268,8 +266,7 @@ def ask_for_referrals(v: LoadedVersion, params: ReferralAsksParams, *, progress:
     adopters = (resolve_ids(v.index, params.adopters, "adopters") if params.strict
                 else np.fromiter(known.values(), np.int64, len(known)))
     pr = params.probability
-    dg = diffusion_graph_for(v.version_id, v.graph, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                             random_seed=params.random_seed)
+    dg = diffusion_graph_under(v, model=params.model, probability=pr, random_seed=params.random_seed)
     ok = v.attrs.contactable()
     warnings: list[dict[str, Any]] = []
     if params.exclude_flagged is not None:

@@ -75,6 +75,18 @@ async def test_learned_model_recovers_p_and_drives_forecasts(client: httpx.Async
     # and Linear Threshold uses the counted weights (Goyal et al. 2010), each person's summing to <= 1.
     short = await run_job(client, gid, "shortlist", {"budget": 2, "probability": {"scheme": "learned", "model": mid}})
     assert len(short["seeds"]) == 2
+    # Next contacts take it as well: each exposure equals the one under uniform p at the learned
+    # value (1 - (1 - p)^k for k adopters in contact, Kempe et al. 2003).
+    asked = {"adopters": seeds, "limit": 10}
+    by_learned = await client.post(f"/v1/graphs/{gid}/next-contacts",
+                                   json={**asked, "probability": {"scheme": "learned", "model": mid}})
+    by_uniform = await client.post(f"/v1/graphs/{gid}/next-contacts",
+                                   json={**asked, "probability": {"scheme": "uniform", "p": p["value"]}})
+    assert by_learned.status_code == 200, by_learned.text
+    exposures = {i["node_id"]: i["exposure"] for i in by_learned.json()["items"]}
+    expected = {i["node_id"]: i["exposure"] for i in by_uniform.json()["items"]}
+    assert exposures and exposures.keys() == expected.keys()
+    assert all(exposures[k] == pytest.approx(expected[k], rel=2e-3) for k in exposures)
     lt = await run_job(client, gid, "forecast", {"seeds": seeds, "simulations": 200, "model": "lt",
                                                  "probability": {"scheme": "learned", "model": mid}})
     assert lt["expected_reach"]["mean"] >= 2
