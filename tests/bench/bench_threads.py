@@ -223,12 +223,13 @@ def bench_forward(exe: Path, name: str, directed: bool, counts: list[int], secon
 
 def bench_imm(exe: Path, name: str, directed: bool) -> dict[str, Any]:
     from service.analytics._chunks import usable_cores
+    from service.analytics.seeding.rules import SeedRules
     from service.analytics.seeding.shortlists import imm_seeds
 
     _, dg = BS.load(name, directed)
-    imm_seeds(dg, 2, epsilon=0.5, forecast_runs=0)  # compile / load the kernel caches
+    imm_seeds(dg, SeedRules.build(dg.n, budget=2), epsilon=0.5, forecast_runs=0)  # compile / load the caches
     t0 = time.perf_counter()
-    sl = imm_seeds(dg, 50, epsilon=0.1, l=1.0, forecast_runs=0)
+    sl = imm_seeds(dg, SeedRules.build(dg.n, budget=50), epsilon=0.1, l=1.0, forecast_runs=0)
     wall = time.perf_counter() - t0
     total = int(sl.samples)
     method, _ = BS.fastest_method(exe, name, directed, 1.0)
