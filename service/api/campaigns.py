@@ -6,13 +6,13 @@ import hashlib
 import json
 from typing import Annotated
 
-from fastapi import APIRouter, Header, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.concurrency import run_in_threadpool
 
 from service.intake import SizeLimits
 from service.usecases import campaigns as uc
 
-from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep
+from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep, require_graph
 from .errors import UnsupportedMediaType
 from .graphs import parse_version
 from .schemas.common import PROBLEM_RESPONSES
@@ -20,7 +20,9 @@ from .spool import FORMATS, media_type, spool_body
 
 __all__ = ["router"]
 
-router = APIRouter(prefix="/v1/graphs/{graph_id}/campaigns", tags=["campaigns"], responses=PROBLEM_RESPONSES)
+# A graph named in the path is looked up first: an unknown graph is a 404 whatever else is wrong.
+router = APIRouter(prefix="/v1/graphs/{graph_id}/campaigns", tags=["campaigns"], responses=PROBLEM_RESPONSES,
+                   dependencies=[Depends(require_graph)])
 
 IdemKey = Annotated[str | None, Header(alias="Idempotency-Key", max_length=200)]
 

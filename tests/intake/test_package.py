@@ -8,7 +8,7 @@ import pathlib
 
 import service.intake as pkg
 
-MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "graphml", "events", "merge", "dialect",
+MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "graphml", "events", "campaign_log", "merge", "dialect",
            "encoding", "hints"]
 ALLOWED = {"__future__", "array", "collections", "csv", "dataclasses", "decimal", "io", "itertools",
            "datetime", "json", "math", "typing", "numpy", "defusedxml", "ijson", "service",

@@ -30,7 +30,8 @@ ALL_SCOPES = ("read", "write", "admin")
 #: Operations endpoints outside /v1 (no key on loopback; /metrics is covered in test_metrics.py).
 OPEN = {("GET", "/healthz"), ("GET", "/readyz"), ("GET", "/metrics")}
 #: Path parameters naming a tenant's resource: the other tenant must get 404 on them.
-RESOURCE_PARAMS = {"graph_id": "graph", "job_id": "job", "schedule_id": "schedule", "webhook_id": "webhook"}
+RESOURCE_PARAMS = {"graph_id": "graph", "job_id": "job", "schedule_id": "schedule", "webhook_id": "webhook",
+                   "campaign_id": "campaign"}
 #: Other path parameters: a value that exists inside the resource.
 INNER_PARAMS = {"node_id": "a", "number": "1", "name": "reach"}
 #: Routes without path parameters, and what another tenant sees there.
@@ -50,6 +51,9 @@ BODIES: dict[tuple[str, str], tuple[str, Any]] = {
     ("POST", "/v1/graphs/{graph_id}/versions"): ("text/csv", "source,target\nx,y\n"),
     ("POST", "/v1/graphs/{graph_id}/jobs"): ("application/json", {"kind": "profile", "params": {}}),
     ("POST", "/v1/graphs/{graph_id}/next-contacts"): ("application/json", {"adopters": ["a"]}),
+    ("POST", "/v1/graphs/{graph_id}/campaigns"): ("application/json",
+                                                  {"name": "spring", "started_at": "2026-03-01T09:00:00Z"}),
+    ("PUT", "/v1/graphs/{graph_id}/campaigns/{campaign_id}/log"): ("text/csv", "person,role,round\na,seed,0\nb,adopter,1\n"),
     ("POST", "/v1/schedules"): (
         "application/json",
         {"graph_id": "{graph_id}", "cron": "0 2 * * *", "timezone": "UTC", "job": {"kind": "profile"}},
@@ -131,7 +135,11 @@ async def test_every_route_no_key_wrong_scope_and_other_tenant(sqlite_url: str, 
             hook = webhook_repo.add_webhook(db, tenant_id="tenant-a", url="https://hooks.invalid/x",
                                             events=["job.succeeded"], secret="s", now=datetime.now(UTC))
             db.commit()
-        ids = {"graph_id": gid, "job_id": job, "schedule_id": sid, "webhook_id": hook.id}
+        r = await c.post(f"/v1/graphs/{gid}/campaigns", headers=a,
+                         json={"name": "spring", "started_at": "2026-03-01T09:00:00Z"})
+        assert r.status_code == 201, r.text
+        cid = r.json()["id"]
+        ids = {"graph_id": gid, "job_id": job, "schedule_id": sid, "webhook_id": hook.id, "campaign_id": cid}
 
         doc = (await c.get("/openapi.json")).json()
         ops = operations(doc)
@@ -174,6 +182,7 @@ async def test_every_route_no_key_wrong_scope_and_other_tenant(sqlite_url: str, 
         assert (await c.get(f"/v1/jobs/{job}", headers=a)).json()["status"] == "queued"
         assert (await c.get(f"/v1/schedules/{sid}", headers=a)).status_code == 200
         assert (await c.get(f"/v1/webhooks/{hook.id}", headers=a)).status_code == 200
+        assert (await c.get(f"/v1/graphs/{gid}/campaigns/{cid}", headers=a)).status_code == 200
         assert (await c.get(f"/v1/graphs/{gid}/versions", headers=a)).json()["items"][-1]["number"] == 1
         # And the owner gets no 5xx, 401 or 403 on any read.
         for method, template, op in ops:
