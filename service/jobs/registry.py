@@ -46,7 +46,7 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import forecast, link_evaluation, profile, recommendations, referral_asks, scores, shortlist
+from .tasks import forecast, layout, link_evaluation, profile, recommendations, referral_asks, scores, shortlist
 
 __all__ = [
     "JobKind",
@@ -60,7 +60,7 @@ __all__ = [
     "validation_errors",
 ]
 
-_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist]
+_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist, layout]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
 
