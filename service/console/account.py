@@ -16,7 +16,7 @@ __all__ = ["router", "SessionDep", "current_session", "WriterDep"]
 
 router = APIRouter(route_class=ConsoleRoute, include_in_schema=False)
 
-STATIC = {"console.css": "text/css", "console.js": "text/javascript"}
+STATIC = {"console.css": "text/css", "console.js": "text/javascript", "icon.svg": "image/svg+xml"}
 
 
 def current_session(request: Request) -> ConsoleSession:

@@ -23,7 +23,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from storage.errors import NotFound
 
-from .sessions import BadForm, ConsoleSession, ReadOnly, SignInNeeded
+from .sessions import BadForm, ConsoleSession, ReadOnly, SignInNeeded, read_session
 
 __all__ = ["ConsoleRoute", "SECURITY_HEADERS", "render", "read_form", "maker_of", "see_other", "MAX_FORM_BYTES", "KIND_WORDS", "STATUS_WORDS"]
 
@@ -102,6 +102,14 @@ async def read_form(request: Request) -> dict[str, str]:
     return dict(parse_qsl(body.decode("utf-8", errors="replace"), keep_blank_values=True))
 
 
+def _signed_in(request: Request) -> ConsoleSession | None:
+    """The session, for the header of an error page (None when there is none)."""
+    try:
+        return read_session(request)
+    except SignInNeeded:
+        return None
+
+
 class ConsoleRoute(APIRoute):
     """A console route: security headers on every answer, sign-in and not-found pages."""
 
@@ -116,13 +124,13 @@ class ConsoleRoute(APIRoute):
                 response = see_other(f"/console/sign-in?next={quote(target, safe='/')}")
                 response.delete_cookie("bw_console", path="/console")
             except NotFound:
-                response = render(request, "not_found.html", None, status=404)
+                response = render(request, "not_found.html", _signed_in(request), status=404)
             except BadForm:
-                response = render(request, "refused.html", None, status=403,
+                response = render(request, "refused.html", _signed_in(request), status=403,
                                   reason="This form has expired or did not come from this console. "
                                   "Go back, reload the page and send it again.")
             except ReadOnly:
-                response = render(request, "refused.html", None, status=403,
+                response = render(request, "refused.html", _signed_in(request), status=403,
                                   reason="The key you signed in with may look but not start or cancel work. "
                                   "Sign in with a key that has the write scope.")
             for name, value in SECURITY_HEADERS.items():
