@@ -179,8 +179,7 @@ def draw_network(version: LoadedVersion, x: NDArray[Any], y: NDArray[Any], commu
     grouped = n > request.max_people
     drawn = _chosen(version, sizes, seed_ix, reached_ix, request.max_people) if grouped else np.arange(n)
     colour, legend = _colours(version, community, request.colour_by)
-    px = 20 + np.asarray(x, np.float64) * (SIZE - 40)
-    py = 20 + np.asarray(y, np.float64) * (SIZE - 40)
+    px, py = _fit(np.asarray(x, np.float64), np.asarray(y, np.float64), drawn)
     s = np.asarray(sizes, np.float64)
     top = float(np.nanmax(s[drawn])) if drawn.size and np.isfinite(s[drawn]).any() else 1.0
     rel = np.sqrt(np.clip(np.nan_to_num(s, nan=0.0), 0, None) / (top or 1.0))
@@ -217,6 +216,20 @@ def draw_network(version: LoadedVersion, x: NDArray[Any], y: NDArray[Any], commu
     out.append("</svg>")
     return Picture("\n".join(out), n, int(drawn.size), grouped, int(seed_ix.size), int(reached_ix.size),
                    legend, note)
+
+
+def _fit(x: NDArray[np.float64], y: NDArray[np.float64], drawn: NDArray[np.int64]) -> tuple[NDArray[Any], NDArray[Any]]:
+    """Picture coordinates: the middle 98% of the drawn people fill the square (aspect kept); the few
+    far-out ones (people with no tie, small separate groups) are pulled in to the edge."""
+    if drawn.size == 0:
+        return x, y
+    lo = np.array([np.quantile(x[drawn], 0.01), np.quantile(y[drawn], 0.01)])
+    hi = np.array([np.quantile(x[drawn], 0.99), np.quantile(y[drawn], 0.99)])
+    span = float((hi - lo).max()) or 1.0
+    mid = (lo + hi) / 2
+    fx = np.clip((x - mid[0]) / span, -0.52, 0.52) + 0.5
+    fy = np.clip((y - mid[1]) / span, -0.52, 0.52) + 0.5
+    return 40 + fx * (SIZE - 80), 40 + fy * (SIZE - 80)
 
 
 def _ties(version: LoadedVersion, drawn: NDArray[np.int64], px: NDArray[Any], py: NDArray[Any]) -> str:

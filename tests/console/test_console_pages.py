@@ -215,3 +215,40 @@ async def test_layout_svg_separates_two_cliques_and_marks_the_seeds(app_client: 
     assert {c.find(ns + "title").text for c in reached} >= {f"p{i}" for i in range(1, 6)}  # type: ignore[union-attr]
     r = await app_client.get(f"/v1/graphs/{gid}/versions/1/layout.svg", params={"size_by": "pagerank"}, headers=auth)
     assert r.status_code == 422 and "size_by must be one of degree" in r.json()["detail"]
+
+
+async def test_a_large_network_is_drawn_as_the_seeds_neighbourhood_and_community_circles(
+        app_client: httpx.AsyncClient, tmp_path: Path) -> None:
+    from service.cli.scenario import generate, write_csv
+
+    _, writer = make_key(app_client, "t1", ["read", "write"])
+    auth = {"Authorization": f"Bearer {writer}"}
+    edges, _ = write_csv(generate(400, seed=5), tmp_path / "files")
+    gid = str((await app_client.post("/v1/graphs", json={"name": "coop", "directed": False}, headers=auth)).json()["id"])
+    await app_client.post(f"/v1/graphs/{gid}/versions", params={"part": "edges"}, content=edges.read_bytes(),
+                          headers={**auth, "Content-Type": "text/csv"})
+    lay = (await app_client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "layout", "params": {}}, headers=auth)).json()
+    seeds = ["m00001", "m00100", "m00200"]
+    fc = (await app_client.post(f"/v1/graphs/{gid}/jobs", headers=auth, json={"kind": "forecast", "params": {
+        "seeds": seeds, "simulations": 100}})).json()
+    worker = worker_for(app_client)
+    await run_worker_once(worker)
+    await run_worker_once(worker)
+    communities = (await app_client.get(f"/v1/jobs/{lay['id']}/result", headers=auth)).json()["communities"]
+    r = await app_client.get(f"/v1/graphs/{gid}/versions/1/layout.svg", headers=auth,
+                             params={"forecast": fc["id"], "max_people": 100})
+    assert r.status_code == 200, r.text
+    root = ET.fromstring(r.text)
+    ns = "{http://www.w3.org/2000/svg}"
+    circles = [c for c in root.iter(ns + "circle") if c.find(ns + "title") is not None]
+    people = [c.find(ns + "title").text for c in circles if c.get("class") != "group"]  # type: ignore[union-attr]
+    groups = [c for c in circles if c.get("class") == "group"]
+    assert len(groups) == min(communities, 200)
+    assert sorted(c.get("data-id") for c in circles if c.get("class") == "seed") == seeds
+    # Source: NetworkX neighbours on the uploaded edge file: everyone drawn is a seed or a seed's contact
+    # (or among the likely-reached people of the forecast, who are themselves marked).
+    G = nx.read_edgelist(edges.read_text().splitlines()[1:], delimiter=",", data=(("weight", int),))
+    near = set(seeds).union(*(set(G[s]) for s in seeds))
+    reached = {c.find(ns + "title").text for c in circles if c.get("class") == "reached"}  # type: ignore[union-attr]
+    assert set(people) == near | reached and len(people) <= 100
+    assert "too many to draw one by one" in "".join(root.itertext())
