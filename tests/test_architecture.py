@@ -74,26 +74,11 @@ def py_files(folder: str) -> list[Path]:
     return sorted((ROOT / folder).rglob("*.py"))
 
 
-# Interim, while these kinds' params models move from their task modules into their use cases
-# and the rankings and recommendations routers move their logic into use cases.
-INTERIM = {("service/usecases/result_models.py", f"service.jobs.tasks.{k}")
-           for k in ("recommendations", "referral_asks", "link_evaluation", "shortlist")} | {
-    ("service/api/recommendations.py", "service.analytics.ties.recommend"),
-    ("service/api/recommendations.py", "service.jobs.tasks.referral_asks"),
-    ("service/api/recommendations.py", "service.analytics.ties.referrals"),
-    ("service/api/schemas/recommendations.py", "service.jobs.tasks.referral_asks"),
-    ("service/api/scores.py", "service.analytics.structure.centrality"),
-    ("service/api/scores.py", "sqlalchemy"),
-}
-
-
 @pytest.mark.parametrize("folder", sorted(set(FORBIDDEN) | set(FORBIDDEN_SERVICE)))
 def test_layers_import_only_what_they_may(folder: str) -> None:
     bad = []
     for f in py_files(folder):
         for name in imports_of(f):
-            if (f.relative_to(ROOT).as_posix(), name) in INTERIM:
-                continue
             top = name.split(".")[0]
             if top in FORBIDDEN.get(folder, ()):
                 bad.append(f"{f.relative_to(ROOT)} imports {name}")
@@ -107,8 +92,7 @@ def test_routers_run_no_sql() -> None:
     """Queries live in storage/repo; a router may name a Session type (sqlalchemy.orm) and nothing else."""
     bad = [f"{f.relative_to(ROOT)} imports {name}" for f in py_files("service/api") + py_files("service/console")
            for name in imports_of(f)
-           if name.split(".")[0] == "sqlalchemy" and name != "sqlalchemy.orm"
-           and (f.relative_to(ROOT).as_posix(), name) not in INTERIM]
+           if name.split(".")[0] == "sqlalchemy" and name != "sqlalchemy.orm"]
     assert not bad, "\n".join(bad)
 
 
@@ -207,14 +191,14 @@ def _runtime_imports(path: Path) -> set[str]:
 
 
 def test_the_cache_roof_imports_only_the_standard_library_and_numpy() -> None:
-    # service/usecases/caches.py sits under loader, indexes, diffusion_cache and rankings: it must
+    # service/usecases/caches.py sits under loading, indexes, diffusion_inputs and the ranking tables: it must
     # import none of them (or the database, HTTP or settings) when it is loaded.
     allowed_top = {"__future__", "dataclasses", "threading", "collections", "concurrent", "typing", "numpy"}
     bad = sorted(n for n in _runtime_imports(ROOT / "service/usecases/caches.py") if n.split(".")[0] not in allowed_top)
     assert not bad, bad
 
 
-@pytest.mark.parametrize("module", ["loading", "diffusion_inputs"])
+@pytest.mark.parametrize("module", ["loading", "diffusion_inputs", "_ranking_tables", "indexes"])
 def test_per_process_caches_live_under_the_one_roof(module: str) -> None:
     # A cache is a NamedCache of service.usecases.caches (one store, one byte bound), never a module's
     # own dictionary and lock.

@@ -11,6 +11,7 @@ string ids live one layer up and never enter this package.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Literal, NamedTuple
 
@@ -24,6 +25,7 @@ if TYPE_CHECKING:
 
 __all__ = [
     "GraphArrays",
+    "from_edges",
     "NodeAttributes",
     "Arcs",
     "Csr",
@@ -82,6 +84,55 @@ class GraphArrays:
     @property
     def weighted(self) -> bool:
         return bool(self.m) and not bool(np.all(self.weight == 1.0))
+
+
+def from_edges(
+    edges: Sequence[tuple[int, int]],
+    *,
+    n: int | None = None,
+    directed: bool = False,
+    weights: Sequence[float] | None = None,
+    probabilities: Sequence[float] | None = None,
+) -> GraphArrays:
+    """A :class:`GraphArrays` from ``(u, v)`` pairs of node indices, for small graphs.
+
+    Parameters
+    ----------
+    edges : pairs of node indices in ``0..n-1``; each edge at most once (for an
+        undirected graph, ``(u, v)`` and ``(v, u)`` are the same edge).
+    n : number of nodes; default one more than the largest index (isolated
+        nodes at the end need ``n``).
+    directed : whether each pair is an arc ``u -> v``.
+    weights, probabilities : one value per edge (default: weight 1, no probabilities).
+
+    Raises
+    ------
+    InvalidParameter
+        A negative or too large index, a repeated edge, or a list of the wrong length.
+
+    Examples
+    --------
+    >>> g = from_edges([(0, 1), (1, 2)], n=4)
+    >>> g.n, g.m, g.directed, g.src.tolist(), g.weight.tolist()
+    (4, 2, False, [0, 1], [1.0, 1.0])
+    """
+    pairs = np.asarray(list(edges), dtype=np.int64).reshape(-1, 2)
+    size = int(pairs.max()) + 1 if pairs.size else 0
+    n = size if n is None else int(n)
+    if pairs.size and (pairs.min() < 0 or size > n):
+        raise InvalidParameter(f"node indices must lie in 0..{n - 1}", field="edges")
+    keys = pairs if directed else np.sort(pairs, axis=1)
+    if len(np.unique(keys, axis=0)) != len(keys):
+        raise InvalidParameter("an edge is listed more than once", field="edges")
+    m = len(pairs)
+    for name, values in (("weights", weights), ("probabilities", probabilities)):
+        if values is not None and len(values) != m:
+            raise InvalidParameter(f"{name} needs one value per edge ({m})", field=name)
+    return GraphArrays(
+        n, directed, pairs[:, 0].astype(np.int32), pairs[:, 1].astype(np.int32),
+        np.ones(m) if weights is None else np.asarray(weights, dtype=np.float64),
+        None if probabilities is None else np.asarray(probabilities, dtype=np.float64),
+    )
 
 
 @dataclass(frozen=True, eq=False)
@@ -156,8 +207,7 @@ def to_igraph(g: GraphArrays, *, weights: bool = True) -> igraph.Graph:
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2], np.int32),
-    ...                 np.array([1, 2, 3], np.int32), np.ones(3))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 3)])
     >>> to_igraph(g).ecount()
     3
     """
@@ -177,7 +227,7 @@ def arcs(g: GraphArrays) -> Arcs:
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(2, False, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)])
     >>> a = arcs(g); a.src.tolist(), a.dst.tolist()
     ([0, 1], [1, 0])
     """
@@ -265,8 +315,7 @@ def edge_probabilities(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([2, 2], np.int32),
-    ...                 np.array([1.0, 3.0]))
+    >>> g = from_edges([(0, 2), (1, 2)], directed=True, weights=[1.0, 3.0])
     >>> edge_probabilities(arcs(g), "weighted_cascade").tolist()
     [0.5, 0.5]
     >>> edge_probabilities(arcs(g), "normalized").tolist()
@@ -305,7 +354,7 @@ def check_lt_weights(a: Arcs, probs: NDArray[np.float64], *, tol: float = 1e-9) 
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([2, 2], np.int32), np.ones(2))
+    >>> g = from_edges([(0, 2), (1, 2)], directed=True)
     >>> check_lt_weights(arcs(g), np.array([0.5, 0.5]))
     """
     total = np.bincount(a.dst, weights=probs, minlength=a.n)
@@ -365,7 +414,7 @@ def diffusion_graph(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 0], np.int32), np.array([1, 2], np.int32), np.ones(2))
+    >>> g = from_edges([(0, 1), (0, 2)], directed=True)
     >>> dg = diffusion_graph(g, scheme="uniform", p=0.5)
     >>> dg.out_indptr.tolist(), dg.in_indptr.tolist()
     ([0, 2, 2, 2], [0, 0, 1, 2])

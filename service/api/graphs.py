@@ -20,7 +20,7 @@ from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep, require_graph
 from .errors import InvalidParams, UnsupportedMediaType
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.graphs import GraphCreate, GraphPage, GraphRead, VersionList, VersionRead
-from .spool import spool_body
+from .spool import FORMATS, UPLOAD_BODY, media_type, spool_body
 
 __all__ = ["router"]
 
@@ -28,17 +28,6 @@ router = APIRouter(prefix="/v1/graphs", tags=["graphs"], responses=PROBLEM_RESPO
 
 IdemKey = Annotated[str | None, Header(alias="Idempotency-Key", max_length=200)]
 
-FORMATS = {
-    "text/csv": "csv",
-    "application/csv": "csv",
-    "application/x-ndjson": "ndjson",
-    "application/ndjson": "ndjson",
-    "application/jsonl": "ndjson",
-    "application/json": "json",
-    "application/graphml+xml": "graphml",
-    "application/xml": "graphml",
-    "text/xml": "graphml",
-}
 
 
 def graph_read(g: object) -> GraphRead:
@@ -123,22 +112,6 @@ def delete_graph(graph_id: str, db: WriteDbDep, tenant: TenantDep) -> Response:
     return Response(status_code=status.HTTP_204_NO_CONTENT)
 
 
-UPLOAD_BODY = {
-    "requestBody": {
-        "required": True,
-        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML. A JSON file is an "
-        "array of records, or an object whose `edges` (or `nodes`) member is that array. (CSV is listed "
-        "last so that clients generated from this document, which pick the last file type they know, "
-        "send CSV.)",
-        "content": {
-            # Declared as the object form only: generated clients cannot tell an array body from a file.
-            "application/json": {"schema": {"type": "object", "additionalProperties": True}},
-            "application/graphml+xml": {"schema": {"type": "string", "format": "binary"}},
-            "application/x-ndjson": {"schema": {"type": "string", "format": "binary"}},
-            "text/csv": {"schema": {"type": "string", "format": "binary"}},
-        },
-    }
-}
 
 
 @router.post(
@@ -235,17 +208,6 @@ def list_versions(graph_id: str, db: DbDep, tenant: TenantDep) -> VersionList:
 def read_version(graph_id: str, number: str, db: DbDep, tenant: TenantDep) -> VersionRead:
     graph = graph_repo.get_graph(db, tenant, graph_id)
     return version_read(graph.id, graph_repo.get_version(db, graph, parse_version(number)))
-
-
-def media_type(header: str | None) -> tuple[str, str | None]:
-    """``"text/csv; charset=windows-1252"`` -> ``("text/csv", "windows-1252")`` (RFC 9110 section 8.3.1)."""
-    ctype, *params = (header or "").split(";")
-    charset = None
-    for param in params:
-        name, _, value = param.partition("=")
-        if name.strip().lower() == "charset":
-            charset = value.strip().strip('"') or None
-    return ctype.strip().lower(), charset
 
 
 def parse_version(number: str | int | None) -> int | None:

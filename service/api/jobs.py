@@ -13,23 +13,21 @@ from fastapi.concurrency import run_in_threadpool
 from fastapi.responses import JSONResponse
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.jobs import queueing, registry, webhooks
+from service.jobs import queueing, registry
 from service.jobs.clock import Clock, SystemClock
-from service.jobs.errors import ResultNotReady
-from storage.models import FINISHED_STATUSES, Job, JobResult
+from storage.models import FINISHED_STATUSES, Job
 from storage.repo import jobs as job_repo
-from storage.repo import results as result_repo
 
 from service.settings import Settings
 
 from .deps import DbDep, SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams
-from .rendering import round_document
+from .rendering import result_response
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.results import JobResult as JobResultDocument
 from .schemas.jobs import JobCreate, JobKindList, JobKindRead, JobPage, JobRead, JobStatus
 
-__all__ = ["router", "clock_of", "queue_limits", "result_response", "etag_matches"]
+__all__ = ["router", "clock_of", "maker_of", "queue_limits"]
 
 router = APIRouter(tags=["jobs"], responses=PROBLEM_RESPONSES)
 
@@ -178,53 +176,13 @@ async def read_job(
     responses={202: {"description": "Cancellation requested; the running job stops at its next progress point"}},
 )
 def cancel_job(job_id: str, request: Request, tenant: TenantDep) -> JSONResponse:
-    now = clock_of(request).now()
-    with job_repo.write_session(maker_of(request)) as db:
-        job, ended = job_repo.cancel(db, tenant, job_id, now)
-        if ended:
-            webhooks.queue_job_event(db, job, now)
-        db.commit()
+    maker = maker_of(request)
+    job = queueing.cancel_job(lambda: job_repo.write_session(maker), tenant, job_id, now=clock_of(request).now())
     code = status.HTTP_202_ACCEPTED if job.status == "running" else status.HTTP_200_OK
     return JSONResponse(JobRead.from_job(job).model_dump(mode="json"), status_code=code)
 
 
-def etag_matches(if_none_match: str | None, etag: str) -> bool:
-    """Weak comparison (RFC 9110 13.1.2), as If-None-Match uses."""
-    if not if_none_match:
-        return False
-    if if_none_match.strip() == "*":
-        return True
-    bare = etag.removeprefix("W/")
-    return any(tag.strip().removeprefix("W/") == bare for tag in if_none_match.split(","))
-
-
-def result_body(job: Job, result: JobResult) -> dict[str, Any]:
-    """The result document as callers see it: stored figures rounded to what they mean."""
-    return {
-        "job_id": job.id,
-        "created_at": result.created_at.isoformat(),
-        "arrays": result.manifest,
-        **round_document(result.data),
-    }
-
-
-def result_response(job: Job, result: JobResult, if_none_match: str | None, *, weak: bool) -> Response:
-    etag = f'{"W/" if weak else ""}"{result.etag}"'
-    headers = {"ETag": etag, "Cache-Control": "no-cache"}
-    if etag_matches(if_none_match, etag):
-        return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
-    return JSONResponse(result_body(job, result), headers=headers)
-
-
 @router.get("/v1/jobs/{job_id}/result", summary="Read a succeeded job's result", responses=RESULT_RESPONSES)
 def read_job_result(job_id: str, db: DbDep, tenant: TenantDep, if_none_match: IfNoneMatch = None) -> Response:
-    job = job_repo.get_job(db, tenant, job_id)
-    if job.status != "succeeded":
-        hint = {
-            "queued": "it is queued; poll GET /v1/jobs/{id}?wait=30",
-            "running": "it is still running; poll GET /v1/jobs/{id}?wait=30",
-            "failed": "it failed; see the job's error",
-            "cancelled": "it was cancelled",
-        }[job.status].replace("{id}", job.id)
-        raise ResultNotReady(f"job {job.id} has no result: {hint}", job_id=job.id, job_status=job.status)
-    return result_response(job, result_repo.get_result(db, job.id), if_none_match, weak=False)
+    job, result = queueing.read_result(db, tenant, job_id)
+    return result_response(job, result, if_none_match, weak=False)

@@ -22,6 +22,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from service.analytics import errors as aerr
 from service.intake import errors as ierr
 from service.jobs import errors as jerr
+from service.usecases import errors as uerr
 from storage import errors as serr
 
 from . import errors as apierr
@@ -71,7 +72,7 @@ PROBLEM_STATUS: dict[type[Exception], int] = {
     jerr.InvalidJobParams: 422,
     jerr.UnsafeWebhookUrl: 422,
     jerr.InvalidSchedule: 422,
-    jerr.ResultNotReady: 404,
+    uerr.ResultNotReady: 404,
     jerr.TooManyJobs: 429,
     apierr.BadRequest: 400,
     apierr.InvalidParams: 422,

@@ -1,6 +1,7 @@
-"""Introductions for a person, next contacts and referral asks, and CSV exports of batch results.
+"""Introductions for a person, and next contacts for a campaign in flight: the HTTP doors of
+:mod:`service.usecases.recommendations` and :mod:`service.usecases.next_contacts`.
 
-Both recommendation routes answer synchronously. The first request on a
+Both answer synchronously, on the bounded compute pool. The first request on a
 version builds its neighbour index (and, for next contacts, the arc
 probabilities of the model asked for) and keeps it for the process; later
 requests touch only the person's or the adopters' neighbourhoods.
@@ -9,63 +10,38 @@ requests touch only the person's or the adopters' neighbourhoods.
 from __future__ import annotations
 
 import asyncio
-import csv
-import hashlib
-import io
-import json
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from typing import Annotated, Any, TypeVar
 
-import numpy as np
-from fastapi import APIRouter, Depends, Header, HTTPException, Query, Request, Response, status
+from fastapi import APIRouter, Depends, Header, Query, Request, Response, status
 from fastapi.exceptions import RequestValidationError
-from fastapi.responses import JSONResponse, StreamingResponse
+from fastapi.responses import JSONResponse
 from pydantic import ValidationError
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.analytics.errors import UnknownNode
-from service.analytics.ties.recommend import Recommendation, recommend_for
-from service.analytics.ties.referrals import NextContact, next_contacts, referral_asks
-from service.usecases.diffusion_inputs import diffusion_graph_for
-from service.indexes import compute_pool, follow_on_for, neighbour_index_for
-from service.jobs import registry
-from service.jobs.errors import ResultNotReady
-from service.jobs.tasks.referral_asks import contact_reason, exposure_explained
-from service.usecases.loading import LoadedVersion, load_version
-from service.rankings import safe_cell
-from storage.errors import NotFound
-from storage.repo import graphs as graph_repo
-from storage.repo import jobs as job_repo
-from storage.repo import results as result_repo
+from service.usecases import next_contacts as contacts
+from service.usecases import recommendations as introductions
+from service.usecases.indexes import compute_pool
 
 from .deps import SettingsDep, TenantDep, require_graph
 from .errors import InvalidParams, PayloadTooLarge, UnsupportedMediaType
 from .graphs import parse_version
-from .jobs import etag_matches
+from .etags import etag_matches
 from .node_ids import node_route
-from .rendering import round_document, round_cell
+from .rendering import round_document
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.recommendations import (
-    METHOD_ALIASES,
+    NEXT_CONTACTS_BODY,
     Method,
     NextContactsPage,
     NextContactsRequest,
     RecommendationPage,
 )
 
-__all__ = ["csv_cell", "router"]
+__all__ = ["router"]
 
 router = APIRouter(tags=["recommendations"], responses=PROBLEM_RESPONSES)
-
-IfNoneMatch = Annotated[str | None, Header(alias="If-None-Match")]
 T = TypeVar("T")
-
-# Bumped whenever the ranking or the answer's shape changes, so old ETags stop matching.
-ETAG_SALT = "recommendations/1"
-
-def _csv_exports() -> dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]]:
-    """Job kinds whose result can be exported as CSV, and how (each kind declares its ``csv``)."""
-    return {k.name: k.csv for k in registry.REGISTRY.values() if k.csv is not None}
 
 
 def _maker(request: Request) -> sessionmaker[Session]:
@@ -74,37 +50,8 @@ def _maker(request: Request) -> sessionmaker[Session]:
 
 
 async def _compute(fn: Callable[[], T]) -> T:
-    """Run ``fn`` on the bounded compute pool (see service.indexes), off the event loop."""
+    """Run ``fn`` on the bounded compute pool (see service.usecases.indexes), off the event loop."""
     return await asyncio.get_running_loop().run_in_executor(compute_pool(), fn)
-
-
-def _etag(*parts: object) -> str:
-    digest = hashlib.sha256(json.dumps([ETAG_SALT, *parts], default=str).encode()).hexdigest()
-    return f'"{digest[:40]}"'
-
-
-def _version(db: Session, tenant: str, graph_id: str, version: object) -> tuple[Any, Any]:
-    graph = graph_repo.get_graph(db, tenant, graph_id)
-    return graph, graph_repo.get_version(db, graph, parse_version(version))  # type: ignore[arg-type]
-
-
-# -- introductions -------------------------------------------------------------------
-
-
-def _recommendation_items(v: LoadedVersion, recs: list[Recommendation]) -> list[dict[str, Any]]:
-    ids = v.ids
-    return [
-        {
-            "node_id": ids[r.candidate],
-            "score": r.score,
-            "common": r.common,
-            "shared_contacts": [
-                {"node_id": ids[s.node], "tie_to_person": s.tie_to_person, "tie_to_candidate": s.tie_to_candidate}
-                for s in r.shared
-            ],
-        }
-        for r in recs
-    ]
 
 
 @node_route(
@@ -134,41 +81,21 @@ async def list_recommendations(
     contactable: Annotated[bool, Query(description="Only people with contact consent.")] = False,
     version: Annotated[str | None, Query(description="Version number or 'latest' (default).")] = None,
     explain: Annotated[int, Query(ge=0, le=20, description="Shared contacts per recommendation.")] = 3,
-    if_none_match: IfNoneMatch = None,
+    if_none_match: Annotated[str | None, Header(alias="If-None-Match")] = None,
 ) -> Response:
+    query = introductions.PersonQuery(graph_id, node_id, method=method, limit=limit, contactable=contactable,
+                                      explain=explain, version=parse_version(version))
     maker = _maker(request)
-    name = METHOD_ALIASES.get(method, method)
 
     def work() -> Response:
-        with maker() as db:
-            graph, ver = _version(db, tenant, graph_id, version)
-            etag = _etag(ver.id, node_id, name, limit, contactable, explain)
-            headers = {"ETag": etag, "Cache-Control": "no-cache"}
-            if etag_matches(if_none_match, etag):
-                return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
-            loaded = load_version(db, ver)
-        node = loaded.index.get(node_id)
-        if node is None:
-            raise NotFound(
-                f"node {node_id!r} is not in version {ver.number} of this graph", resource="node", id=node_id
-            )
-        index = neighbour_index_for(ver.id, loaded.graph)
-        eligible = loaded.attrs.contactable() if contactable else None
-        recs = recommend_for(index, node, method=name, limit=limit, eligible=eligible, explain=explain)
-        body = {
-            "graph_id": graph.id,
-            "version": ver.number,
-            "node_id": node_id,
-            "method": name,
-            "contactable": contactable,
-            "items": _recommendation_items(loaded, recs),
-        }
-        return JSONResponse(round_document(body), headers=headers)
+        answer = introductions.recommend_for_person(
+            maker, tenant, query, is_current=lambda etag: etag_matches(if_none_match, etag))
+        headers = {"ETag": answer.etag, "Cache-Control": "no-cache"}
+        if answer.document is None:
+            return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
+        return JSONResponse(round_document(answer.document), headers=headers)
 
     return await _compute(work)
-
-
-# -- next contacts and referral asks ----------------------------------------------
 
 
 async def _read_body(request: Request, limit: int) -> bytes:
@@ -184,77 +111,9 @@ async def _read_body(request: Request, limit: int) -> bytes:
     return b"".join(chunks)
 
 
-def _csv_ids(raw: bytes, column: str) -> list[str]:
-    """The ``column`` values of a CSV with a header row (RFC 4180), blank lines skipped."""
-    try:
-        text = raw.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise InvalidParams("the CSV body is not UTF-8", field="body") from exc
-    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
-    try:
-        header = next(reader, None)
-        if header is None:
-            raise InvalidParams(f"the CSV body is empty; send a header row with an {column!r} column", field="body")
-        names = [h.strip() for h in header]
-        if column not in names:
-            raise InvalidParams(
-                f"the CSV header has no {column!r} column (columns: {', '.join(names)})", field="body", line=1
-            )
-        at = names.index(column)
-        out = []
-        for row in reader:
-            if not row or row == [""]:
-                continue
-            if at >= len(row):
-                raise InvalidParams(f"line {reader.line_num} has no {column!r} value", field="body", line=reader.line_num)
-            out.append(row[at])
-        return out
-    except csv.Error as exc:
-        raise InvalidParams(f"line {reader.line_num}: {exc}", field="body", line=reader.line_num) from exc
-
-
 def _validation(exc: ValidationError, prefix: tuple[str, ...]) -> RequestValidationError:
     errors = [{**e, "loc": (*prefix, *e["loc"])} for e in exc.errors(include_url=False, include_context=False)]
     return RequestValidationError(errors)
-
-
-def _contact_items(
-    cs: list[NextContact] | tuple[NextContact, ...], v: LoadedVersion, model: str, follow_on: str | None,
-    blend: float,
-) -> list[dict[str, Any]]:
-    ids, labels = v.ids, v.labels
-    return [
-        {
-            "node_id": ids[c.node],
-            "label": labels[c.node] or None,
-            "exposure": c.exposure,
-            "score": c.score,
-            "adopter_contacts": c.adopter_contacts,
-            "ask": None if c.ask < 0 else {
-                "node_id": ids[c.ask], "label": labels[c.ask] or None, "tie_strength": c.ask_tie,
-                "probability": c.ask_probability,
-            },
-            "reason": contact_reason(c, ids, model, follow_on, blend),
-        }
-        for c in cs
-    ]
-
-
-NEXT_CONTACTS_BODY = {
-    "requestBody": {
-        "required": True,
-        "description": (
-            "JSON (the options below), or for long adopter lists `text/csv` with a header row and an "
-            "`id` column (rename with the `id` query parameter), the options then given as query "
-            "parameters (`scheme`, `p`, `q` for the probability model)."
-        ),
-        "content": {
-            "application/json": {"schema": NextContactsRequest.model_json_schema(
-                ref_template="#/components/schemas/{model}")},
-            "text/csv": {"schema": {"type": "string"}, "example": "id\nm00001\nm00042\n"},
-        },
-    }
-}
 
 
 @router.post(
@@ -320,7 +179,7 @@ async def create_next_contacts(
         except ValidationError as exc:
             raise _validation(exc, ("body",)) from exc
     else:
-        ids = await asyncio.to_thread(_csv_ids, raw, id or "id")
+        ids = await asyncio.to_thread(contacts.read_adopter_ids, raw, id or "id")
         if options.get("limit") == "all":
             options["limit"] = None
         if "version" in options and options["version"] != "latest":
@@ -331,139 +190,7 @@ async def create_next_contacts(
             req = NextContactsRequest.model_validate({**options, "adopters": ids})
         except ValidationError as exc:
             raise _validation(exc, ("query",)) from exc
+    query = contacts.AdopterQuery(**{**dict(req), "graph_id": graph_id, "adopters": tuple(req.adopters),
+                                     "version": parse_version(req.version)})
     maker = _maker(request)
-    return await _compute(lambda: _next_contacts(maker, tenant, graph_id, req))
-
-
-def _next_contacts(maker: sessionmaker[Session], tenant: str, graph_id: str, req: NextContactsRequest) -> Response:
-    with maker() as db:
-        graph, ver = _version(db, tenant, graph_id, req.version)
-        loaded = load_version(db, ver)
-    lookup = loaded.index
-    got = [lookup.get(s, -1) for s in req.adopters]
-    idx = np.asarray(got, dtype=np.int64)
-    unknown: list[str] = []
-    if (idx < 0).any():
-        unknown = list(dict.fromkeys(s for s, i in zip(req.adopters, got) if i < 0))
-        if req.strict:
-            shown = ", ".join(repr(s) for s in unknown[:5])
-            raise UnknownNode(
-                f"{len(unknown)} adopter id{'s are' if len(unknown) != 1 else ' is'} not in version "
-                f"{ver.number} of this graph: {shown}{' ...' if len(unknown) > 5 else ''}",
-                field="adopters", unknown=unknown[:20], unknown_count=len(unknown),
-            )
-        idx = idx[idx >= 0]
-    adopters = np.unique(idx)
-    pr = req.probability
-    dg = diffusion_graph_for(ver.id, loaded.graph, model=req.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                             random_seed=req.random_seed)
-    index = neighbour_index_for(ver.id, loaded.graph)
-    ok = loaded.attrs.contactable()
-    blend = req.blend if req.blend is not None else (0.5 if req.follow_on else 0.0)
-    values = follow_on_for(ver.id, loaded.graph, req.follow_on) if req.follow_on else None
-    body: dict[str, Any] = {
-        "graph_id": graph.id,
-        "version": ver.number,
-        "model": req.model,
-        "probability": pr.model_dump(),
-        "follow_on": req.follow_on,
-        "blend": blend,
-        "adopters": int(adopters.shape[0]),
-        "unknown_adopters": {"count": len(unknown), "examples": unknown[:20]} if unknown else None,
-        "group_by": req.group_by,
-        "exposure_explained": exposure_explained(req.model, pr.scheme),
-    }
-    ids, labels = loaded.ids, loaded.labels
-    if req.group_by == "adopter":
-        groups = referral_asks(dg, adopters, index=index, eligible=ok, askers=ok, follow_on=values,
-                               blend=blend, per_adopter=req.per_adopter, limit=req.limit)
-        body["groups"] = [
-            {
-                "adopter": ids[g.adopter],
-                "adopter_label": labels[g.adopter] or None,
-                "expected_referrals": g.expected_referrals,
-                "targets": _contact_items(g.targets, loaded, req.model, req.follow_on, blend),
-            }
-            for g in groups
-        ]
-    else:
-        cs = next_contacts(dg, adopters, index=index, eligible=ok, askers=ok, follow_on=values,
-                           blend=blend, limit=req.limit)
-        body["items"] = _contact_items(cs, loaded, req.model, req.follow_on, blend)
-    return JSONResponse(round_document(body))
-
-
-# -- CSV exports of batch results ----------------------------------------------------
-
-
-def csv_cell(value: object) -> str:
-    """One CSV cell; text a spreadsheet would run as a formula gets a leading apostrophe."""
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, float):
-        return repr(value) if np.isfinite(value) else ""
-    if isinstance(value, int):
-        return str(value)
-    return safe_cell(str(value)) or ""
-
-
-def _csv_stream(header: list[str], rows: Iterator[list[Any]], batch: int = 2000) -> Iterator[str]:
-    buf = io.StringIO()
-    writer = csv.writer(buf, lineterminator="\r\n")
-    writer.writerow(header)
-    for i, row in enumerate(rows, 1):
-        writer.writerow([csv_cell(round_cell(v, col)) for v, col in zip(row, header)])
-        if i % batch == 0:
-            yield buf.getvalue()
-            buf.seek(0)
-            buf.truncate()
-    yield buf.getvalue()
-
-
-@router.get(
-    "/v1/jobs/{job_id}/result.csv",
-    summary="Export a succeeded job's result as CSV (shortlist, forecast, recommendations, referral_asks, "
-    "link_evaluation)",
-    response_class=StreamingResponse,
-    responses={
-        200: {"content": {"text/csv": {}}, "description": "RFC 4180 CSV with a header row."},
-        304: {"description": "Not modified (If-None-Match matched the ETag)."},
-        406: {"description": "This job kind has no CSV export.", "content": {"application/problem+json": {}}},
-    },
-)
-async def read_job_result_csv(
-    job_id: str, request: Request, tenant: TenantDep, if_none_match: IfNoneMatch = None
-) -> Response:
-    maker = _maker(request)
-
-    def prepare() -> Response:
-        with maker() as db:
-            job = job_repo.get_job(db, tenant, job_id)
-            exports = _csv_exports()
-            render = exports.get(job.kind)
-            if render is None:
-                raise HTTPException(
-                    status.HTTP_406_NOT_ACCEPTABLE,
-                    f"jobs of kind {job.kind!r} have no CSV export; kinds with one: {', '.join(sorted(exports))}",
-                )
-            if job.status != "succeeded":
-                raise ResultNotReady(f"job {job.id} has no result: it is {job.status}", job_id=job.id,
-                                     job_status=job.status)
-            result = result_repo.get_result(db, job.id)
-            etag = f'"{result.etag}-csv"'
-            headers = {
-                "ETag": etag,
-                "Cache-Control": "no-cache",
-                "Content-Disposition": f'attachment; filename="{job.kind}-{job.id}.csv"',
-            }
-            if etag_matches(if_none_match, etag):
-                return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
-            arrays = result_repo.get_result_arrays(db, result)
-            graph = graph_repo.get_graph(db, tenant, job.graph_id or "")
-            loaded = load_version(db, graph_repo.get_version(db, graph, job.version))
-            header, rows = render(loaded, result.data, arrays)
-        return StreamingResponse(_csv_stream(header, rows), media_type="text/csv; charset=utf-8", headers=headers)
-
-    return await _compute(prepare)
+    return await _compute(lambda: JSONResponse(round_document(contacts.next_contacts_for(maker, tenant, query))))

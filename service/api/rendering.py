@@ -19,9 +19,20 @@ Integers pass unchanged; so does ``params``, the caller's own input echoed back.
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-__all__ = ["PEOPLE_FIELDS", "MONEY_FIELDS", "kind_of", "round_cell", "round_document", "round_value"]
+from fastapi import Response, status
+from fastapi.responses import JSONResponse
+
+from .etags import etag_matches
+
+if TYPE_CHECKING:
+    from storage.models import Job, JobResult
+
+__all__ = [
+    "PEOPLE_FIELDS", "MONEY_FIELDS", "kind_of", "round_cell", "round_document", "round_value", "result_body",
+    "result_response",
+]
 
 #: Fields (and CSV columns) that count people or expected reach: one decimal.
 PEOPLE_FIELDS = frozenset({
@@ -92,3 +103,24 @@ def round_cell(value: object, column: str) -> object:
     if isinstance(value, float) and not isinstance(value, bool):
         return round_value(value, kind_of(column))
     return value
+
+
+# -- a job's result as an answer ------------------------------------------------------
+
+
+def result_body(job: Job, result: JobResult) -> dict[str, Any]:
+    """The result document as callers see it: stored figures rounded to what they mean."""
+    return {
+        "job_id": job.id,
+        "created_at": result.created_at.isoformat(),
+        "arrays": result.manifest,
+        **round_document(result.data),
+    }
+
+
+def result_response(job: Job, result: JobResult, if_none_match: str | None, *, weak: bool) -> Response:
+    etag = f'{"W/" if weak else ""}"{result.etag}"'
+    headers = {"ETag": etag, "Cache-Control": "no-cache"}
+    if etag_matches(if_none_match, etag):
+        return Response(status_code=status.HTTP_304_NOT_MODIFIED, headers=headers)
+    return JSONResponse(result_body(job, result), headers=headers)

@@ -20,13 +20,8 @@ from storage.repo import schedules as schedule_repo
 
 from .deps import DbDep, SettingsDep, TenantDep
 from .errors import InvalidParams
-from .jobs import (
-    RESULT_RESPONSES,
-    IfNoneMatch,
-    clock_of,
-    maker_of,
-    result_response,
-)
+from .jobs import RESULT_RESPONSES, IfNoneMatch, clock_of, maker_of
+from .rendering import result_response
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.schedules import ScheduleCreate, SchedulePage, ScheduleRead
 

@@ -1,4 +1,4 @@
-"""Stream a request body to a temporary file, enforcing the size limit.
+"""Upload bodies: what a body may be (media types, the OpenAPI request body) and spooling it to disk.
 
 Memory stays bounded whatever the body's size: chunks go straight to disk,
 and a body cut off half-way (client gone) leaves only a file that is removed.
@@ -18,7 +18,7 @@ from starlette.requests import ClientDisconnect
 
 from .errors import BadRequest, PayloadTooLarge
 
-__all__ = ["Spooled", "spool_body", "remove_stale_spool", "STALE_SPOOL_SECONDS"]
+__all__ = ["Spooled", "spool_body", "remove_stale_spool", "STALE_SPOOL_SECONDS", "FORMATS", "UPLOAD_BODY", "media_type"]
 
 # A spool file this old belongs to no live upload (a killed process left it).
 STALE_SPOOL_SECONDS = 6 * 3600
@@ -82,3 +82,47 @@ def remove_stale_spool(folder: Path, *, older_than: float = STALE_SPOOL_SECONDS)
         except FileNotFoundError:
             continue
     return removed
+
+
+# -- what an upload body is ----------------------------------------------------------
+
+FORMATS = {
+    "text/csv": "csv",
+    "application/csv": "csv",
+    "application/x-ndjson": "ndjson",
+    "application/ndjson": "ndjson",
+    "application/jsonl": "ndjson",
+    "application/json": "json",
+    "application/graphml+xml": "graphml",
+    "application/xml": "graphml",
+    "text/xml": "graphml",
+}
+
+
+UPLOAD_BODY = {
+    "requestBody": {
+        "required": True,
+        "description": "The file: CSV (RFC 4180, header row), NDJSON, JSON or GraphML. A JSON file is an "
+        "array of records, or an object whose `edges` (or `nodes`) member is that array. (CSV is listed "
+        "last so that clients generated from this document, which pick the last file type they know, "
+        "send CSV.)",
+        "content": {
+            # Declared as the object form only: generated clients cannot tell an array body from a file.
+            "application/json": {"schema": {"type": "object", "additionalProperties": True}},
+            "application/graphml+xml": {"schema": {"type": "string", "format": "binary"}},
+            "application/x-ndjson": {"schema": {"type": "string", "format": "binary"}},
+            "text/csv": {"schema": {"type": "string", "format": "binary"}},
+        },
+    }
+}
+
+
+def media_type(header: str | None) -> tuple[str, str | None]:
+    """``"text/csv; charset=windows-1252"`` -> ``("text/csv", "windows-1252")`` (RFC 9110 section 8.3.1)."""
+    ctype, *params = (header or "").split(";")
+    charset = None
+    for param in params:
+        name, _, value = param.partition("=")
+        if name.strip().lower() == "charset":
+            charset = value.strip().strip('"') or None
+    return ctype.strip().lower(), charset

@@ -13,13 +13,12 @@ from collections.abc import Iterator
 from typing import Any
 
 from fastapi import APIRouter, Request, Response
-from fastapi.responses import JSONResponse, StreamingResponse
+from fastapi.responses import JSONResponse
 
 from service.api.rendering import round_cell, round_document
-from service.jobs import registry, webhooks
+from service.api.result_exports import csv_cell
+from service.jobs import queueing, registry
 from service.jobs.clock import SystemClock
-from service.rankings import safe_cell
-from service.usecases.loading import load_version
 from storage.errors import NotFound
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
@@ -76,12 +75,8 @@ def job_page(job_id: str, request: Request, session: SessionDep) -> Response:
 @router.post("/console/jobs/{job_id}/cancel")
 async def cancel_job(job_id: str, request: Request, session: WriterDep) -> Response:
     check_csrf(session, (await read_form(request)).get("csrf"))
-    now = SystemClock().now()
-    with job_repo.write_session(maker_of(request)) as db:
-        job, ended = job_repo.cancel(db, session.tenant_id, job_id, now)
-        if ended:
-            webhooks.queue_job_event(db, job, now)
-        db.commit()
+    maker = maker_of(request)
+    queueing.cancel_job(lambda: job_repo.write_session(maker), session.tenant_id, job_id, now=SystemClock().now())
     return see_other(f"/console/jobs/{job_id}")
 
 
@@ -96,41 +91,23 @@ def job_plot(job_id: str, name: str, request: Request, session: SessionDep) -> R
     return Response(svg, media_type="image/svg+xml", headers={"Cache-Control": "private, max-age=300"})
 
 
-def _csv_text(header: list[str], rows: Iterator[list[Any]]) -> Iterator[str]:
+def _csv_text(header: list[str], rows: Iterator[list[Any]]) -> str:
+    """The CSV as the API exports it: rounded by column, formula-like text defused."""
     buf = io.StringIO()
     out = csv.writer(buf, lineterminator="\r\n")
     out.writerow(header)
-    for i, row in enumerate(rows, 1):
-        out.writerow([_cell(round_cell(v, col)) for v, col in zip(row, header)])
-        if i % 2000 == 0:
-            yield buf.getvalue()
-            buf.seek(0)
-            buf.truncate()
-    yield buf.getvalue()
-
-
-def _cell(value: object) -> str:
-    """Text a spreadsheet would run as a formula gets a leading apostrophe, as in the API's exports."""
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, (int, float)):
-        return str(value)
-    return safe_cell(str(value)) or ""
+    for row in rows:
+        out.writerow([csv_cell(round_cell(v, col)) for v, col in zip(row, header)])
+    return buf.getvalue()
 
 
 @router.get("/console/jobs/{job_id}/result.csv")
 def job_csv(job_id: str, request: Request, session: SessionDep) -> Response:
     with maker_of(request)() as db:
         job = job_repo.get_job(db, session.tenant_id, job_id)
-        kind = registry.REGISTRY.get(job.kind)
-        if kind is None or kind.csv is None or job.status != "succeeded":
+        if job.kind not in queueing.csv_exports() or job.status != "succeeded":
             raise NotFound("no CSV for this job", resource="csv", id=job_id)
-        result = result_repo.get_result(db, job.id)
-        graph = graph_repo.get_graph(db, session.tenant_id, job.graph_id or "")
-        loaded = load_version(db, graph_repo.get_version(db, graph, job.version))
-        header, rows = kind.csv(loaded, result.data, result_repo.get_result_arrays(db, result))
-        text = "".join(_csv_text(header, rows))
-    return StreamingResponse(iter([text]), media_type="text/csv; charset=utf-8",
+        job, result = queueing.read_result(db, session.tenant_id, job_id)
+        text = _csv_text(*queueing.result_table(db, session.tenant_id, job, result))
+    return Response(text, media_type="text/csv; charset=utf-8",
                              headers={"Content-Disposition": f'attachment; filename="{job.kind}-{job.id}.csv"'})

@@ -17,6 +17,8 @@ from typing import Any, ClassVar
 
 from pydantic import ValidationError
 
+from service.usecases.errors import ResultNotReady  # raised by use cases and the queue alike
+
 __all__ = [
     "JobsError",
     "UnknownKind",
@@ -85,13 +87,6 @@ class TooManyJobs(JobsError):
 
     slug = "too-many-jobs"
     title = "Queued job limit reached"
-
-
-class ResultNotReady(JobsError):
-    """The result exists once the job has succeeded."""
-
-    slug = "result-not-ready"
-    title = "Result not available"
 
 
 class Released(JobsError):

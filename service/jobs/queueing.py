@@ -11,7 +11,7 @@ version.
 from __future__ import annotations
 
 import json
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -22,15 +22,16 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.analytics.errors import InvalidParameter
 from service.usecases.loading import load_version
 from storage.errors import NotFound
-from storage.models import Graph, Job
+from storage.models import Graph, Job, JobResult
 from storage.repo import graphs as graph_repo
 from storage.repo import jobs as job_repo
+from storage.repo import results as result_repo
 
-from . import admission, registry
-from .errors import InvalidJobParams, TooManyJobs
+from . import admission, registry, webhooks
+from .errors import InvalidJobParams, ResultNotReady, TooManyJobs
 from .kinds import JobKind
 
-__all__ = ["JobOrder", "QueueLimits", "parse_job_params", "resolve_version", "queue_job"]
+__all__ = ["JobOrder", "QueueLimits", "parse_job_params", "resolve_version", "queue_job", "cancel_job", "read_result", "csv_exports", "result_table"]
 
 
 @dataclass(frozen=True)
@@ -150,3 +151,49 @@ def queue_job(
         )
         db.commit()
         return job, created
+
+
+def cancel_job(write: Callable[[], Any], tenant: str, job_id: str, *, now: datetime) -> Job:
+    """Cancel a job: a queued one at once, a running one at its next progress point.
+
+    A job that ends here queues its webhook event in the same transaction.
+    """
+    with write() as db:
+        job, ended = job_repo.cancel(db, tenant, job_id, now)
+        if ended:
+            webhooks.queue_job_event(db, job, now)
+        db.commit()
+    return job
+
+
+_NOT_READY = {
+    "queued": "it is queued; poll GET /v1/jobs/{id}?wait=30",
+    "running": "it is still running; poll GET /v1/jobs/{id}?wait=30",
+    "failed": "it failed; see the job's error",
+    "cancelled": "it was cancelled",
+}
+
+
+def read_result(db: Session, tenant: str, job_id: str) -> tuple[Job, JobResult]:
+    """A succeeded job and its stored result; :class:`ResultNotReady` saying what to do otherwise."""
+    job = job_repo.get_job(db, tenant, job_id)
+    if job.status != "succeeded":
+        hint = _NOT_READY[job.status].replace("{id}", job.id)
+        raise ResultNotReady(f"job {job.id} has no result: {hint}", job_id=job.id, job_status=job.status)
+    return job, result_repo.get_result(db, job.id)
+
+
+def csv_exports() -> dict[str, Callable[..., tuple[list[str], Iterator[list[Any]]]]]:
+    """Job kinds whose result can be exported as CSV, and how (each kind declares its ``csv``)."""
+    return {k.name: k.csv for k in registry.REGISTRY.values() if k.csv is not None}
+
+
+def result_table(db: Session, tenant: str, job: Job, result: JobResult) -> tuple[list[str], Iterator[list[Any]]]:
+    """A succeeded job's result as a CSV header and rows, by its kind's ``csv`` (on its version)."""
+    render = registry.get_kind(job.kind).csv
+    if render is None:
+        raise InvalidParameter(f"jobs of kind {job.kind!r} have no CSV export", field="job_id")
+    arrays = result_repo.get_result_arrays(db, result)
+    graph = graph_repo.get_graph(db, tenant, job.graph_id or "")
+    loaded = load_version(db, graph_repo.get_version(db, graph, job.version))
+    return render(loaded, result.data, arrays)

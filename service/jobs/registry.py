@@ -65,20 +65,6 @@ _BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, fo
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
 
 
-def _attach_results() -> None:
-    # Interim: these kinds' params models still live in their task modules, which the result
-    # models import, so their result models are attached here until the params move down.
-    from dataclasses import replace
-
-    from service.usecases import result_models as rm
-
-    for name, model in (("recommendations", rm.RecommendationsResult), ("referral_asks", rm.ReferralAsksResult),
-                        ("link_evaluation", rm.LinkEvaluationResult), ("shortlist", rm.ShortlistResult)):
-        REGISTRY[name] = replace(REGISTRY[name], result=model)
-
-
-_attach_results()
-
 _imported: set[str] = set()
 
 

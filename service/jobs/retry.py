@@ -1,8 +1,8 @@
 """Retrying is a value: a policy looks at a failure and returns a RetryDecision or None.
 
 Permanent failures (the request itself is wrong, or the data is) fail the
-job at once: every :class:`service.analytics.errors.AnalyticsError`, a
-missing graph or version, params that no longer validate. Anything else
+job at once: every :class:`service.analytics.errors.AnalyticsError` and use-case
+error, a missing graph or version, params that no longer validate. Anything else
 (database hiccups, I/O, memory, an unexpected exception) is taken to be
 transient and retried with exponential backoff until ``max_attempts``.
 
@@ -18,6 +18,7 @@ from datetime import datetime, timedelta
 from pydantic import ValidationError
 
 from service.analytics import errors as aerr
+from service.usecases import errors as uerr
 from storage import errors as serr
 
 from . import errors as jerr
@@ -28,6 +29,7 @@ PERMANENT: tuple[type[BaseException], ...] = (
     aerr.AnalyticsError,
     serr.NotFound,
     jerr.JobsError,
+    uerr.UsecaseError,
     ValidationError,
 )
 

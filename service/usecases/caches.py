@@ -6,14 +6,14 @@ is never stale. Five caches do that, named ``<what>_cache``:
 
 - :data:`version_cache`: a version's graph, ids and attributes (:mod:`service.usecases.loading`),
   keyed by version id;
-- :data:`index_cache`: the recommendation neighbour index (:mod:`service.indexes`),
+- :data:`index_cache`: the recommendation neighbour index (:mod:`service.usecases.indexes`),
   keyed by version id;
-- :data:`measure_cache`: per-node follow-on measures (:mod:`service.indexes`),
+- :data:`measure_cache`: per-node follow-on measures (:mod:`service.usecases.indexes`),
   keyed by ``(version id, measure)``;
 - :data:`diffusion_cache`: diffusion arrays (:mod:`service.usecases.diffusion_inputs`),
   keyed by version id and probability settings;
 - :data:`ranking_cache`: stored score arrays and orders derived from them
-  (:mod:`service.rankings`), keyed by result id and what was derived.
+  (:mod:`service.usecases._ranking_tables`), keyed by result id and what was derived.
 
 They are views of one :class:`ByteLRU` store, so one bound covers them all:
 ``Settings.cache_bytes``, passed to :func:`set_max_bytes` when the API process
@@ -229,7 +229,7 @@ class NamedCache(Generic[K, V]):
 
 
 def _index_nbytes(index: NeighbourIndex) -> int:
-    from service.indexes import index_nbytes  # the scratch arrays depend on the compute pool
+    from service.usecases.indexes import index_nbytes  # the scratch arrays depend on the compute pool
 
     return index_nbytes(index)
 

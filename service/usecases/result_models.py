@@ -22,12 +22,12 @@ from pydantic import BaseModel, ConfigDict, Field
 
 from service.usecases.diffusion_settings import ProbabilitySettings
 from service.usecases.forecasts import ForecastParams
-from service.jobs.tasks.link_evaluation import LinkEvaluationParams
+from service.usecases.link_evaluation import LinkEvaluationParams
 from service.usecases.profile import ProfileParams
-from service.jobs.tasks.recommendations import RecommendationsParams
-from service.jobs.tasks.referral_asks import ReferralAsksParams
+from service.usecases.recommendations import RecommendationsParams
+from service.usecases.next_contacts import ReferralAsksParams
 from service.usecases.scores import ScoresParams
-from service.jobs.tasks.shortlist import ShortlistParams
+from service.usecases.shortlist_params import ShortlistParams
 
 __all__ = [
     "Result",

@@ -2,7 +2,7 @@
 
 Computes the asked measures with ``service.analytics.structure.centrality.scores`` and
 stores, per measure, its values, its ranking order and its percentile ranks
-(layout and conventions: :mod:`service.rankings`), so that rankings, the
+(layout and conventions: :mod:`service.usecases._ranking_tables`), so that rankings, the
 node view and the communities view only slice arrays.
 """
 
@@ -17,7 +17,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from service.analytics.structure.centrality import MEASURES, scores
 from service.analytics.errors import InvalidParameter, UnknownNode
-from service.rankings import ASCENDING, LABEL_MEASURES, key, result_arrays
+from service.usecases._ranking_tables import ASCENDING, LABEL_MEASURES, key, result_arrays
 
 from .outcome import Computed, Progress
 

@@ -23,6 +23,7 @@ __all__ = [
     "delete_graph",
     "add_version",
     "get_version",
+    "find_version",
     "list_versions",
     "get_version_arrays",
     "list_same_edges",
@@ -157,6 +158,11 @@ def get_version(db: Session, graph: Graph, number: int | None = None) -> GraphVe
         what = "graph has no versions yet" if number is None else "version not found"
         raise NotFound(what, resource="version", id=f"{graph.id}/{'latest' if number is None else n}")
     return version
+
+
+def find_version(db: Session, version_id: str) -> GraphVersion | None:
+    """A version by id, of any graph (the caller checks it belongs where it should); None when gone."""
+    return db.get(GraphVersion, version_id)
 
 
 def list_versions(db: Session, graph: Graph) -> list[GraphVersion]:

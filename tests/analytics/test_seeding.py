@@ -14,10 +14,16 @@ import numpy as np
 import pytest
 
 from service.analytics.seeding import shortlists as S
-from service.analytics.errors import Cancelled, InfeasibleRequest, InvalidParameter, UnknownNode
+from service.analytics.seeding.rules import SeedRules
+from service.analytics.errors import Cancelled, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, diffusion_graph
 
 BOUND = 1.0 - 1.0 / math.e  # Source: REFERENCES.md constants, 1 - 1/e = 0.6321206
+
+
+def R(n, budget=None, **rules):
+    """The contact rules for n people (checked once, in SeedRules.build)."""
+    return SeedRules.build(n, budget=budget, **rules)
 
 
 # ------------------------------------------------------------ exact enumeration
@@ -170,16 +176,16 @@ def test_greedy_imm_opim_against_the_optimum(seed, model, rounds, k):
     dg = dgraph(n, arcs, probs, model=model)
     opt = exact.best(k)
     # Source: Kempe et al. 2003 (greedy >= (1 - 1/e) OPT with an exact oracle).
-    celf = S.celf_seeds(exact, n, k)
+    celf = S.celf_seeds(exact, R(n, k))
     assert exact(celf.nodes) >= BOUND * opt - 1e-9
     assert celf.expected_reach.mean == pytest.approx(exact(celf.nodes))
     # Source: Tang, Shi, Xiao 2015 (IMM) with Chen 2018's fix: >= (1-1/e-eps) OPT
     # with probability >= 1 - 1/n; checked in every case tried.
-    imm = S.imm_seeds(dg, k, epsilon=0.1, random_seed=seed, rounds=rounds, forecast_runs=0)
+    imm = S.imm_seeds(dg, R(n, k), epsilon=0.1, random_seed=seed, rounds=rounds, forecast_runs=0)
     assert len(imm.nodes) == k
     assert exact(imm.nodes) >= (BOUND - 0.1) * opt
     # Source: Tang et al. 2018 (OPIM-C): the certified bounds hold w.p. >= 1 - delta.
-    op = S.opim_seeds(dg, k, epsilon=0.1, random_seed=seed, rounds=rounds, forecast_runs=0)
+    op = S.opim_seeds(dg, R(n, k), epsilon=0.1, random_seed=seed, rounds=rounds, forecast_runs=0)
     value = exact(op.nodes)
     assert value >= (BOUND - 0.1) * opt
     g = op.guarantee
@@ -201,11 +207,11 @@ def test_rules_keep_their_ratio_by_brute_force():
     # Source: Fisher, Nemhauser, Wolsey 1978 (from memory): greedy over a
     # partition matroid is 1/2-approximate.
     opt = exact.best(3, capped)
-    for sl in (S.imm_seeds(dg, 3, segments=seg, max_per_segment=caps, forecast_runs=0),
-               S.celf_seeds(exact, n, 3, segments=seg, max_per_segment=caps)):
+    for sl in (S.imm_seeds(dg, R(n, 3, segments=seg, max_per_segment=caps), forecast_runs=0),
+               S.celf_seeds(exact, R(n, 3, segments=seg, max_per_segment=caps))):
         assert capped(sl.nodes) and len(sl.nodes) == 3
         assert exact(sl.nodes) >= (0.5 - 0.1) * opt
-    imm = S.imm_seeds(dg, 3, segments=seg, max_per_segment=caps, forecast_runs=0)
+    imm = S.imm_seeds(dg, R(n, 3, segments=seg, max_per_segment=caps), forecast_runs=0)
     assert imm.guarantee["approximation"] == pytest.approx(0.5 - 0.1)
     # Cost budget. Source: K. Tang et al. 2021 (arXiv 2008.05391): the better
     # of ratio greedy and the best single seed is >= 0.405 OPT; unit greedy
@@ -216,16 +222,16 @@ def test_rules_keep_their_ratio_by_brute_force():
         return cost[list(s)].sum() <= 4.0
 
     opt_c = exact.best(n, fits)
-    for sl in (S.imm_seeds(dg, costs=cost, cost_budget=4.0, forecast_runs=0),
-               S.opim_seeds(dg, costs=cost, cost_budget=4.0, forecast_runs=0),
-               S.celf_seeds(exact, n, costs=cost, cost_budget=4.0)):
+    for sl in (S.imm_seeds(dg, R(n, costs=cost, cost_budget=4.0), forecast_runs=0),
+               S.opim_seeds(dg, R(n, costs=cost, cost_budget=4.0), forecast_runs=0),
+               S.celf_seeds(exact, R(n, costs=cost, cost_budget=4.0))):
         assert fits(sl.nodes)
         assert exact(sl.nodes) >= (0.405 - 0.1) * opt_c
     # Must include: ratio to the best set containing them (greedy on f(M + .),
     # derived from Kempe et al.'s bound for the monotone submodular f(M + .)).
     opt_m = exact.best(3, lambda s: 5 in s)
-    for sl in (S.imm_seeds(dg, 3, must_include=[5], forecast_runs=0),
-               S.celf_seeds(exact, n, 3, must_include=[5])):
+    for sl in (S.imm_seeds(dg, R(n, 3, must_include=[5]), forecast_runs=0),
+               S.celf_seeds(exact, R(n, 3, must_include=[5]))):
         assert sl.nodes[0] == 5 and sl.seeds[0].required
         assert exact(sl.nodes) >= (BOUND - 0.1) * opt_m
 
@@ -238,7 +244,7 @@ def test_target_audience_seeding_by_brute_force():
     dg = dgraph(n, arcs, probs)
     opt = exact.best(2)
     # Source: Tang, Shi, Xiao 2015 with reach counted in audience value.
-    imm = S.imm_seeds(dg, 2, weights=w, forecast_runs=0)
+    imm = S.imm_seeds(dg, R(n, 2), weights=w, forecast_runs=0)
     assert exact(imm.nodes) >= (BOUND - 0.1) * opt
     assert "audience value" in imm.seeds[0].reason
 
@@ -249,7 +255,7 @@ def test_imm_theta_matches_the_paper_formula():
     n, arcs, probs = random_graph(1, model="ic")
     dg = dgraph(n, arcs, probs)
     k, eps, ell = 3, 0.2, 1.0
-    sl = S.imm_seeds(dg, k, epsilon=eps, l=ell, forecast_runs=0)
+    sl = S.imm_seeds(dg, R(n, k), epsilon=eps, l=ell, forecast_runs=0)
     # Source: Tang, Shi, Xiao 2015 (SIGMOD), Eq. 6 (lambda*), Algorithm 2
     # (lambda', eps' = sqrt(2) eps, x = n / 2^i, theta_i = lambda' / x) and
     # l <- l (1 + ln 2 / ln n); written out here from memory of the paper
@@ -295,12 +301,12 @@ def test_degree_discount_worked_values():
     # Source: REFERENCES.md (derived): d = 10, p = 0.01 -> 7.91 after one
     # picked neighbour, 5.84 after two; recomputed from the formula.
     assert dd(10, 1) == pytest.approx(7.91) and dd(10, 2) == pytest.approx(5.84)
-    two = S.degree_discount_seeds(g, 3, p=p)
+    two = S.degree_discount_seeds(g, R(g.n, 3), p=p)
     assert two.nodes == (1, 2, 0)
     assert two.details["score_at_pick"][2] == pytest.approx(dd(10, 2))
     elig = np.ones(nxt, bool)
     elig[2] = False
-    one = S.degree_discount_seeds(g, 2, p=p, eligible=elig)
+    one = S.degree_discount_seeds(g, R(g.n, 2, eligible=elig), p=p)
     assert one.nodes == (1, 0)
     assert one.details["score_at_pick"][1] == pytest.approx(dd(10, 1))
     assert "degree discount score 7.91" in one.seeds[1].reason
@@ -319,14 +325,15 @@ def grid():
     return g, diffusion_graph(g, scheme="uniform", p=0.3), np.arange(n) % 3
 
 
-def all_methods(g, dg, budget, **rules):
+def all_methods(g, dg, budget, **kwargs):
+    rules = R(dg.n, budget, **kwargs)
     oracle = lambda s: S.rr_estimate(dg, s, samples=3000, random_seed=1).mean  # noqa: E731
     return [
-        S.imm_seeds(dg, budget, forecast_runs=0, **rules),
-        S.opim_seeds(dg, budget, forecast_runs=0, **rules),
-        S.celf_seeds(oracle, dg.n, budget, **rules),
-        S.degree_discount_seeds(g, budget, p=0.3, **rules),
-        S.top_score_seeds(np.arange(dg.n, dtype=float), budget, **rules),
+        S.imm_seeds(dg, rules, forecast_runs=0),
+        S.opim_seeds(dg, rules, forecast_runs=0),
+        S.celf_seeds(oracle, rules),
+        S.degree_discount_seeds(g, rules, p=0.3),
+        S.top_score_seeds(np.arange(dg.n, dtype=float), rules),
     ]
 
 
@@ -348,50 +355,27 @@ def test_rules_are_respected(grid):
         assert not set(sl.nodes) & {14, 15, 20, 21}
 
 
-@pytest.mark.parametrize("kwargs,error,field", [
-    ({"budget": 37}, InfeasibleRequest, "budget"),
-    ({"budget": 34, "eligible": np.arange(36) > 2}, InfeasibleRequest, "budget"),
-    ({"budget": 5, "must_include": [3], "eligible": np.arange(36) != 3}, InfeasibleRequest,
-     "must_include"),
-    ({"budget": 2, "must_include": [0, 1, 2]}, InfeasibleRequest, "must_include"),
-    ({"budget": 5, "must_include": [99]}, UnknownNode, "must_include"),
-    ({"budget": 8, "segments": np.arange(36) % 3, "max_per_segment": 2}, InfeasibleRequest,
-     "max_per_segment"),
-    ({"budget": 4, "segments": np.arange(36) % 3, "max_per_segment": {0: 1},
-      "must_include": [0, 3]}, InfeasibleRequest, "max_per_segment"),
-    ({"budget": 4, "max_per_segment": 2}, InvalidParameter, "segments"),
-    ({"cost_budget": 0.5, "costs": np.ones(36)}, InfeasibleRequest, "cost_budget"),
-    ({"cost_budget": 3.0, "costs": np.r_[np.nan, np.ones(35)], "must_include": [0]},
-     InfeasibleRequest, "costs"),
-    ({"cost_budget": 3.0, "costs": np.full(36, 2.0), "must_include": [0, 1]},
-     InfeasibleRequest, "cost_budget"),
-    ({"cost_budget": 3.0}, InvalidParameter, "costs"),
-    ({"budget": 0}, InvalidParameter, "budget"),
-    ({}, InvalidParameter, "budget"),
-])
-def test_infeasible_requests_name_the_rule(grid, kwargs, error, field):
+def test_every_method_refuses_rules_built_for_another_graph(grid):
     g, dg, _ = grid
-    kwargs = dict(kwargs)
-    budget = kwargs.pop("budget", None)
+    other = R(dg.n + 1, 3)
     calls = [
-        lambda: S.imm_seeds(dg, budget, forecast_runs=0, **kwargs),
-        lambda: S.opim_seeds(dg, budget, forecast_runs=0, **kwargs),
-        lambda: S.celf_seeds(lambda s: float(len(s)), dg.n, budget, **kwargs),
-        lambda: S.degree_discount_seeds(g, budget, **kwargs),
-        lambda: S.top_score_seeds(np.ones(dg.n), budget, **kwargs),
+        lambda: S.imm_seeds(dg, other, forecast_runs=0),
+        lambda: S.opim_seeds(dg, other, forecast_runs=0),
+        lambda: S.degree_discount_seeds(g, other),
+        lambda: S.top_score_seeds(np.ones(dg.n), other),
+        lambda: S.evaluate_shortlist(dg, S.top_score_seeds(np.ones(dg.n), R(dg.n, 3)),
+                                     samples=1000, rules=other),
     ]
     for call in calls:
-        with pytest.raises(error) as err:
+        with pytest.raises(InvalidParameter) as err:
             call()
-        assert err.value.data.get("field") == field
-    if field == "must_include" and error is InfeasibleRequest and "eligible" in kwargs:
-        assert err.value.data["node_index"] == 3
+        assert err.value.data["field"] == "rules"
 
 
 def test_budget_filled_by_must_include(grid):
     _, dg, _ = grid
-    for sl in (S.imm_seeds(dg, 2, must_include=[7, 3], forecast_runs=0),
-               S.opim_seeds(dg, 2, must_include=[7, 3], forecast_runs=0)):
+    for sl in (S.imm_seeds(dg, R(dg.n, 2, must_include=[7, 3]), forecast_runs=0),
+               S.opim_seeds(dg, R(dg.n, 2, must_include=[7, 3]), forecast_runs=0)):
         assert sl.nodes == (7, 3) and all(s.required for s in sl.seeds)
         assert "already signed up" in sl.seeds[1].reason
 
@@ -399,22 +383,22 @@ def test_budget_filled_by_must_include(grid):
 def test_nan_cost_means_never_chosen(grid):
     _, dg, _ = grid
     cost = np.ones(dg.n)
-    best = S.imm_seeds(dg, 1, forecast_runs=0).nodes[0]
+    best = S.imm_seeds(dg, R(dg.n, 1), forecast_runs=0).nodes[0]
     cost[best] = np.nan
-    sl = S.imm_seeds(dg, costs=cost, cost_budget=3.0, forecast_runs=0)
+    sl = S.imm_seeds(dg, R(dg.n, costs=cost, cost_budget=3.0), forecast_runs=0)
     assert best not in sl.nodes and len(sl.nodes) == 3
 
 
 def test_bad_parameters(grid):
     _, dg, _ = grid
     with pytest.raises(InvalidParameter) as err:
-        S.imm_seeds(dg, 3, epsilon=1.5)
+        S.imm_seeds(dg, R(dg.n, 3), epsilon=1.5)
     assert err.value.data["field"] == "epsilon"
     with pytest.raises(InvalidParameter) as err:
-        S.opim_seeds(dg, 3, weights=-np.ones(dg.n))
+        S.opim_seeds(dg, R(dg.n, 3), weights=-np.ones(dg.n))
     assert err.value.data["field"] == "weights"
     with pytest.raises(InvalidParameter) as err:
-        S.imm_seeds(dg, 3, random_seed=-1)
+        S.imm_seeds(dg, R(dg.n, 3), random_seed=-1)
     assert err.value.data["field"] == "random_seed"
 
 
@@ -424,7 +408,7 @@ def test_reasons_are_built_from_the_numbers(grid):
     _, dg, seg = grid
     labels = ["North", "South", "West"]
     com = np.arange(dg.n) // 18
-    sl = S.imm_seeds(dg, 4, segments=seg, segment_labels=labels, communities=com,
+    sl = S.imm_seeds(dg, R(dg.n, 4, segments=seg, segment_labels=labels), communities=com,
                      forecast_runs=0)
     seen = set()
     for i, s in enumerate(sl.seeds):
@@ -443,8 +427,8 @@ def test_reasons_are_built_from_the_numbers(grid):
 
 def test_reproducible_and_forecast_is_independent(grid):
     _, dg, _ = grid
-    a = S.imm_seeds(dg, 3, random_seed=5, forecast_runs=2000)
-    b = S.imm_seeds(dg, 3, random_seed=5, forecast_runs=2000)
+    a = S.imm_seeds(dg, R(dg.n, 3), random_seed=5, forecast_runs=2000)
+    b = S.imm_seeds(dg, R(dg.n, 3), random_seed=5, forecast_runs=2000)
     assert a.nodes == b.nodes and a.theta == b.theta
     assert np.array_equal(a.reach_curve, b.reach_curve)
     assert a.expected_reach == b.expected_reach
@@ -474,11 +458,11 @@ def test_progress_and_cancellation(grid):
     cost = 1.0 + np.arange(dg.n) % 3
     for call in (S.imm_seeds, S.opim_seeds):
         seen = []
-        call(dg, 3, progress=lambda f, m: seen.append((f, m)), forecast_runs=0)
+        call(dg, R(dg.n, 3), progress=lambda f, m: seen.append((f, m)), forecast_runs=0)
         fr = [f for f, _ in seen]
         assert fr and all(0.0 <= f <= 1.0 for f in fr) and fr == sorted(fr), call
     seen = []
-    S.celf_seeds(lambda s: float(len(s)), dg.n, costs=cost, cost_budget=5.0,
+    S.celf_seeds(lambda s: float(len(s)), R(dg.n, costs=cost, cost_budget=5.0),
                  progress=lambda f, m: seen.append(f))
     assert seen and seen == sorted(seen)
 
@@ -486,17 +470,17 @@ def test_progress_and_cancellation(grid):
         if f > 0.3:
             raise Cancelled(job="test")
 
-    for call in (lambda: S.imm_seeds(dg, 3, progress=stop, forecast_runs=0),
-                 lambda: S.opim_seeds(dg, 3, progress=stop, forecast_runs=0,
+    for call in (lambda: S.imm_seeds(dg, R(dg.n, 3), progress=stop, forecast_runs=0),
+                 lambda: S.opim_seeds(dg, R(dg.n, 3), progress=stop, forecast_runs=0,
                                       target_ratio=0.99),
-                 lambda: S.celf_seeds(lambda s: float(len(s)), dg.n, 3, progress=stop)):
+                 lambda: S.celf_seeds(lambda s: float(len(s)), R(dg.n, 3), progress=stop)):
         with pytest.raises(Cancelled):
             call()
 
 
 def test_evaluate_shortlist_fills_baseline_reach(grid):
     g, dg, _ = grid
-    top = S.top_score_seeds(np.arange(dg.n, dtype=float), 3)
+    top = S.top_score_seeds(np.arange(dg.n, dtype=float), R(dg.n, 3))
     assert np.all(np.isnan(top.reach_curve))
     ev = S.evaluate_shortlist(dg, top, samples=100_000, random_seed=3)
     ref = S.rr_estimate(dg, top.nodes, samples=100_000, random_seed=4)
@@ -520,7 +504,7 @@ def test_imm_against_celf_and_baselines_on_coauthorship(name):
     g, _ = snap_graph(name, directed=False)
     dg = diffusion_graph(g, scheme="weighted_cascade")
     k = 20
-    imm = S.imm_seeds(dg, k, epsilon=0.1, random_seed=1, forecast_runs=0)
+    imm = S.imm_seeds(dg, R(dg.n, k), epsilon=0.1, random_seed=1, forecast_runs=0)
     # CELF, kept affordable: its oracle is the RR estimate on one fixed,
     # independent collection of 100,000 sets, and its candidates are the 400
     # highest-degree people plus IMM's picks (the full graph would need
@@ -536,10 +520,10 @@ def test_imm_against_celf_and_baselines_on_coauthorship(name):
     pool = np.zeros(dg.n, bool)
     pool[np.argsort(-deg)[:400]] = True
     pool[list(imm.nodes)] = True
-    celf = S.celf_seeds(oracle, dg.n, k, eligible=pool, degrees=deg)
-    top_deg = S.top_score_seeds(deg, k, score_name="degree")
+    celf = S.celf_seeds(oracle, R(dg.n, k, eligible=pool), degrees=deg)
+    top_deg = S.top_score_seeds(deg, R(dg.n, k), score_name="degree")
     pr = np.array(to_igraph(g, weights=False).pagerank())  # igraph PageRank, damping 0.85
-    top_pr = S.top_score_seeds(pr, k, score_name="PageRank")
+    top_pr = S.top_score_seeds(pr, R(dg.n, k), score_name="PageRank")
     # One independent judge for all four: forward Monte Carlo, 3000 runs.
     judge = {sl.method: estimate_spread(dg, list(sl.nodes), runs=3000, random_seed=77)
              for sl in (imm, celf, top_deg, top_pr)}
@@ -569,16 +553,16 @@ def test_opim_default_is_as_good_as_imm_on_open_datasets(name, directed):
     g, _ = snap_graph(name, directed=directed)
     dg = diffusion_graph(g, scheme="weighted_cascade")
     k = 50
-    imm = S.imm_seeds(dg, k, random_seed=1, forecast_runs=0)
-    opim = S.opim_seeds(dg, k, random_seed=1, forecast_runs=0)
+    imm = S.imm_seeds(dg, R(dg.n, k), random_seed=1, forecast_runs=0)
+    opim = S.opim_seeds(dg, R(dg.n, k), random_seed=1, forecast_runs=0)
     deg = np.diff(dg.out_indptr).astype(float)
     rg = GraphArrays(g.n, True, g.dst, g.src, g.weight) if directed else g
     sets = {
         "opim": list(opim.nodes),
         "imm": list(imm.nodes),
-        "top_degree": list(S.top_score_seeds(deg, k).nodes),
-        "top_pagerank": list(S.top_score_seeds(centrality.pagerank(rg), k).nodes),
-        "degree_discount": list(S.degree_discount_seeds(dg, k, p=float(dg.out_prob.mean())).nodes),
+        "top_degree": list(S.top_score_seeds(deg, R(dg.n, k)).nodes),
+        "top_pagerank": list(S.top_score_seeds(centrality.pagerank(rg), R(dg.n, k)).nodes),
+        "degree_discount": list(S.degree_discount_seeds(dg, R(dg.n, k), p=float(dg.out_prob.mean())).nodes),
     }
     judge = compare_reach(dg, sets, reference="opim", min_simulations=500, max_simulations=500,
                           random_seed=2026)
@@ -602,12 +586,12 @@ def test_caps_already_filled_by_must_include_are_respected() -> None:
     g = GraphArrays(n, False, np.arange(7, dtype=np.int32), np.arange(1, 8, dtype=np.int32), np.ones(7))
     dg = diffusion_graph(g, scheme="uniform", p=0.5)
     seg = np.array([0, 0, 0, 0, 1, 1, 1, 1], np.int32)
-    rules = dict(must_include=[0], segments=seg, max_per_segment=1)
+    rules = SeedRules.build(n, budget=2, must_include=[0], segments=seg, max_per_segment=1)
     picks = [
-        imm_seeds(dg, 2, forecast_runs=50, **rules),
-        opim_seeds(dg, 2, forecast_runs=50, **rules),
-        top_score_seeds(np.arange(8.0)[::-1].copy(), 2, **rules),
-        degree_discount_seeds(dg, 2, p=0.5, **rules),
+        imm_seeds(dg, rules, forecast_runs=50),
+        opim_seeds(dg, rules, forecast_runs=50),
+        top_score_seeds(np.arange(8.0)[::-1].copy(), rules),
+        degree_discount_seeds(dg, rules, p=0.5),
     ]
     for r in picks:
         nodes = [s.node for s in r.seeds]

@@ -22,7 +22,7 @@ import numpy as np
 import pytest
 from scipy.stats import percentileofscore
 
-from service import rankings as R
+from service.usecases import _ranking_tables as R
 from service.analytics.structure.centrality import MEASURES
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import assert_problem, run_worker_once, worker_for
@@ -359,7 +359,7 @@ async def test_problems(sq_client) -> None:  # type: ignore[no-untyped-def]
     assert all(j["params"].get("personalization") is None for j in (await client.get("/v1/jobs")).json()["items"])
 
 
-# -- the pure helpers of service.rankings ----------------------------------------------
+# -- the pure helpers of the ranking tables ---------------------------------------------
 
 
 def test_percentiles_orders_and_helpers() -> None:

@@ -213,7 +213,7 @@ async def test_kinds_without_a_csv_export_say_which_have_one(client) -> None:  #
 
 
 def test_probability_bounds_are_true_as_printed() -> None:
-    from service.jobs.tasks._shortlist_result import _at_least
+    from service.usecases._shortlist_result import _at_least
 
     # 1 - n^-l for n = 90, l = 1 (IMM's default confidence, closed form) and near-certain bounds:
     # rounded down, so "at least" never claims more than holds, and never prints "1".

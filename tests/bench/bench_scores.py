@@ -85,7 +85,7 @@ def synthetic(n: int, k: int) -> None:
     from service.analytics.graph import GraphArrays, NodeAttributes
     from service.app import create_app
     from service.usecases.loading import version_arrays
-    from service.rankings import result_arrays
+    from service.usecases._ranking_tables import result_arrays
     from service.settings import Settings
     from storage.migrate import upgrade
     from storage.repo import graphs as graph_repo

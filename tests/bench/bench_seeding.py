@@ -217,6 +217,7 @@ def _reset_peak() -> bool:
 
 
 def imm(exe: Path, seconds: float) -> list[str]:
+    from service.analytics.seeding.rules import SeedRules
     from service.analytics.seeding.shortlists import imm_seeds
 
     print(
@@ -225,11 +226,12 @@ def imm(exe: Path, seconds: float) -> list[str]:
     lines = []
     for label, dataset, directed in IMM_GRAPHS:
         _, dg = load(dataset, directed)
-        imm_seeds(dg, 2, epsilon=0.5, forecast_runs=0)  # compile / load the kernel caches
+        # compile / load the kernel caches
+        imm_seeds(dg, SeedRules.build(dg.n, budget=2), epsilon=0.5, forecast_runs=0)
         resettable = _reset_peak()
         before = _vm("VmRSS")
         t0 = time.perf_counter()
-        sl = imm_seeds(dg, 50, epsilon=0.1, l=1.0, forecast_runs=0)
+        sl = imm_seeds(dg, SeedRules.build(dg.n, budget=50), epsilon=0.1, l=1.0, forecast_runs=0)
         wall = time.perf_counter() - t0
         peak = _vm("VmHWM") - before if resettable else -1
         d = sl.details

@@ -28,10 +28,12 @@ from pydantic import ValidationError
 
 from service.analytics.errors import Cancelled, InfeasibleRequest, InvalidParameter, UnknownNode
 from service.analytics.graph import GraphArrays, NodeAttributes
+from service.analytics.seeding.rules import SeedRules
 from service.jobs.kinds import TaskContext
 from service.jobs.tasks import shortlist as kind
 from service.jobs.tasks.shortlist import ShortlistParams
 from service.usecases.loading import LoadedVersion
+from service.usecases import shortlists as use_case
 
 Arc = tuple[int, int, float]
 ONE_MINUS_INV_E = 1 - 1 / math.e  # Source: REFERENCES.md constants, 0.6321206
@@ -493,7 +495,7 @@ def test_rules_that_cannot_be_met_name_their_field() -> None:
 
 def test_celf_refuses_large_graphs(monkeypatch: pytest.MonkeyPatch) -> None:
     arcs = [(0, 1, 0.5), (1, 2, 0.5), (2, 3, 0.5)]
-    monkeypatch.setattr(kind, "CELF_MAX_WORK", 3 * 500 - 1)
+    monkeypatch.setattr(use_case, "CELF_MAX_WORK", 3 * 500 - 1)
     with pytest.raises(InvalidParameter) as info:
         run(version(4, arcs), budget=1, method="celf")
     assert info.value.data["field"] == "method" and "'imm'" in info.value.reason
@@ -567,7 +569,7 @@ def test_never_returns_a_list_a_baseline_beats(monkeypatch: pytest.MonkeyPatch) 
     arcs = random_graph(rng, n, 14)
     outdeg = np.bincount([u for u, _, _ in arcs], minlength=n)
     poor = [int(v) for v in np.flatnonzero(outdeg == 0)[:2]]
-    real = kind._choose
+    real = use_case._choose
 
     def rigged(method: str, *args: Any) -> Any:
         # The optimised method "chooses" two people who reach nobody but themselves.
@@ -576,11 +578,11 @@ def test_never_returns_a_list_a_baseline_beats(monkeypatch: pytest.MonkeyPatch) 
 
             scores = np.zeros(n)
             scores[poor] = 1.0
-            sl = seeding.top_score_seeds(scores, 2)
+            sl = seeding.top_score_seeds(scores, SeedRules.build(n, budget=2))
             return seeding.Shortlist("imm", sl.seeds, sl.reach_curve, "", None, {"notes": []})
         return real(method, *args)
 
-    monkeypatch.setattr(kind, "_choose", rigged)
+    monkeypatch.setattr(use_case, "_choose", rigged)
     res = run(version(n, arcs), budget=2, baselines=["top_degree", "degree_discount"],
               forecast_runs=500)
     assert res["method"] == "imm" and res["method_used"] in ("top_degree", "degree_discount")
@@ -634,7 +636,7 @@ def test_comparisons_are_paired_and_in_plain_words() -> None:
 def test_reasons_quote_the_gains_beside_them(method: str) -> None:
     import re
 
-    from service.analytics.seeding._rules import _num
+    from service.analytics.seeding._reasons import _num
 
     rng = np.random.default_rng(5)
     n = 10
@@ -652,7 +654,7 @@ def test_reasons_quote_the_gains_beside_them(method: str) -> None:
 
 def test_verdicts_in_whole_people() -> None:
     from service.analytics.diffusion.paired import Interval
-    from service.jobs.tasks._shortlist_result import verdict
+    from service.usecases._shortlist_result import verdict
 
     label = "the 25 best-connected people"
     # Source: the wording asked for in the product brief, numbers rounded to whole people.

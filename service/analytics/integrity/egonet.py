@@ -174,8 +174,7 @@ def ego_features(
 
     Examples
     --------
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0, 1], np.int32),
-    ...                 np.array([1, 2, 3, 2], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3), (1, 2)])
     >>> f = ego_features(g)
     >>> f.neighbours.tolist(), f.edges.tolist()
     ([3, 2, 2, 1], [4, 3, 3, 1])

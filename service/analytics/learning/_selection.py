@@ -142,7 +142,7 @@ def learn_probabilities(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)], directed=True)
     >>> runs = [Campaign(np.array([0, 1]), np.array([0, 1]))] * 2
     >>> runs += [Campaign(np.array([0, 1]), np.array([0, 2]), horizon=2)] * 2
     >>> m = learn_probabilities(g, runs, methods=["uniform", "weighted_cascade"], folds=2)

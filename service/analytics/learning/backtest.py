@@ -219,7 +219,7 @@ def backtest(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([1, 2], np.int32), np.ones(2))
+    >>> g = from_edges([(0, 1), (1, 2)], directed=True)
     >>> runs = [Campaign(np.array([0, 1, 2]), np.array([0, 1, 2]))] * 3
     >>> r = backtest(g, runs, methods=["uniform"], simulations=50, folds=2)
     >>> r.summary["learned"].inside, r.summary["learned"].mean_abs_error

@@ -66,7 +66,7 @@ def campaign_episodes(g: GraphArrays, campaigns: Sequence[Campaign]) -> Episodes
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 0], np.int32), np.array([1, 2], np.int32), np.ones(2))
+    >>> g = from_edges([(0, 1), (0, 2)], directed=True)
     >>> ep = campaign_episodes(g, [Campaign(np.array([0, 1]), np.array([0, 1]))])
     >>> ep.arc.tolist(), ep.event.tolist()
     ([0, 1], [0, -1])
@@ -84,7 +84,7 @@ def adoption_chance(g: GraphArrays, arc_prob: ArrayLike, newly_active: ArrayLike
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([2, 2], np.int32), np.ones(2))
+    >>> g = from_edges([(0, 2), (1, 2)], directed=True)
     >>> adoption_chance(g, [0.5, 0.5], [0, 1]).tolist()
     [0.0, 0.0, 0.75]
 
@@ -162,7 +162,7 @@ def em_probabilities(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)], directed=True)
     >>> runs = [Campaign(np.array([0, 1]), np.array([0, 1]))] * 3
     >>> runs += [Campaign(np.array([0, 1]), np.array([0, 2]), horizon=2)]
     >>> fit = em_probabilities(g, runs)
@@ -238,7 +238,7 @@ def goyal_probabilities(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)], directed=True)
     >>> runs = [Campaign(np.array([0, 1]), np.array([0, 1])),
     ...         Campaign(np.array([0, 1]), np.array([0, 3]))]
     >>> goyal_probabilities(g, runs, prior=(0.0, 0.0)).tolist()
@@ -292,7 +292,7 @@ def goyal_lt_weights(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([2, 2], np.int32), np.ones(2))
+    >>> g = from_edges([(0, 2), (1, 2)], directed=True)
     >>> runs = [Campaign(np.array([0, 1, 2]), np.array([0, 0, 1])),
     ...         Campaign(np.array([0, 2]), np.array([0, 1]))]
     >>> goyal_lt_weights(g, runs).tolist()
@@ -316,8 +316,7 @@ def edge_features(g: GraphArrays) -> tuple[NDArray[np.float64], tuple[str, ...]]
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, True, np.array([0, 1, 1], np.int32), np.array([1, 0, 2], np.int32),
-    ...                 np.array([1.0, 3.0, 1.0]))
+    >>> g = from_edges([(0, 1), (1, 0), (1, 2)], directed=True, weights=[1.0, 3.0, 1.0])
     >>> x, names = edge_features(g); x.shape, names
     ((3, 3), ('interactions (log)', 'reciprocity', 'tie strength'))
     """
@@ -338,7 +337,7 @@ def learned_diffusion_graph(g: GraphArrays, arc_prob: ArrayLike) -> DiffusionGra
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(2, False, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)])
     >>> learned_diffusion_graph(g, [0.2, 0.7]).out_prob.tolist()
     [0.2, 0.7]
     """
@@ -369,9 +368,8 @@ def match_arcs(previous: GraphArrays, g: GraphArrays, node_map: ArrayLike) -> ND
     Examples
     --------
     >>> import numpy as np
-    >>> old = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
-    >>> new = GraphArrays(3, True, np.array([1, 2], np.int32), np.array([2, 0], np.int32),
-    ...                   np.ones(2))
+    >>> old = from_edges([(0, 1)], directed=True)
+    >>> new = from_edges([(1, 2), (2, 0)], directed=True)
     >>> match_arcs(old, new, [-1, 0, 1]).tolist()
     [0, -1]
     """
@@ -432,12 +430,11 @@ def transfer_probabilities(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(2, True, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)], directed=True)
     >>> runs = [Campaign(np.array([0, 1]), np.array([0, 1]))] * 2
     >>> runs += [Campaign(np.array([0, 1]), np.array([0, 2]), horizon=2)] * 2
     >>> m = learn_probabilities(g, runs, methods=["uniform"], folds=2)
-    >>> g2 = GraphArrays(3, True, np.array([0, 1], np.int32), np.array([1, 2], np.int32),
-    ...                  np.ones(2))
+    >>> g2 = from_edges([(0, 1), (1, 2)], directed=True)
     >>> transfer_probabilities(m, g2, previous_arc=[0, -1]).tolist()
     [0.5, 0.5]
     """

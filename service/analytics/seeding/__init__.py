@@ -1,5 +1,6 @@
-"""Seed selection under contact rules: reverse-reachable (RR) sampling, IMM,
-OPIM-C, CELF, the degree baselines, and shortlist evaluation.
+"""Seed selection under contact rules: the rules as one value (``rules``),
+reverse-reachable (RR) sampling, IMM, OPIM-C, CELF, the degree baselines, and
+shortlist evaluation.
 
 Public names of this family; private modules (leading underscore) hold
 the steps and the compiled kernels.
@@ -21,9 +22,12 @@ from .shortlists import (
     Shortlist,
     top_score_seeds,
 )
+from .rules import SeedGuarantee, SeedRules
 
 __all__ = [
     "SeedChoice",
+    "SeedRules",
+    "SeedGuarantee",
     "ReachEstimate",
     "Shortlist",
     "rr_estimate",

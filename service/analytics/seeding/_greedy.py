@@ -15,11 +15,10 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _rr_kernels as K
-from ._rr import Rules
-from ._common import (KNAPSACK_RATIO, MATROID_RATIO, ONE_MINUS_INV_E, Progress,
-                           ReachEstimate, SeedChoice, Shortlist, facts_from, rule_notes)
-from ._rules import Caps, build_rules
-from ._rules import reasons as _reasons
+from ._cover import close_full_groups
+from ._reasons import facts_from, reasons
+from ._results import Progress, ReachEstimate, SeedChoice, Shortlist
+from .rules import SeedRules
 from ..errors import InvalidParameter
 from ..graph import DiffusionGraph, GraphArrays, arcs, csr
 
@@ -28,18 +27,10 @@ __all__ = ["celf_seeds", "degree_discount_seeds", "top_score_seeds"]
 
 def celf_seeds(
     spread: Callable[[Sequence[int]], float],
-    n: int,
-    budget: int | None = None,
+    rules: SeedRules,
     *,
-    eligible: NDArray[np.bool_] | None = None,
-    must_include: Sequence[int] = (),
-    segments: NDArray[np.integer] | None = None,
-    max_per_segment: Caps = None,
-    costs: NDArray[np.float64] | None = None,
-    cost_budget: float | None = None,
     progress: Progress | None = None,
     degrees: NDArray[np.float64] | None = None,
-    segment_labels: Sequence[str] | None = None,
     communities: NDArray[np.integer] | None = None,
 ) -> Shortlist:
     """Lazy greedy seed selection over any spread oracle (CELF).
@@ -54,9 +45,8 @@ def celf_seeds(
     ----------
     spread : ``spread(seeds) -> expected reach``; exact (enumeration), or a
         Monte Carlo / RR estimate (then the guarantee holds only approximately).
-    n : number of nodes.
-    budget, eligible, must_include, segments, max_per_segment, costs,
-    cost_budget, progress, segment_labels, communities :
+    rules : the contact rules, built for the oracle's ``n`` people.
+    progress, communities :
         as in :func:`~service.analytics.seeding.shortlists.imm_seeds`.
     degrees : optional degrees for tie-breaking and the reasons' degree rank.
 
@@ -67,8 +57,8 @@ def celf_seeds(
 
     Raises
     ------
-    InfeasibleRequest, UnknownNode, InvalidParameter
-        As :func:`~service.analytics.seeding.shortlists.imm_seeds`.
+    InvalidParameter
+        ``degrees`` of the wrong length.
 
     Notes
     -----
@@ -85,14 +75,13 @@ def celf_seeds(
     --------
     >>> cover = {0: {0, 1, 2}, 1: {1}, 2: {2, 3}, 3: {3}}
     >>> f = lambda s: float(len(set().union(*(cover[v] for v in s))))
-    >>> celf_seeds(f, 4, 2).nodes
+    >>> from service.analytics.seeding.rules import SeedRules
+    >>> celf_seeds(f, SeedRules.build(4, budget=2)).nodes
     (0, 2)
     """
     t_all = time.perf_counter()
-    deg = np.zeros(n) if degrees is None else np.asarray(degrees, dtype=np.float64)
-    rules = build_rules(n, budget=budget, eligible=eligible, must_include=must_include,
-                        segments=segments, max_per_segment=max_per_segment, costs=costs,
-                        cost_budget=cost_budget, tiebreak=deg)
+    n = rules.n
+    rules = rules.with_tiebreak(np.zeros(n) if degrees is None else degrees)
     cache: dict[frozenset[int], float] = {}
 
     def f(s: Sequence[int]) -> float:
@@ -109,7 +98,7 @@ def celf_seeds(
         first[v] = f(must + [v]) - base
         if progress is not None:  # one spread estimate per candidate: a cancel point after each
             progress(0.5 * i / max(len(cand), 1), "evaluating single seeds")
-    two = rules.budget_left is not None
+    two = rules.cost_left is not None
     runs = [_lazy(f, rules, first, base, ratio=False, progress=progress,
                   span=(0.5, 0.75 if two else 1.0))]
     if two:
@@ -122,14 +111,13 @@ def celf_seeds(
     # Without must-include people the first pass already holds every single
     # seed's reach; otherwise only the chosen seeds' own reach is known.
     best_alone = max(list(first.values()) + alone) if not must else max(alone, default=0.0)
-    facts = facts_from(seeds, all_gains, alone, best_alone, rules, segments=segments,
-                       segment_labels=segment_labels, communities=communities)
-    texts = _reasons(facts, n=n)
+    facts = facts_from(seeds, all_gains, alone, best_alone, rules, communities=communities)
+    texts = reasons(facts, n=n)
     curve = np.cumsum(np.asarray(all_gains, dtype=np.float64))
     mset = set(must)
     choices = tuple(SeedChoice(int(v), float(g), float(c), t, int(v) in mset, fct)
                     for v, g, c, t, fct in zip(seeds, all_gains, curve, texts, facts))
-    factor, formula = _factor(rules)
+    promise = rules.guarantee()
     return Shortlist(
         method="celf",
         seeds=choices,
@@ -138,11 +126,11 @@ def celf_seeds(
         expected_reach=ReachEstimate(value, float("nan"), 0, "oracle"),
         guarantee={
             "method": "CELF lazy greedy (Leskovec et al. 2007)",
-            "approximation": factor,
-            "approximation_formula": formula,
+            "approximation": promise.approximation,
+            "approximation_formula": promise.formula,
             "probability": None,
             "certified_ratio": None,
-            "notes": rule_notes(rules) + [
+            "notes": list(promise.notes) + [
                 "holds for an exact spread oracle; with a Monte Carlo oracle only up to its "
                 "sampling error"],
         },
@@ -154,17 +142,7 @@ def celf_seeds(
     )
 
 
-def _factor(rules: Rules) -> tuple[float | None, str]:
-    if rules.budget_left is not None:
-        if rules.k_left is not None or rules.caps_left is not None:
-            return None, "none proven"
-        return KNAPSACK_RATIO, "0.405"
-    if rules.caps_left is not None:
-        return MATROID_RATIO, "1/2"
-    return ONE_MINUS_INV_E, "1 - 1/e"
-
-
-def _lazy(f: Callable[[Sequence[int]], float], rules: Rules, first: dict[int, float],
+def _lazy(f: Callable[[Sequence[int]], float], rules: SeedRules, first: dict[int, float],
           base: float, *, ratio: bool, progress: Progress | None, span: tuple[float, float]
           ) -> tuple[list[int], list[float], float]:
     costs = rules.costs
@@ -181,12 +159,12 @@ def _lazy(f: Callable[[Sequence[int]], float], rules: Rules, first: dict[int, fl
     picked: list[int] = []
     gains: list[float] = []
     cur = base
-    room = math.inf if rules.budget_left is None else rules.budget_left
+    cost_left = math.inf if rules.cost_left is None else rules.cost_left
     used = None if rules.caps_left is None else np.zeros_like(rules.caps_left)
-    limit = rules.max_free
-    while heap and len(picked) < limit:
+    places = rules.free_places
+    while heap and len(picked) < places:
         _, _, v, last, g = heapq.heappop(heap)
-        if costs is not None and costs[v] > room:
+        if costs is not None and costs[v] > cost_left:
             continue  # the budget only shrinks: it never fits again
         if used is not None and rules.group is not None and rules.caps_left is not None:
             grp = int(rules.group[v])
@@ -196,7 +174,7 @@ def _lazy(f: Callable[[Sequence[int]], float], rules: Rules, first: dict[int, fl
             g = f(chosen + [v]) - cur
             heapq.heappush(heap, (-key(v, g), -float(tb[v]), v, len(picked), g))
             if progress is not None:  # each re-evaluation is a spread estimate: a cancel point
-                progress(span[0] + (span[1] - span[0]) * len(picked) / max(limit, 1),
+                progress(span[0] + (span[1] - span[0]) * len(picked) / max(places, 1),
                          "choosing seeds (lazy greedy)")
             continue
         chosen.append(v)
@@ -204,11 +182,11 @@ def _lazy(f: Callable[[Sequence[int]], float], rules: Rules, first: dict[int, fl
         gains.append(g)
         cur += g
         if costs is not None:
-            room -= float(costs[v])
+            cost_left -= float(costs[v])
         if used is not None and rules.group is not None:
             used[int(rules.group[v])] += 1
         if progress is not None:
-            progress(span[0] + (span[1] - span[0]) * len(picked) / max(limit, 1),
+            progress(span[0] + (span[1] - span[0]) * len(picked) / max(places, 1),
                      "choosing seeds (lazy greedy)")
     return picked, gains, f(chosen)
 
@@ -225,7 +203,7 @@ def _neighbours(g: DiffusionGraph | GraphArrays) -> tuple[NDArray[np.int64], NDA
     raise InvalidParameter("expected a DiffusionGraph or GraphArrays", field="graph")
 
 
-def _pick(scores_at: Callable[[], NDArray[np.float64]], rules: Rules,
+def _pick(scores_at: Callable[[], NDArray[np.float64]], rules: SeedRules,
           on_pick: Callable[[int], None]) -> list[int]:
     """Highest current score first, under the rules (must-include first)."""
     seeds: list[int] = []
@@ -233,21 +211,22 @@ def _pick(scores_at: Callable[[], NDArray[np.float64]], rules: Rules,
         seeds.append(v)
         on_pick(v)
     avail = rules.candidates.copy()
-    _close_full_groups(avail, rules)
+    close_full_groups(avail, rules)
     used = None if rules.caps_left is None else np.zeros_like(rules.caps_left)
-    room = math.inf if rules.budget_left is None else rules.budget_left
+    cost_left = math.inf if rules.cost_left is None else rules.cost_left
     costs = rules.costs if rules.costs is not None else np.empty(0)
-    while len(seeds) - len(rules.must) < rules.max_free:
+    places = rules.free_places
+    while len(seeds) - len(rules.must) < places:
         s = scores_at()
         v = int(K.best_candidate(np.where(np.isnan(s), -1e300, s), avail, rules.tiebreak,
-                                 costs, False, room))
+                                 costs, False, cost_left))
         if v < 0:
             break
         seeds.append(v)
         avail[v] = False
         on_pick(v)
         if rules.costs is not None:
-            room -= float(rules.costs[v])
+            cost_left -= float(rules.costs[v])
         if used is not None and rules.group is not None and rules.caps_left is not None:
             grp = int(rules.group[v])
             used[grp] += 1
@@ -256,7 +235,7 @@ def _pick(scores_at: Callable[[], NDArray[np.float64]], rules: Rules,
     return seeds
 
 
-def _baseline(method: str, seeds: list[int], texts: list[str], rules: Rules,
+def _baseline(method: str, seeds: list[int], texts: list[str], rules: SeedRules,
               t0: float, note: str, scores: list[float]) -> Shortlist:
     nan = float("nan")
     mset = set(rules.must)
@@ -273,16 +252,9 @@ def _baseline(method: str, seeds: list[int], texts: list[str], rules: Rules,
 
 def degree_discount_seeds(
     g: DiffusionGraph | GraphArrays,
-    budget: int | None = None,
+    rules: SeedRules,
     *,
     p: float = 0.01,
-    eligible: NDArray[np.bool_] | None = None,
-    must_include: Sequence[int] = (),
-    segments: NDArray[np.integer] | None = None,
-    max_per_segment: Caps = None,
-    costs: NDArray[np.float64] | None = None,
-    cost_budget: float | None = None,
-    segment_labels: Sequence[str] | None = None,
     communities: NDArray[np.integer] | None = None,
 ) -> Shortlist:
     """Degree discount heuristic for uniform IC probability ``p``.
@@ -295,10 +267,9 @@ def degree_discount_seeds(
     ----------
     g : a DiffusionGraph (its out-neighbours) or GraphArrays (undirected:
         neighbours; directed: out-neighbours).
-    budget, eligible, must_include, segments, max_per_segment, costs,
-    cost_budget, segment_labels, communities : as in
-        :func:`~service.analytics.seeding.shortlists.imm_seeds` (costs: affordable
-        people only, in score order).
+    rules, communities : as in
+        :func:`~service.analytics.seeding.shortlists.imm_seeds` (a cost budget:
+        affordable people only, in score order).
     p : the uniform propagation probability the discount assumes.
 
     Returns
@@ -308,8 +279,8 @@ def degree_discount_seeds(
 
     Raises
     ------
-    InfeasibleRequest, UnknownNode, InvalidParameter
-        As :func:`~service.analytics.seeding.shortlists.imm_seeds`; ``p`` outside [0, 1].
+    InvalidParameter
+        ``p`` outside [0, 1]; rules built for another graph size.
 
     Notes
     -----
@@ -327,7 +298,8 @@ def degree_discount_seeds(
     >>> import numpy as np
     >>> g = GraphArrays(4, False, np.array([0, 0, 0, 1], np.int32),
     ...                 np.array([1, 2, 3, 2], np.int32), np.ones(4))
-    >>> degree_discount_seeds(g, 2, p=0.1).nodes
+    >>> from service.analytics.seeding.rules import SeedRules
+    >>> degree_discount_seeds(g, SeedRules.build(4, budget=2), p=0.1).nodes
     (0, 1)
     """
     t0 = time.perf_counter()
@@ -336,9 +308,8 @@ def degree_discount_seeds(
     indptr, indices = _neighbours(g)
     n = indptr.shape[0] - 1
     d = np.diff(indptr).astype(np.float64)
-    rules = build_rules(n, budget=budget, eligible=eligible, must_include=must_include,
-                        segments=segments, max_per_segment=max_per_segment, costs=costs,
-                        cost_budget=cost_budget, tiebreak=d)
+    rules.check_size(n)
+    rules = rules.with_tiebreak(d)
     dd = d.copy()
     t = np.zeros(n)
     chosen = np.zeros(n, dtype=bool)
@@ -354,11 +325,11 @@ def degree_discount_seeds(
 
     seeds = _pick(lambda: dd, rules, on_pick)
     facts = facts_from(seeds, [math.nan] * len(seeds), [math.nan] * len(seeds), math.nan, rules,
-                       segments=segments, segment_labels=segment_labels, communities=communities)
+                       communities=communities)
     texts = []
     for v, fct in zip(seeds, facts):
         score, tv = at_pick[v]
-        extra = "; ".join(x for x in _reasons([fct], n=n)[0].split("; ")
+        extra = "; ".join(x for x in reasons([fct], n=n)[0].split("; ")
                           if not x.startswith(("reaches", "adds")))
         texts.append(f"degree discount score {score:.3g} (degree {int(d[v])}, {tv} "
                      f"neighbour{'s' if tv != 1 else ''} already chosen); {extra}")
@@ -369,16 +340,9 @@ def degree_discount_seeds(
 
 def top_score_seeds(
     scores: NDArray[np.float64],
-    budget: int | None = None,
+    rules: SeedRules,
     *,
-    eligible: NDArray[np.bool_] | None = None,
-    must_include: Sequence[int] = (),
-    segments: NDArray[np.integer] | None = None,
-    max_per_segment: Caps = None,
-    costs: NDArray[np.float64] | None = None,
-    cost_budget: float | None = None,
     score_name: str = "score",
-    segment_labels: Sequence[str] | None = None,
     communities: NDArray[np.integer] | None = None,
 ) -> Shortlist:
     """The highest-scoring people (degree, PageRank, ...) under the contact rules.
@@ -386,8 +350,7 @@ def top_score_seeds(
     Parameters
     ----------
     scores : one value per node (NaN: ranked last).
-    budget, eligible, must_include, segments, max_per_segment, costs,
-    cost_budget, segment_labels, communities : as in
+    rules, communities : as in
         :func:`~service.analytics.seeding.shortlists.imm_seeds`.
     score_name : used in the reasons, e.g. ``"PageRank"``.
 
@@ -398,8 +361,8 @@ def top_score_seeds(
 
     Raises
     ------
-    InfeasibleRequest, UnknownNode, InvalidParameter
-        As :func:`~service.analytics.seeding.shortlists.imm_seeds`.
+    InvalidParameter
+        ``scores`` not one value per node; rules built for another graph size.
 
     Notes
     -----
@@ -409,7 +372,8 @@ def top_score_seeds(
     Examples
     --------
     >>> import numpy as np
-    >>> top_score_seeds(np.array([0.1, 0.4, 0.2, 0.3]), 2).nodes
+    >>> from service.analytics.seeding.rules import SeedRules
+    >>> top_score_seeds(np.array([0.1, 0.4, 0.2, 0.3]), SeedRules.build(4, budget=2)).nodes
     (1, 3)
     """
     t0 = time.perf_counter()
@@ -417,28 +381,19 @@ def top_score_seeds(
     if s.ndim != 1:
         raise InvalidParameter("scores must be one value per node", field="scores")
     n = s.shape[0]
-    rules = build_rules(n, budget=budget, eligible=eligible, must_include=must_include,
-                        segments=segments, max_per_segment=max_per_segment, costs=costs,
-                        cost_budget=cost_budget, tiebreak=np.zeros(n))
+    rules.check_size(n)
+    rules = rules.with_tiebreak(np.zeros(n))
     seeds = _pick(lambda: s, rules, lambda v: None)
     srt = np.sort(np.where(np.isnan(s), -np.inf, s))
     facts = facts_from(seeds, [math.nan] * len(seeds), [math.nan] * len(seeds), math.nan, rules,
-                       segments=segments, segment_labels=segment_labels, communities=communities,
-                       degrees=np.where(np.isnan(s), -np.inf, s))
+                       communities=communities, degrees=np.where(np.isnan(s), -np.inf, s))
     texts = []
     for v, fct in zip(seeds, facts):
         rank = 1 + int(n - np.searchsorted(srt, s[v] if not np.isnan(s[v]) else -np.inf,
                                             side="right"))
-        extra = [x for x in _reasons([fct], n=n)[0].split("; ")
+        extra = [x for x in reasons([fct], n=n)[0].split("; ")
                  if not x.startswith(("reaches", "adds", "degree rank"))]
         texts.append("; ".join([f"{score_name} {s[v]:.4g}, rank {rank:,} of {n:,}"] + extra))
     return _baseline(f"top_{score_name}", seeds, texts, rules, t0, f"top {score_name}",
                      [float(s[v]) for v in seeds])
 
-
-def _close_full_groups(avail: np.ndarray, rules: Rules) -> None:
-    """Bar every group whose cap is already used up (by must-include people, or a cap of 0)."""
-    if rules.caps_left is not None and rules.group is not None:
-        full = np.flatnonzero(np.asarray(rules.caps_left) <= 0)
-        if full.size:
-            avail[np.isin(rules.group, full)] = False

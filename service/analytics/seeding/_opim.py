@@ -7,18 +7,18 @@ from __future__ import annotations
 
 import math
 import time
-from collections.abc import Sequence
 
 import numpy as np
 from numpy.typing import NDArray
 
 from . import _rr_kernels as K
-from ._rr import GreedyResult, RRCollection, RRSampler
-from ._common import (TAG_R1, TAG_R2, Progress, Shortlist, check_common, check_eps,
-                           choices, dg_rules, facts, forecast, greedy_factor, opt_floor,
-                           prefix_gains, rule_notes, select)
-from ._rules import Caps, log_feasible_sets
-from ._rules import reasons as _reasons
+from ._cover import GreedyResult, select
+from ._estimates import (TAG_R1, TAG_R2, check_common, check_eps, degrees_of, forecast,
+                         opt_floor, prefix_gains)
+from ._reasons import facts, reasons
+from ._results import Progress, Shortlist, choices
+from ._rr import RRCollection, RRSampler
+from .rules import SeedRules
 from ..errors import InvalidParameter
 from ..graph import DiffusionGraph
 
@@ -56,7 +56,7 @@ def _opim_lower(cov: float, a: float, theta: int, scale: float) -> float:
 
 def opim_seeds(
     dg: DiffusionGraph,
-    budget: int | None = None,
+    rules: SeedRules,
     *,
     epsilon: float = 0.1,
     target_ratio: float | None = None,
@@ -64,17 +64,10 @@ def opim_seeds(
     max_samples: int = 20_000_000,
     time_limit: float | None = None,
     random_seed: int = 0,
-    eligible: NDArray[np.bool_] | None = None,
-    must_include: Sequence[int] = (),
-    segments: NDArray[np.integer] | None = None,
-    max_per_segment: Caps = None,
-    costs: NDArray[np.float64] | None = None,
-    cost_budget: float | None = None,
     weights: NDArray[np.float64] | None = None,
     rounds: int | None = None,
     progress: Progress | None = None,
     forecast_runs: int = 1000,
-    segment_labels: Sequence[str] | None = None,
     communities: NDArray[np.integer] | None = None,
 ) -> Shortlist:
     """Choose seeds by OPIM-C and certify their quality on this instance.
@@ -88,9 +81,8 @@ def opim_seeds(
 
     Parameters
     ----------
-    dg, budget, random_seed, eligible, must_include, segments, max_per_segment,
-    costs, cost_budget, weights, rounds, progress, forecast_runs,
-    segment_labels, communities : as in :func:`imm_seeds`.
+    dg, rules, random_seed, weights, rounds, progress, forecast_runs,
+    communities : as in :func:`imm_seeds`.
     epsilon : slack of the worst-case guarantee and of the default target.
     target_ratio : stop once the certified ratio reaches this. By default the
         target is the rules' greedy ratio minus epsilon (1 - 1/e - epsilon for a
@@ -145,7 +137,9 @@ def opim_seeds(
     >>> from service.analytics.graph import GraphArrays, diffusion_graph
     >>> g = GraphArrays(4, True, np.array([0, 0, 0], np.int32),
     ...                 np.array([1, 2, 3], np.int32), np.ones(3))
-    >>> sl = opim_seeds(diffusion_graph(g, scheme="uniform", p=1.0), 1, forecast_runs=0)
+    >>> from service.analytics.seeding.rules import SeedRules
+    >>> rules = SeedRules.build(4, budget=1)
+    >>> sl = opim_seeds(diffusion_graph(g, scheme="uniform", p=1.0), rules, forecast_runs=0)
     >>> sl.nodes, sl.guarantee["certified_ratio"] > 0.5
     ((0,), True)
     """
@@ -157,11 +151,12 @@ def opim_seeds(
         delta = 1.0 / max(n, 2)
     if not (isinstance(delta, (int, float)) and 0 < delta < 1):
         raise InvalidParameter("delta must be in (0, 1)", field="delta")
-    rules = dg_rules(dg, budget, eligible, must_include, segments, max_per_segment, costs,
-                     cost_budget)
+    rules.check_size(n)
+    rules = rules.with_tiebreak(degrees_of(dg))
     sampler = RRSampler(dg, weights=w, rounds=rounds)
     scale = sampler.total_weight
-    factor, formula, caveat = greedy_factor(rules)
+    promise = rules.guarantee()
+    factor, formula, caveat = promise.ratio, promise.formula_with("epsilon"), promise.caveat
     # Default stopping rule: the certified ratio must reach the worst-case guarantee AND R1
     # must hold as many sets as the worst-case size with the certified lower bound for OPT
     # (see Notes); a ratio alone is certified long before the set is as good as IMM's.
@@ -170,7 +165,7 @@ def opim_seeds(
         target_ratio = factor - epsilon
     if not (isinstance(target_ratio, (int, float)) and 0 < target_ratio <= 1):
         raise InvalidParameter("target_ratio must be in (0, 1]", field="target_ratio")
-    ln_sets = log_feasible_sets(rules)
+    ln_sets = rules.log_feasible_sets()
     floor = opt_floor(rules, w)
     ln6 = math.log(6.0 / delta)
     theta_max = (2.0 * scale * (factor * math.sqrt(ln6) + math.sqrt(factor * (ln_sets + ln6))) ** 2
@@ -220,18 +215,17 @@ def opim_seeds(
         progress(0.9, "forecasting reach of the chosen set")
     t0 = time.perf_counter()
     fc = forecast(dg, res.seeds, runs=forecast_runs, random_seed=random_seed, weights=w,
-                  rounds=rounds, sampler=sampler)
+                  rounds=rounds)
     timings["forecast"] = time.perf_counter() - t0
     # The reach curve from R2, which played no part in the choice.
     gains2 = prefix_gains(r2, res.seeds)
     seed_facts = facts(GreedyResult(res.seeds, tuple(int(g) for g in gains2), 0, None, res.rule),
-                       r2, rules, segments=segments, segment_labels=segment_labels,
-                       communities=communities)
+                       r2, rules, communities=communities)
     unit = "people" if w is None else "audience value"
     seeds, curve = choices(res.seeds, [g * r2.scale() for g in gains2],
-                           _reasons(seed_facts, n=n, unit=unit), rules.must, seed_facts)
+                           reasons(seed_facts, n=n, unit=unit), rules.must, seed_facts)
     full = stop == "max rounds" and r1.count >= theta_max
-    notes = rule_notes(rules) + ([caveat] if caveat else []) + [f"stopped: {stop}"]
+    notes = list(promise.notes) + ([caveat] if caveat else []) + [f"stopped: {stop}"]
     approx: float | None = ratio
     if full and not caveat:
         approx = max(ratio, factor - epsilon)

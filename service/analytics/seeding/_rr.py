@@ -1,12 +1,10 @@
-"""Reverse-reachable (RR) set collections and greedy maximum coverage under rules.
+"""Reverse-reachable (RR) set collections.
 
 Private helpers of :mod:`service.analytics.seeding.shortlists`. A :class:`RRSampler`
 prepares a :class:`~service.analytics.graph.DiffusionGraph` once (per-node
 sampling modes, the root distribution); an :class:`RRCollection` grows a
-flat store of RR sets reproducibly; :func:`greedy_cover` picks seeds that
-cover many stored sets under the contact rules of :class:`Rules`, and can
-report the online upper bound on the best achievable coverage used by
-OPIM-C.
+flat store of RR sets reproducibly. Greedy coverage of the stored sets under
+the contact rules is in :mod:`._cover`.
 
 Memory per stored entry (one node in one RR set): 4 bytes in the set store
 (int32 node), 4 bytes in the node -> sets index (int32 set id); per set
@@ -19,10 +17,8 @@ ever committed.
 
 from __future__ import annotations
 
-import math
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -38,10 +34,6 @@ __all__ = [
     "BYTES_PER_ENTRY",
     "RRSampler",
     "RRCollection",
-    "Rules",
-    "GreedyResult",
-    "greedy_cover",
-    "best_of_cost_greedy",
 ]
 
 BYTES_PER_ENTRY = 8  # int32 node in the store + int32 set id in the inverted index
@@ -252,190 +244,3 @@ def _grow(a: NDArray, need: int) -> NDArray:  # type: ignore[type-arg]
     out = np.empty(max(need, int(a.shape[0] * 1.6)), dtype=a.dtype)
     out[: a.shape[0]] = a
     return out
-
-
-@dataclass(frozen=True, eq=False)
-class Rules:
-    """Validated contact rules, in the form the greedy routines use.
-
-    ``candidates`` excludes must-include nodes, barred people and (with a
-    cost budget) people whose cost is unknown. ``group`` maps each node to a
-    cap group (segment code + 1, so a missing segment is group 0) and
-    ``caps_left`` holds each group's cap after the must-include nodes are
-    counted; both are None without caps. ``k_left`` is the count budget
-    left after the must-include nodes (None: cost budget only) and
-    ``budget_left`` the cost budget left (None: count only).
-    """
-
-    n: int
-    must: tuple[int, ...]
-    candidates: NDArray[np.bool_]
-    group: NDArray[np.int64] | None
-    caps_left: NDArray[np.int64] | None
-    costs: NDArray[np.float64] | None
-    k_left: int | None
-    budget_left: float | None
-    tiebreak: NDArray[np.float64]
-
-    @property
-    def kind(self) -> str:
-        if self.budget_left is not None:
-            return "cost"
-        if self.caps_left is not None:
-            return "caps"
-        return "count"
-
-    @property
-    def max_free(self) -> int:
-        """Most seeds the greedy may add beyond the must-include ones."""
-        cand = int(self.candidates.sum())
-        return cand if self.k_left is None else min(self.k_left, cand)
-
-
-@dataclass(frozen=True)
-class GreedyResult:
-    seeds: tuple[int, ...]
-    gains: tuple[int, ...]  # sets newly covered by each seed, in order
-    covered: int
-    upper_bound: float | None  # bound on the coverage of the best feasible set
-    rule: str  # "unit" or "ratio" (which greedy produced the set)
-
-
-def greedy_cover(
-    coll: RRCollection, rules: Rules, *, ratio: bool = False, bound: bool = False
-) -> GreedyResult:
-    """Greedy maximum coverage of the stored sets under ``rules``.
-
-    Must-include nodes are placed first, in the given order; then each step
-    adds the available node covering the most still-uncovered sets (per
-    unit cost when ``ratio``), skipping nodes whose cap group is full or who
-    no longer fit the cost budget. With ``bound`` it also returns
-    min over steps i of [coverage(S_i) + the best feasible sum of marginal
-    coverages w.r.t. S_i], an upper bound on the best feasible coverage by
-    submodularity (the online bound of Leskovec et al. 2007, used by
-    OPIM-C); evaluated at every step for small budgets, on a geometric
-    schedule of steps for large ones (any subset of steps gives a valid bound).
-    """
-    inv_indptr, inv_sets, counts0 = coll.index()
-    nodes, offsets = coll.nodes, coll.offsets
-    counts = counts0.copy()
-    covered = np.zeros(coll.count, dtype=np.uint8)
-    seeds: list[int] = []
-    gains: list[int] = []
-    total = 0
-    for v in rules.must:
-        g = int(K.cover_node(v, inv_indptr, inv_sets, offsets, nodes, covered, counts))
-        seeds.append(v)
-        gains.append(g)
-        total += g
-    avail = rules.candidates.copy()
-    _close_full_groups(avail, rules)
-    caps_used = np.zeros(0 if rules.caps_left is None else rules.caps_left.shape[0], np.int64)
-    budget_left = math.inf if rules.budget_left is None else float(rules.budget_left)
-    costs = rules.costs if rules.costs is not None else np.empty(0, dtype=np.float64)
-    limit = rules.max_free
-    schedule = _bound_schedule(limit) if bound else set()
-    best_bound = math.inf
-    step = 0
-    while True:
-        if bound and step in schedule:
-            best_bound = min(best_bound, total + _modular_bound(counts, rules))
-        if step >= limit:
-            break
-        v = int(K.best_candidate(counts, avail, rules.tiebreak, costs, ratio, budget_left))
-        if v < 0:
-            break
-        g = int(K.cover_node(v, inv_indptr, inv_sets, offsets, nodes, covered, counts))
-        seeds.append(v)
-        gains.append(g)
-        total += g
-        avail[v] = False
-        step += 1
-        if rules.costs is not None:
-            budget_left -= float(rules.costs[v])
-        if rules.caps_left is not None and rules.group is not None:
-            grp = int(rules.group[v])
-            caps_used[grp] += 1
-            if caps_used[grp] >= rules.caps_left[grp]:
-                avail[rules.group == grp] = False
-    if bound:
-        best_bound = min(best_bound, total + _modular_bound(counts, rules))
-    return GreedyResult(
-        tuple(seeds), tuple(gains), total, best_bound if bound else None,
-        "ratio" if ratio else "unit",
-    )
-
-
-def best_of_cost_greedy(
-    coll: RRCollection, rules: Rules, *, bound: bool = False
-) -> tuple[GreedyResult, GreedyResult, GreedyResult]:
-    """(better, ratio greedy, unit greedy): under a cost budget the better of
-    benefit/cost greedy and unit-cost greedy (Leskovec et al. 2007), which
-    dominates "ratio greedy or the best single seed", 0.405-approximate
-    (K. Tang et al. 2021)."""
-    r = greedy_cover(coll, rules, ratio=True, bound=bound)
-    u = greedy_cover(coll, rules, ratio=False, bound=False)
-    better = r if r.covered >= u.covered else u
-    if bound and better is u:
-        better = GreedyResult(u.seeds, u.gains, u.covered, r.upper_bound, u.rule)
-    return better, r, u
-
-
-def _bound_schedule(limit: int) -> set[int]:
-    if limit <= 64:
-        return set(range(limit + 1))
-    steps = {0, limit}
-    x = 1.0
-    while x < limit:
-        steps.add(int(x))
-        x *= 1.25
-    return steps
-
-
-def _modular_bound(counts: NDArray[np.int64], rules: Rules) -> float:
-    """Largest total marginal coverage a feasible completion could add (an
-    upper bound: rule-feasible sets of nodes, counts summed, relaxing
-    overlaps). Counts of chosen nodes are already 0, so including them is harmless."""
-    c = np.where(rules.candidates, counts, 0)
-    pos = np.flatnonzero(c > 0)
-    if pos.size == 0:
-        return 0.0
-    vals = c[pos].astype(np.float64)
-    bounds: list[float] = []
-    k = rules.k_left
-    if k == 0:
-        return 0.0
-    if k is not None:
-        if rules.caps_left is not None and rules.group is not None:
-            order = pos[np.argsort(-vals, kind="stable")]
-            bounds.append(float(K.capped_top_sum(order, c, rules.group, rules.caps_left, k)))
-        elif k < vals.size:
-            bounds.append(float(np.partition(vals, vals.size - k)[vals.size - k:].sum()))
-        else:
-            bounds.append(float(vals.sum()))
-    if rules.budget_left is not None and rules.costs is not None:
-        cost = rules.costs[pos]
-        free = cost <= 0
-        total = float(vals[free].sum())
-        cv, vv = cost[~free], vals[~free]
-        order = np.argsort(-(vv / cv), kind="stable")
-        cv, vv = cv[order], vv[order]
-        room = float(rules.budget_left)
-        # Fractional knapsack (the LP relaxation bound): whole items while
-        # they fit, then the fitting fraction of the next one.
-        whole = int(np.searchsorted(np.cumsum(cv), room, side="right"))
-        total += float(vv[:whole].sum())
-        if whole < cv.size:
-            total += float(vv[whole]) * (room - float(cv[:whole].sum())) / float(cv[whole])
-        bounds.append(total)
-    if not bounds:
-        bounds.append(float(vals.sum()))
-    return min(bounds)
-
-
-def _close_full_groups(avail: np.ndarray, rules: Rules) -> None:
-    """Bar every group whose cap is already used up (by must-include people, or a cap of 0)."""
-    if rules.caps_left is not None and rules.group is not None:
-        full = np.flatnonzero(np.asarray(rules.caps_left) <= 0)
-        if full.size:
-            avail[np.isin(rules.group, full)] = False

@@ -7,10 +7,11 @@ the set is to the best possible one. Lazy greedy over any spread oracle
 (CELF, Leskovec et al. 2007) for small graphs and for checking; degree
 discount (Chen, Wang, Yang 2009) and top-score lists as baselines.
 
-Every method takes the same contact rules: a count budget or a cost budget,
-an eligible mask (consent, not barred: never seeds), must-include people
-(placed first), per-segment caps, and target-audience weights (reach counts
-the audience value reached instead of people).
+Every method takes the same contact rules as one value,
+:class:`~service.analytics.seeding.rules.SeedRules`: a count budget or a cost
+budget, an eligible mask (consent, not barred: never seeds), must-include
+people (placed first) and per-segment caps; target-audience ``weights`` (reach
+counts the audience value reached instead of people) are an option beside them.
 """
 
 from __future__ import annotations
@@ -24,15 +25,15 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _rr_kernels as K
-from ._rr import BYTES_PER_ENTRY, RRCollection, RRSampler
-from ._common import (ONE_MINUS_INV_E, TAG_EST, TAG_EVAL, TAG_FINAL, Progress,
-                           ReachEstimate, SeedChoice, Shortlist, check_common, check_eps,
-                           choices, dg_rules, facts, forecast, greedy_factor, lb_floor,
-                           prefix_gains, rr_hits, rule_notes, select)
+from ._cover import select
+from ._estimates import (TAG_EST, TAG_EVAL, TAG_FINAL, check_common, check_eps, degrees_of,
+                         forecast, lb_floor, prefix_gains, rr_hits)
 from ._greedy import celf_seeds, degree_discount_seeds, top_score_seeds
 from ._opim import opim_seeds
-from ._rules import Caps, check_seed_list, log_feasible_sets
-from ._rules import reasons as _reasons
+from ._reasons import facts, reasons
+from ._results import Progress, ReachEstimate, SeedChoice, Shortlist, choices
+from ._rr import BYTES_PER_ENTRY, RRCollection, RRSampler
+from .rules import ONE_MINUS_INV_E, SeedRules, check_seed_list
 from ..errors import InvalidParameter
 from ..graph import DiffusionGraph
 
@@ -166,23 +167,16 @@ def imm_lambda_star(n: int, ln_sets: float, *, epsilon: float, ell: float,
 
 def imm_seeds(
     dg: DiffusionGraph,
-    budget: int | None = None,
+    rules: SeedRules,
     *,
     epsilon: float = 0.1,
     l: float = 1.0,  # noqa: E741 - the paper's name
     random_seed: int = 0,
-    eligible: NDArray[np.bool_] | None = None,
-    must_include: Sequence[int] = (),
-    segments: NDArray[np.integer] | None = None,
-    max_per_segment: Caps = None,
-    costs: NDArray[np.float64] | None = None,
-    cost_budget: float | None = None,
     weights: NDArray[np.float64] | None = None,
     rounds: int | None = None,
     progress: Progress | None = None,
     max_rr_sets: int = 20_000_000,
     forecast_runs: int = 1000,
-    segment_labels: Sequence[str] | None = None,
     communities: NDArray[np.integer] | None = None,
 ) -> Shortlist:
     """Choose seeds by IMM with fresh final samples (Chen's fix).
@@ -196,21 +190,17 @@ def imm_seeds(
     Parameters
     ----------
     dg : the diffusion graph (IC or LT).
-    budget : number of seeds (with ``cost_budget``: the most seeds allowed, optional).
+    rules : the contact rules (:meth:`SeedRules.build`): budget or cost budget,
+        who may be contacted, must-include people (placed first, in this order),
+        caps per segment; built for ``dg.n`` people.
     epsilon, l : approximation slack and failure exponent (probability 1 - n^-l).
     random_seed : seeds every RR stream; the same inputs give the same shortlist.
-    eligible : who may be contacted (consent, not barred); others are never seeds.
-    must_include : people already signed up; placed first, in this order.
-    segments, max_per_segment : segment codes (-1 none) and caps per segment
-        (int for all, mapping code -> cap, or sequence); must-include people count.
-    costs, cost_budget : per-person cost and the total allowed; unknown (NaN)
-        cost means never chosen.
     weights : target-audience value per node; reach counts value.
     rounds : campaign horizon in rounds.
     progress : ``progress(fraction, message)``; may raise ``Cancelled``, which propagates.
     max_rr_sets : cap on RR sets per phase; hitting it voids the guarantee (stated).
     forecast_runs : forward Monte Carlo runs for the independent forecast (0: none).
-    segment_labels, communities : used only for the seeds' reasons.
+    communities : used only for the seeds' reasons.
 
     Returns
     -------
@@ -221,13 +211,9 @@ def imm_seeds(
 
     Raises
     ------
-    InfeasibleRequest
-        Budget above the eligible population, caps or costs that cannot be met,
-        a barred must-include person (``field`` names the rule).
-    UnknownNode
-        A must-include index outside the graph.
     InvalidParameter
-        Bad epsilon, l, weights, rounds, caps or costs.
+        Bad epsilon, l, weights or rounds; rules built for another graph size
+        (``field="rules"``). The rules themselves are checked by :meth:`SeedRules.build`.
 
     Notes
     -----
@@ -252,7 +238,8 @@ def imm_seeds(
     >>> from service.analytics.graph import GraphArrays, diffusion_graph
     >>> g = GraphArrays(4, True, np.array([0, 0, 0], np.int32),
     ...                 np.array([1, 2, 3], np.int32), np.ones(3))
-    >>> sl = imm_seeds(diffusion_graph(g, scheme="uniform", p=1.0), 1, forecast_runs=0)
+    >>> rules = SeedRules.build(4, budget=1)
+    >>> sl = imm_seeds(diffusion_graph(g, scheme="uniform", p=1.0), rules, forecast_runs=0)
     >>> sl.nodes, float(sl.reach_curve[-1]), sl.guarantee["approximation_formula"]
     ((0,), 4.0, '1 - 1/e - epsilon')
     """
@@ -261,15 +248,16 @@ def imm_seeds(
     check_eps(epsilon)
     if not (isinstance(l, (int, float)) and l > 0):
         raise InvalidParameter("l must be > 0", field="l")
-    rules = dg_rules(dg, budget, eligible, must_include, segments, max_per_segment, costs,
-                     cost_budget)
+    rules.check_size(dg.n)
+    rules = rules.with_tiebreak(degrees_of(dg))
     sampler = RRSampler(dg, weights=w, rounds=rounds)
     n, scale = dg.n, sampler.total_weight
-    factor, formula, caveat = greedy_factor(rules)
-    ln_sets = log_feasible_sets(rules)
+    promise = rules.guarantee()
+    factor, formula, caveat = promise.ratio, promise.formula_with("epsilon"), promise.caveat
+    ln_sets = rules.log_feasible_sets()
     timings: dict[str, float] = {}
 
-    if n < 2 or rules.max_free == 0:  # nothing to choose: place the must-include people
+    if n < 2 or rules.free_places == 0:  # nothing to choose: place the must-include people
         ell = float(l)
         lam_p = lam_s = lb = float("nan")
         est_sets = 0
@@ -313,14 +301,13 @@ def imm_seeds(
         progress(0.9, "forecasting reach of the chosen set")
     t0 = time.perf_counter()
     fc = forecast(dg, res.seeds, runs=forecast_runs, random_seed=random_seed, weights=w,
-                  rounds=rounds, sampler=sampler)
+                  rounds=rounds)
     timings["forecast"] = time.perf_counter() - t0
-    seed_facts = facts(res, final, rules, segments=segments, segment_labels=segment_labels,
-                       communities=communities)
+    seed_facts = facts(res, final, rules, communities=communities)
     unit = "people" if w is None else "audience value"
     seeds, curve = choices(res.seeds, [g * final.scale() for g in res.gains],
-                           _reasons(seed_facts, n=n, unit=unit), rules.must, seed_facts)
-    notes = rule_notes(rules) + ([caveat] if caveat else [])
+                           reasons(seed_facts, n=n, unit=unit), rules.must, seed_facts)
+    notes = list(promise.notes) + ([caveat] if caveat else [])
     approx: float | None = factor - epsilon
     if capped:
         approx = None
@@ -328,7 +315,7 @@ def imm_seeds(
                      "reached, so the guarantee does not hold")
     if caveat:
         approx = None
-    if n < 2 or rules.max_free == 0:
+    if n < 2 or rules.free_places == 0:
         approx, formula = 1.0, "exact (no choice to make)"
     prob = 1.0 - 2.0 * n ** (-ell) if n >= 2 else 1.0
     timings["total"] = time.perf_counter() - t_all
@@ -370,7 +357,7 @@ def evaluate_shortlist(
     weights: NDArray[np.float64] | None = None,
     rounds: int | None = None,
     progress: Progress | None = None,
-    eligible: NDArray[np.bool_] | None = None,
+    rules: SeedRules | None = None,
 ) -> Shortlist:
     """Fill in marginal gains, cumulative reach and the reach curve of any
     ordered shortlist (e.g. a baseline) from fresh RR sets.
@@ -384,7 +371,7 @@ def evaluate_shortlist(
     dg : the diffusion graph.
     shortlist : from any method of this module.
     samples, random_seed, weights, rounds, progress : as in :func:`rr_estimate`.
-    eligible : who could have been chosen; with it, "the most of anyone
+    rules : the rules the list was chosen under; with them, "the most of anyone
         eligible" in the reasons is judged on the fresh sets too.
 
     Returns
@@ -407,7 +394,8 @@ def evaluate_shortlist(
     >>> g = GraphArrays(4, True, np.array([0, 0, 0], np.int32),
     ...                 np.array([1, 2, 3], np.int32), np.ones(3))
     >>> dg = diffusion_graph(g, scheme="uniform", p=1.0)
-    >>> sl = evaluate_shortlist(dg, top_score_seeds(np.array([3., 0, 1, 2]), 2), samples=1000)
+    >>> top = top_score_seeds(np.array([3., 0, 1, 2]), SeedRules.build(4, budget=2))
+    >>> sl = evaluate_shortlist(dg, top, samples=1000)
     >>> sl.nodes, sl.reach_curve.tolist()
     ((0, 3), [4.0, 4.0])
     """
@@ -415,6 +403,8 @@ def evaluate_shortlist(
     if isinstance(samples, bool) or not isinstance(samples, (int, np.integer)) or samples < 1:
         raise InvalidParameter("samples must be a positive integer", field="samples")
     nodes = check_seed_list(dg.n, shortlist.nodes, field="seeds")
+    if rules is not None:
+        rules.check_size(dg.n)
     sampler = RRSampler(dg, weights=w, rounds=rounds)
     coll = RRCollection(sampler, K.stream_key(random_seed, TAG_EVAL + 16))
     coll.relax = "lower evaluation_samples, or use smaller edge probabilities"
@@ -430,7 +420,7 @@ def evaluate_shortlist(
     texts = [s.reason for s in shortlist.seeds]
     if nodes and all(s.facts is not None for s in shortlist.seeds):
         counts0 = coll.index()[2]
-        pool = None if eligible is None else np.asarray(eligible, dtype=np.bool_).copy()
+        pool = None if rules is None else rules.eligible.copy()
         if pool is not None:
             pool[nodes] = True
         new_facts = []
@@ -440,7 +430,7 @@ def evaluate_shortlist(
                     else s.facts.best_alone)
             new_facts.append(replace(s.facts, gain=float(g),
                                      alone=float(counts0[s.node]) * scale, best_alone=best))
-        texts = _reasons(new_facts, n=dg.n, unit="people" if w is None else "audience value")
+        texts = reasons(new_facts, n=dg.n, unit="people" if w is None else "audience value")
     seeds = tuple(SeedChoice(s.node, float(g), float(c), t, s.required, s.facts)
                   for s, g, c, t in zip(shortlist.seeds, gains, curve, texts))
     return Shortlist(

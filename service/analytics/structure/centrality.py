@@ -13,7 +13,6 @@ closer, not further apart.
 from __future__ import annotations
 
 import math
-import warnings
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -21,8 +20,9 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ..errors import Cancelled, ComputationFailed, InvalidParameter
-from ..graph import GraphArrays, to_igraph
+from ..errors import InvalidParameter
+from ..graph import GraphArrays
+from ._views import _Views
 from .paths import EXACT_WORK_LIMIT, betweenness, harmonic_closeness
 
 __all__ = [
@@ -62,60 +62,6 @@ class ScoreResult:
     meta: dict[str, dict[str, Any]]
 
 
-class _Views:
-    """The igraph graph and derived views, built once and shared by the measures."""
-
-    def __init__(self, g: GraphArrays) -> None:
-        self.g = g
-        self._ig: Any = None
-        self._simple_undirected: Any = None
-        self.warnings: list[str] = []
-        self.cache: dict[str, Any] = {}
-
-    def call(self, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> NDArray[np.float64]:
-        """Run an igraph method: warnings are kept, errors become ComputationFailed."""
-        name = getattr(fn, "__name__", str(fn))
-        try:
-            with warnings.catch_warnings(record=True) as caught:
-                warnings.simplefilter("always")
-                out = np.asarray(fn(*args, **kwargs), dtype=np.float64)
-        except Cancelled:
-            raise
-        except Exception as exc:  # igraph raises InternalError and plain ValueErrors
-            raise ComputationFailed(f"igraph failed in {name}: {exc}", measure=name) from exc
-        self.warnings.extend(str(w.message).split(" Location:")[0] for w in caught)
-        return out
-
-    @property
-    def ig(self) -> Any:
-        if self._ig is None:
-            self._ig = to_igraph(self.g, weights=True)
-        return self._ig
-
-    def weights(self, use: bool) -> list[float] | None:
-        return self.g.weight.tolist() if (use and self.g.weighted) else None
-
-    def loopless(self) -> Any:
-        if not np.any(self.g.src == self.g.dst):
-            return self.ig
-        h = self.ig.copy()
-        h.simplify(multiple=False, loops=True, combine_edges="first")
-        return h
-
-    @property
-    def simple_undirected(self) -> Any:
-        """Undirected, no loops; reciprocal arcs merged, summing ``weight`` and
-        counting merged arcs in ``arcs``."""
-        if self._simple_undirected is None:
-            ig = self.ig
-            ig.es["arcs"] = [1.0] * ig.ecount()
-            combine = {"weight": "sum", "arcs": "sum"}
-            h = ig.as_undirected(mode="collapse", combine_edges=combine)
-            h.simplify(multiple=True, loops=True, combine_edges=combine)
-            self._simple_undirected = h
-        return self._simple_undirected
-
-
 def degree(g: GraphArrays, *, mode: str = "all") -> NDArray[np.float64]:
     """Number of edges at each node: ``mode`` ``all`` (in + out), ``in`` or ``out``.
 
@@ -128,8 +74,7 @@ def degree(g: GraphArrays, *, mode: str = "all") -> NDArray[np.float64]:
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, True, np.array([0, 0, 1], np.int32), np.array([1, 2, 2], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (1, 2)], n=4, directed=True)
     >>> degree(g, mode="out").tolist(), degree(g, mode="in").tolist()
     ([2.0, 1.0, 0.0, 0.0], [0.0, 1.0, 2.0, 0.0])
     """
@@ -142,8 +87,7 @@ def strength(g: GraphArrays, *, mode: str = "all", weights: bool = True) -> NDAr
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1], np.int32), np.array([1, 2], np.int32),
-    ...                 np.array([2.0, 3.0]))
+    >>> g = from_edges([(0, 1), (1, 2)], n=4, weights=[2.0, 3.0])
     >>> strength(g).tolist()
     [2.0, 5.0, 3.0, 0.0]
     """
@@ -241,8 +185,7 @@ def pagerank(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> pr = pagerank(g)
     >>> round(float(pr.sum()), 6), int(pr.argmax())
     (1.0, 0)
@@ -279,8 +222,7 @@ def eigenvector_centrality(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 3], np.int32),
-    ...                 np.array([1, 2, 3, 0], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 3), (3, 0)])
     >>> np.round(eigenvector_centrality(g), 6).tolist()
     [0.5, 0.5, 0.5, 0.5]
     """
@@ -318,8 +260,7 @@ def hits(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, True, np.array([0, 0, 1], np.int32), np.array([2, 3, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 2), (0, 3), (1, 3)], directed=True)
     >>> hub, auth = hits(g)
     >>> int(hub.argmax()), int(auth.argmax())
     (0, 3)
@@ -362,8 +303,7 @@ def coreness(g: GraphArrays, *, _views: _Views | None = None) -> NDArray[np.floa
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 2], np.int32),
-    ...                 np.array([1, 2, 0, 3], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 0), (2, 3)])
     >>> coreness(g).tolist()
     [2.0, 2.0, 2.0, 1.0]
     """
@@ -389,8 +329,7 @@ def local_clustering(g: GraphArrays, *, _views: _Views | None = None) -> NDArray
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 2], np.int32),
-    ...                 np.array([1, 2, 0, 3], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 0), (2, 3)])
     >>> np.round(local_clustering(g), 4).tolist()
     [1.0, 1.0, 0.3333, 0.0]
     """
@@ -424,8 +363,7 @@ def constraint(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> np.round(constraint(g), 4).tolist()
     [0.3333, 1.0, 1.0, 1.0]
     """
@@ -446,7 +384,7 @@ def default_measures(g: GraphArrays, *, exact_limit: float = EXACT_WORK_LIMIT) -
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(3, False, np.array([0], np.int32), np.array([1], np.int32), np.ones(1))
+    >>> g = from_edges([(0, 1)], n=3)
     >>> len(default_measures(g)) == len(MEASURES)
     True
     """
@@ -502,8 +440,7 @@ def scores(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> r = scores(g, ["degree", "pagerank"])
     >>> r.values["degree"].tolist(), r.meta["pagerank"]["damping"]
     ([3.0, 1.0, 1.0, 1.0], 0.85)

@@ -84,8 +84,7 @@ def leiden(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(6, False, np.array([0, 0, 1, 3, 3, 4, 2], np.int32),
-    ...                 np.array([1, 2, 2, 4, 5, 5, 3], np.int32), np.ones(7))
+    >>> g = from_edges([(0, 1), (0, 2), (1, 2), (3, 4), (3, 5), (4, 5), (2, 3)])
     >>> membership, q = leiden(g)
     >>> membership.tolist(), round(q, 4)
     ([0, 0, 0, 1, 1, 1], 0.3571)
@@ -137,8 +136,7 @@ def modularity(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 2], np.int32), np.array([1, 3], np.int32),
-    ...                 np.ones(2))
+    >>> g = from_edges([(0, 1), (2, 3)])
     >>> modularity(g, np.array([0, 0, 1, 1]))
     0.5
     """
@@ -189,8 +187,7 @@ def community_summary(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 3)])
     >>> s = community_summary(g, np.array([0, 0, 1, 1]), top=1)
     >>> [(c["size"], c["internal_edges"], c["density"], c["top_members"]) for c in s]
     [(2, 1, 1.0, [1]), (2, 1, 1.0, [2])]

@@ -13,19 +13,18 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
 from . import _kernels as _k
 from .._chunks import run_chunked
+from ._views import _Views
 from ._weighted_sampling import rk_sample_weighted
 from ..errors import InvalidParameter
 from ..graph import GraphArrays, arcs, csr
 
-if TYPE_CHECKING:
-    from .centrality import _Views
 
 Progress = Callable[[float, str], None] | None
 
@@ -134,8 +133,7 @@ def betweenness(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> b, meta = betweenness(g)
     >>> b.tolist(), meta["method"]
     ([1.0, 0.0, 0.0, 0.0], 'exact')
@@ -159,8 +157,6 @@ def betweenness(
     if method == "auto":
         method = "exact" if float(n) * g.m <= exact_limit else "sampled"
     if method == "exact":
-        from .centrality import _Views  # centrality imports this module
-
         v = _views or _Views(g)
         lengths = _path_lengths(v, use_w)
         raw = np.zeros(n)
@@ -284,8 +280,7 @@ def harmonic_closeness(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 0], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3)])
     >>> harmonic_closeness(g).tolist()
     [3.0, 2.0, 2.0, 2.0]
     """
@@ -293,7 +288,6 @@ def harmonic_closeness(
         raise InvalidParameter("harmonic mode must be 'out' or 'in'", field="mode")
     if cutoff is not None and not cutoff > 0:
         raise InvalidParameter("harmonic_cutoff must be positive", field="harmonic_cutoff")
-    from .centrality import _Views  # centrality imports this module
 
     v = _views or _Views(g)
     if g.n == 0:

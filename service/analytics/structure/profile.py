@@ -311,8 +311,7 @@ def sample_distances(g: GraphArrays, *, samples: int = 100,
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2], np.int32), np.array([1, 2, 3], np.int32),
-    ...                 np.ones(3))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 3)])
     >>> d = sample_distances(g)
     >>> d["average_distance"], d["sources"], d["histogram"]
     (1.6666666666666667, 4, [0, 6, 4, 2])
@@ -418,8 +417,7 @@ def graph_profile(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 1, 2, 3], np.int32),
-    ...                 np.array([1, 2, 3, 0], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 2), (2, 3), (3, 0)])
     >>> p = graph_profile(g)
     >>> p["distances"]["average_distance"], p["clustering"]["global"]
     (1.3333333333333333, 0.0)

@@ -84,8 +84,7 @@ def graph_summary(g: GraphArrays) -> dict[str, Any]:
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, True, np.array([0, 1, 1, 2], np.int32),
-    ...                 np.array([1, 0, 2, 2], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (1, 0), (1, 2), (2, 2)], n=4, directed=True)
     >>> s = graph_summary(g)
     >>> s["self_loops"], s["density"], s["reciprocity"], s["strong_components"]
     (1, 0.25, 0.6666666666666666, 3)

@@ -268,8 +268,7 @@ def evaluate_link_prediction(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(5, False, np.array([0, 0, 0, 1, 1, 2], np.int32),
-    ...                 np.array([1, 2, 3, 2, 3, 3], np.int32), np.ones(6))
+    >>> g = from_edges([(0, 1), (0, 2), (0, 3), (1, 2), (1, 3), (2, 3)], n=5)
     >>> r = evaluate_link_prediction(g, methods=["common_neighbours"], holdout=0.2, k=1)
     >>> r["positives"], r["train_edges"]
     (1, 5)

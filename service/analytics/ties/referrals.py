@@ -199,8 +199,7 @@ def next_contacts(
     --------
     >>> import numpy as np
     >>> from service.analytics.graph import GraphArrays, diffusion_graph
-    >>> g = GraphArrays(4, True, np.array([0, 1, 1], np.int32),
-    ...                 np.array([2, 2, 3], np.int32), np.ones(3))
+    >>> g = from_edges([(0, 2), (1, 2), (1, 3)], directed=True)
     >>> dg = diffusion_graph(g, scheme="uniform", p=0.5)
     >>> [(c.node, c.exposure, c.adopter_contacts) for c in next_contacts(dg, [0, 1])]
     [(2, 0.75, 2), (3, 0.5, 1)]
@@ -265,8 +264,7 @@ def referral_asks(
     --------
     >>> import numpy as np
     >>> from service.analytics.graph import GraphArrays, diffusion_graph
-    >>> g = GraphArrays(4, True, np.array([0, 1, 1], np.int32),
-    ...                 np.array([2, 2, 3], np.int32), np.ones(3))
+    >>> g = from_edges([(0, 2), (1, 2), (1, 3)], directed=True)
     >>> dg = diffusion_graph(g, scheme="uniform", p=0.5)
     >>> [(r.adopter, [t.node for t in r.targets]) for r in referral_asks(dg, [0, 1])]
     [(0, [2]), (1, [3])]

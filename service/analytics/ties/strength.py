@@ -295,8 +295,7 @@ def tie_strength(
     Two triangles joined by the bridge 2-3:
 
     >>> import numpy as np
-    >>> g = GraphArrays(6, False, np.array([0, 0, 1, 2, 3, 3, 4], np.int32),
-    ...                 np.array([1, 2, 2, 3, 4, 5, 5], np.int32), np.ones(7))
+    >>> g = from_edges([(0, 1), (0, 2), (1, 2), (2, 3), (3, 4), (3, 5), (4, 5)])
     >>> tie_strength(g).overlap.tolist()
     [1.0, 0.5, 0.5, 0.0, 0.5, 0.5, 1.0]
     """
@@ -342,8 +341,7 @@ def neighbour_index(
     Examples
     --------
     >>> import numpy as np
-    >>> g = GraphArrays(4, False, np.array([0, 0, 1, 2], np.int32),
-    ...                 np.array([1, 2, 2, 3], np.int32), np.ones(4))
+    >>> g = from_edges([(0, 1), (0, 2), (1, 2), (2, 3)])
     >>> ix = neighbour_index(g)
     >>> ix.neighbours(2).tolist(), ix.degree.tolist()
     ([0, 1, 3], [2, 2, 3, 1])

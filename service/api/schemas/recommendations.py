@@ -7,10 +7,12 @@ from typing import Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.usecases.diffusion_settings import ProbabilitySettings
-from service.jobs.tasks.referral_asks import FollowOn
+from service.usecases.next_contacts import FollowOn
+from service.usecases.recommendations import METHOD_ALIASES, LinkMethodName
 from .common import JsonInt, PerAdopter, PositiveInt, Seed
 
 __all__ = [
+    "NEXT_CONTACTS_BODY",
     "Method",
     "METHOD_ALIASES",
     "SharedContactRead",
@@ -24,19 +26,8 @@ __all__ = [
     "NextContactsPage",
 ]
 
-Method = Literal[
-    "adamic_adar",
-    "resource_allocation",
-    "jaccard",
-    "common_neighbours",
-    "preferential_attachment",
-    "personalized_pagerank",
-    "weighted_adamic_adar",
-    "tie_strength",
-]
-#: Accepted spellings -> the analytics method name.
-METHOD_ALIASES = {"tie_strength": "weighted_adamic_adar"}
-
+#: The ranking methods a caller may name (``tie_strength`` is an alias, see METHOD_ALIASES).
+Method = LinkMethodName
 
 
 class SharedContactRead(BaseModel):
@@ -146,3 +137,21 @@ class NextContactsPage(BaseModel):
     groups: list[ReferralGroupRead] | None = Field(
         default=None, description="Per adopter, whom to ask them to refer (group_by=adopter)."
     )
+
+
+#: The request body of next contacts in the OpenAPI document: JSON, or CSV with the options as query parameters.
+NEXT_CONTACTS_BODY = {
+    "requestBody": {
+        "required": True,
+        "description": (
+            "JSON (the options below), or for long adopter lists `text/csv` with a header row and an "
+            "`id` column (rename with the `id` query parameter), the options then given as query "
+            "parameters (`scheme`, `p`, `q` for the probability model)."
+        ),
+        "content": {
+            "application/json": {"schema": NextContactsRequest.model_json_schema(
+                ref_template="#/components/schemas/{model}")},
+            "text/csv": {"schema": {"type": "string"}, "example": "id\nm00001\nm00042\n"},
+        },
+    }
+}

@@ -1,5 +1,8 @@
 """Rankings over stored ``scores`` results: orders, percentiles, filters, pages.
 
+The tables behind :mod:`service.usecases.rankings` (which reads them for every
+door) and the ``scores`` job (which stores them through :func:`result_arrays`).
+
 A ``scores`` result stores, beside each measure's values, its ranking order
 and percentile ranks (:func:`result_arrays`), so a ranking read only slices
 arrays. Everything here is numpy over whole arrays; the one per-node Python

@@ -1,56 +1,128 @@
-"""The ``shortlist`` kind's contact rules, resolved against a version (private).
+"""Contact rules: who may be chosen and how many, from any door, checked once.
 
-Caller ids become node indices, consent and exclusions an eligibility mask,
-segment labels codes, and what cannot be met an error naming the rule in
-``field`` (see :mod:`service.jobs.tasks.shortlist`). Only counting here, no
-sampling, so it is cheap enough to run at job creation.
+:class:`ContactRules` is what a caller asks for (a budget or a cost budget,
+must-include and excluded people by id, caps per segment by label, the target
+audience); it checks what needs no graph. :func:`resolve_rules` resolves it
+against a loaded version into the analytics' :class:`SeedRules`: ids become node
+indices, consent and exclusions an eligibility mask, segment labels codes, and
+what cannot be met an error naming the rule in ``field``. Nobody without contact
+consent is ever a seed. Only counting here, no sampling, so it is cheap enough to
+run when a job is created.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
-from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 from numpy.typing import NDArray
 
+from service.analytics.errors import InfeasibleRequest, InvalidParameter, UnknownNode
+from service.analytics.seeding.rules import SeedRules
+from service.usecases.loading import LoadedVersion
+
 if TYPE_CHECKING:
-    from service.usecases.loading import LoadedVersion
+    from .shortlist_params import ShortlistParams
 
-    from .shortlist import ShortlistParams
-
-__all__ = ["LISTED", "Prepared", "resolve_rules"]
+__all__ = [
+    "LISTED",
+    "ContactRules",
+    "ResolvedRules",
+    "budget_problem",
+    "caps_problem",
+    "resolve_rules",
+    "target_problem",
+]
 
 LISTED = 20  # ids listed in an error or warning; the count says how many there were
 
 
-@dataclass(frozen=True)
-class Prepared:
-    """The rules resolved against a version: indices, masks, caps, audience weights, warnings."""
+def budget_problem(budget: int | None, cost_budget: float | None) -> str | None:
+    """What is wrong with the budgets, in the caller's words, or None."""
+    if (budget is None) == (cost_budget is None):
+        return "give exactly one of budget (a number of seeds) or cost_budget (a total cost)"
+    return None
 
-    must: list[int]
-    eligible: NDArray[np.bool_]  # may be chosen: contactable, not excluded, segment not full
+
+def caps_problem(caps: int | Mapping[str, int] | None) -> str | None:
+    if (isinstance(caps, int) and caps < 0) or (
+        isinstance(caps, Mapping) and any(v < 0 for v in caps.values())
+    ):
+        return "max_per_segment caps must be >= 0"
+    return None
+
+
+def target_problem(target: str | Sequence[str] | None) -> str | None:
+    if target is not None and not isinstance(target, str) and not target:
+        return "target_segment must name at least one segment"
+    return None
+
+
+@dataclass(frozen=True)
+class ContactRules:
+    """Who may be chosen and how many: built and checked once, from any door.
+
+    Exactly one of ``budget`` (seeds) and ``cost_budget`` (summed node cost;
+    people without a cost are never chosen). ``must_include`` people are placed
+    first; ``exclude`` people (and everyone without contact consent) are never
+    seeds; ``max_per_segment`` caps the seeds of every segment (an integer,
+    people without a segment forming one more group) or of the segments it names;
+    ``target_segment`` and ``weights="value"`` make only the target audience's
+    reach count.
+    """
+
+    budget: int | None = None
+    cost_budget: float | None = None
+    must_include: tuple[str, ...] = ()
+    exclude: tuple[str, ...] = ()
+    max_per_segment: int | Mapping[str, int] | None = None
+    target_segment: tuple[str, ...] | None = None
+    weights: Literal["value"] | None = None
+
+    def __post_init__(self) -> None:
+        for name, problem in (
+            ("budget", budget_problem(self.budget, self.cost_budget)),
+            ("max_per_segment", caps_problem(self.max_per_segment)),
+            ("target_segment", target_problem(self.target_segment)),
+        ):
+            if problem:
+                raise InvalidParameter(problem, field=name)
+
+    @classmethod
+    def from_params(cls, params: ShortlistParams) -> ContactRules:
+        """The rules of a shortlist request (already checked by its model)."""
+        target = params.target_segment
+        return cls(
+            budget=params.budget,
+            cost_budget=params.cost_budget,
+            must_include=tuple(params.must_include),
+            exclude=tuple(params.exclude),
+            max_per_segment=params.max_per_segment,
+            target_segment=(target,) if isinstance(target, str) else
+            None if target is None else tuple(target),
+            weights=params.weights,
+        )
+
+
+@dataclass(frozen=True)
+class ResolvedRules:
+    """The rules resolved against a version: the analytics' rules, audience weights, warnings."""
+
+    rules: SeedRules  # eligible: contactable, not excluded, segment not already full
     contactable: int  # people with consent who are not excluded
-    caps: int | dict[int, int] | None
-    costs: NDArray[np.float64] | None
     weights: NDArray[np.float64] | None
     target: dict[str, Any] | None
-    warnings: list[dict[str, Any]]
+    warnings: list[dict[str, Any]] = field(default_factory=list)
 
 
-def resolve_rules(
-    params: ShortlistParams, version: LoadedVersion, *, check_settings: bool = False
-) -> Prepared:
+def resolve_rules(contact: ContactRules, version: LoadedVersion) -> ResolvedRules:
     """Resolve ids and rules against ``version``; raise the 422 errors naming the rule."""
-    from service.analytics.errors import InfeasibleRequest
-
-    if check_settings:
-        params.check_version(version)
     attrs, ids, n = version.attrs, version.ids, version.graph.n
     warnings: list[dict[str, Any]] = []
-    must = _resolve(version, params.must_include, "must_include", warnings)
-    excluded = _resolve(version, params.exclude, "exclude", warnings)
+    must = _resolve(version, list(contact.must_include), "must_include", warnings)
+    excluded = _resolve(version, list(contact.exclude), "exclude", warnings)
     consent = attrs.contactable()
     eligible = consent.copy()
     eligible[excluded] = False
@@ -76,10 +148,10 @@ def resolve_rules(
                 "message": f"{barred} people without contact consent are never seeds",
             }
         )
-    caps = _caps(params, version, must)
+    caps = _caps(contact, version, must)
     contactable = int(eligible.sum())
     costs = None
-    if params.cost_budget is not None:
+    if contact.cost_budget is not None:
         costs = np.asarray(attrs.cost, dtype=np.float64)
         known = np.isfinite(costs)
         if not known.any():
@@ -110,7 +182,7 @@ def resolve_rules(
                     "message": f"{missing} eligible people have no cost and are never chosen",
                 }
             )
-    _feasible(params, version, must, eligible, caps, costs)
+    _feasible(contact, version, must, eligible, caps, costs)
     if caps is not None:
         # A segment whose cap the must-include people already fill (or a cap of 0) is closed
         # here: the analytics' greedy only closes a segment after one of its own picks.
@@ -123,12 +195,23 @@ def resolve_rules(
         for code, cap in open_cap.items():
             if cap - int(np.count_nonzero(seg[must] == code)) <= 0:
                 eligible[(seg == code) & ~is_must] = False
-    weights, target = _target(params, version, warnings)
-    return Prepared(must, eligible, contactable, caps, costs, weights, target, warnings)
+    rules = SeedRules.build(
+        n,
+        budget=contact.budget,
+        cost_budget=contact.cost_budget,
+        costs=costs,
+        eligible=eligible,
+        must_include=must,
+        segments=attrs.segment if caps is not None else None,
+        max_per_segment=caps,
+        segment_labels=attrs.segment_labels,
+    )
+    weights, target = _target(contact, version, warnings)
+    return ResolvedRules(rules, contactable, weights, target, warnings)
 
 
 def _feasible(
-    params: ShortlistParams,
+    contact: ContactRules,
     v: LoadedVersion,
     must: list[int],
     eligible: NDArray[np.bool_],
@@ -136,40 +219,35 @@ def _feasible(
     costs: NDArray[np.float64] | None,
 ) -> None:
     """The counting checks of the rules (the analytics check them again): cheap, no sampling."""
-    from service.analytics.errors import InfeasibleRequest
-
     free = eligible.copy()
     free[must] = False
     if costs is not None:
-        assert params.cost_budget is not None
+        assert contact.cost_budget is not None
         free &= np.isfinite(costs)
-        left = params.cost_budget - float(costs[must].sum())
+        left = contact.cost_budget - float(costs[must].sum())
         if left < 0:
             raise InfeasibleRequest(
-                f"the must-include people alone cost {params.cost_budget - left:.6g}, more "
-                f"than the cost budget of {params.cost_budget:.6g}",
+                f"the must-include people alone cost {contact.cost_budget - left:.6g}, more "
+                f"than the cost budget of {contact.cost_budget:.6g}",
                 field="cost_budget",
             )
         if not must and not (free & (costs <= left)).any():
             raise InfeasibleRequest(
-                f"no eligible person costs at most the cost budget of {params.cost_budget:.6g}",
+                f"no eligible person costs at most the cost budget of {contact.cost_budget:.6g}",
                 field="cost_budget",
             )
         return
-    k = params.budget
-    assert k is not None
-    if len(must) > k:
-        raise InfeasibleRequest(
-            f"{len(must)} must-include people exceed the budget of {k}",
-            field="must_include",
-            budget=k,
-        )
+    budget = contact.budget
+    assert budget is not None
+    # More must-include people than the budget is refused by SeedRules.build (same words).
+    if len(must) > budget:
+        return
     available = int(free.sum()) + len(must)
-    if k > available:
+    if budget > available:
         raise InfeasibleRequest(
-            f"budget {k} exceeds the {available} people who may be contacted (consent given, not excluded)",
+            f"budget {budget} exceeds the {available} people who may be contacted (consent given, not excluded)",
             field="budget",
-            budget=k,
+            budget=budget,
             available=available,
         )
     if caps is not None:
@@ -180,12 +258,12 @@ def _feasible(
             cap = caps if isinstance(caps, int) else caps.get(code)
             used = sum(1 for x in must if int(group[x]) == code)
             room += count if cap is None else max(min(count, cap - used), 0)
-        if room + len(must) < k:
+        if room + len(must) < budget:
             raise InfeasibleRequest(
                 f"the segment caps allow at most {room + len(must)} seeds, fewer than the "
-                f"budget of {k}",
+                f"budget of {budget}",
                 field="max_per_segment",
-                budget=k,
+                budget=budget,
                 available=room + len(must),
             )
 
@@ -197,8 +275,6 @@ def _show(names: Sequence[str]) -> str:
 def _resolve(
     v: LoadedVersion, names: list[str], field: str, warnings: list[dict[str, Any]]
 ) -> list[int]:
-    from service.analytics.errors import UnknownNode
-
     unique = list(dict.fromkeys(names))
     if len(unique) < len(names):
         warnings.append(
@@ -222,8 +298,6 @@ def _resolve(
 
 
 def _labels_to_codes(v: LoadedVersion, labels: list[str], field: str) -> list[int]:
-    from service.analytics.errors import InfeasibleRequest
-
     known = list(v.attrs.segment_labels)
     bad = [s for s in labels if s not in known]
     if bad:
@@ -238,11 +312,9 @@ def _labels_to_codes(v: LoadedVersion, labels: list[str], field: str) -> list[in
 
 
 def _caps(
-    params: ShortlistParams, v: LoadedVersion, must: list[int]
+    contact: ContactRules, v: LoadedVersion, must: list[int]
 ) -> int | dict[int, int] | None:
-    from service.analytics.errors import InfeasibleRequest
-
-    spec = params.max_per_segment
+    spec = contact.max_per_segment
     if spec is None:
         return None
     seg = v.attrs.segment
@@ -274,27 +346,21 @@ def _caps(
 
 
 def _target(
-    params: ShortlistParams, v: LoadedVersion, warnings: list[dict[str, Any]]
+    contact: ContactRules, v: LoadedVersion, warnings: list[dict[str, Any]]
 ) -> tuple[NDArray[np.float64] | None, dict[str, Any] | None]:
     """Per-node weights of the reach that counts: segment membership, node value, or both."""
-    from service.analytics.errors import InfeasibleRequest
-
-    if params.target_segment is None and params.weights is None:
+    if contact.target_segment is None and contact.weights is None:
         return None, None
     n = v.graph.n
     w = np.ones(n, dtype=np.float64)
-    target: dict[str, Any] = {"segments": None, "weights": params.weights}
-    if params.target_segment is not None:
-        labels = (
-            [params.target_segment]
-            if isinstance(params.target_segment, str)
-            else params.target_segment
-        )
+    target: dict[str, Any] = {"segments": None, "weights": contact.weights}
+    if contact.target_segment is not None:
+        labels = list(contact.target_segment)
         codes = _labels_to_codes(v, labels, "target_segment")
         w *= np.isin(v.attrs.segment, codes)
         target["segments"] = labels
         target["members"] = int(np.count_nonzero(w))
-    if params.weights == "value":
+    if contact.weights == "value":
         value = v.attrs.value
         given = np.isfinite(value)
         if not given.any():
@@ -319,7 +385,7 @@ def _target(
     if w.sum() <= 0:
         raise InfeasibleRequest(
             "the target audience has no one of positive value",
-            field="target_segment" if params.target_segment is not None else "weights",
+            field="target_segment" if contact.target_segment is not None else "weights",
         )
     target["total"] = float(w.sum())
     return w, target

@@ -1,6 +1,6 @@
-"""The ``shortlist`` kind's result document (private): seeds, curves, forecasts, guarantee in words.
+"""The shortlist's answer document (private): seeds, curves, forecasts, guarantee in words.
 
-See :mod:`service.jobs.tasks.shortlist` for what each figure is computed from.
+See :mod:`service.usecases.shortlists` for what each figure is computed from.
 """
 
 from __future__ import annotations
@@ -16,8 +16,8 @@ if TYPE_CHECKING:
     from service.analytics.seeding.shortlists import Shortlist
     from service.usecases.loading import LoadedVersion
 
-    from ._shortlist_rules import Prepared
-    from .shortlist import ShortlistParams
+    from .contact_rules import ResolvedRules
+    from .shortlist_params import ShortlistParams
 
 __all__ = ["LABELS", "result_document", "verdict"]
 
@@ -27,7 +27,7 @@ BASELINE_METHODS = ("degree_discount", "top_degree", "top_pagerank", "top_betwee
 def result_document(
     params: ShortlistParams,
     v: LoadedVersion,
-    prep: Prepared,
+    prep: ResolvedRules,
     chosen: Shortlist,
     evaluated: dict[str, Shortlist],
     fc: dict[str, ForecastResult],
@@ -180,7 +180,7 @@ def _label(name: str, k: int) -> str:
     return LABELS.get(name, name).format(k=f"{k:,}")
 
 
-def _unit(prep: Prepared) -> str:
+def _unit(prep: ResolvedRules) -> str:
     if prep.weights is None:
         return "people"
     target = prep.target or {}
