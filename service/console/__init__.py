@@ -11,10 +11,10 @@ from __future__ import annotations
 
 from fastapi import APIRouter
 
-from . import account, campaigns, jobs, networks, picture
+from . import account, campaigns, jobs, networks, people, picture
 
 __all__ = ["console_router"]
 
 console_router = APIRouter(include_in_schema=False)
-for _r in (account.router, networks.router, jobs.router, campaigns.router, picture.router):
+for _r in (account.router, networks.router, jobs.router, campaigns.router, picture.router, people.router):
     console_router.include_router(_r)

@@ -1,4 +1,4 @@
-"""Console forms that start work: a shortlist, a forecast, a network picture, a profile.
+"""Console forms that start work: a shortlist, a forecast, a network picture, a profile, scores.
 
 Each form is read into the job's params exactly as the API's JSON body would
 carry them and queued by the one queueing use case
@@ -150,7 +150,7 @@ def start_page(graph_id: str, which: str, request: Request, session: SessionDep)
 async def start(graph_id: str, which: str, request: Request, session: WriterDep) -> Response:
     form = await read_form(request)
     check_csrf(session, form.get("csrf"))
-    if which not in ("shortlist", "forecast", "layout", "profile"):
+    if which not in ("shortlist", "forecast", "layout", "profile", "scores"):
         return render(request, "not_found.html", session, status=404)
     try:
         version = _whole(form, "version", "Version")
@@ -159,7 +159,7 @@ async def start(graph_id: str, which: str, request: Request, session: WriterDep)
         job_id = _queue(request, session, graph_id, which, params, version)
     except (FormError, AnalyticsError, JobsError) as exc:
         message = str(exc) if isinstance(exc, FormError) else exc.reason
-        if which in ("layout", "profile"):
+        if which in ("layout", "profile", "scores"):
             return render(request, "refused.html", session, status=422, reason=message)
         return _form_page(request, session, graph_id, which, form, message, status=422)
     return see_other(f"/console/jobs/{job_id}")

@@ -60,12 +60,21 @@ def _number(value: Any, digits: int = 0) -> str:
     return f"{x:,.{digits}f}"
 
 
+def _score(value: Any) -> str:
+    """A score: whole numbers as such, others to four significant figures."""
+    if value is None:
+        return "–"
+    x = float(value)
+    return f"{x:,.0f}" if x.is_integer() else f"{x:.4g}"
+
+
 def _percent(value: Any, digits: int = 0) -> str:
     return "–" if value is None else f"{float(value) * 100:.{digits}f}%"
 
 
 _env.filters["number"] = _number
 _env.filters["percent"] = _percent
+_env.filters["score"] = _score
 _env.filters["url"] = lambda s: quote(str(s), safe="")
 
 KIND_WORDS = {

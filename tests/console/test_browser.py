@@ -124,6 +124,21 @@ def test_a_growth_team_member_walks_the_console(site: dict[str, Any]) -> None:
         assert "in plain words" in driver.page_source and not _plots_drawn(driver)
         _shot(driver, site, "05-profile")
 
+        # Who stands out, one person's page, next contacts for a pasted list of adopters.
+        driver.get(f"{base}/console/graphs/{gid}/versions/2/rankings?measure=pagerank&contactable=yes")
+        ranked = driver.find_elements(By.CSS_SELECTOR, "tbody tr td a.mono")
+        assert len(ranked) == 100
+        first = [a.text for a in ranked[:3]]
+        _shot(driver, site, "05b-rankings")
+        ranked[0].click()
+        assert "Whom to introduce them to" in driver.page_source and "percentile" in driver.page_source
+        _shot(driver, site, "05c-person")
+        driver.get(f"{base}/console/graphs/{gid}/versions/2/next-contacts")
+        driver.find_element(By.ID, "adopters").send_keys("\n".join(first))
+        _submit(driver)
+        assert len(driver.find_elements(By.CSS_SELECTOR, "tbody tr")) > 0
+        _shot(driver, site, "05d-next-contacts")
+
         # Start a shortlist from the form: 6 people, at most 2 per store.
         driver.get(f"{base}/console/graphs/{gid}/start/shortlist?version=2")
         _shot(driver, site, "06-shortlist-form")

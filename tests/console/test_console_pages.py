@@ -9,6 +9,7 @@ import re
 import xml.etree.ElementTree as ET
 from collections.abc import AsyncIterator
 from pathlib import Path
+from urllib.parse import quote
 
 import httpx
 import networkx as nx
@@ -154,11 +155,25 @@ async def test_other_tenants_ids_are_not_found_and_ids_are_escaped(app_client: h
     sl = (await app_client.post(f"/v1/graphs/{gid}/jobs", headers=auth, json={"kind": "shortlist", "params": {
         "budget": 2, "must_include": [SCRIPT_ID, EVIL_ID], "probability": {"scheme": "uniform", "p": 0.1},
         "forecast_runs": 200, "evaluation_samples": 2000}})).json()
+    await app_client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "scores", "params": {"measures": ["degree"]}},
+                          headers=auth)
     worker = worker_for(app_client)
-    await run_worker_once(worker)
-    await run_worker_once(worker)
+    for _ in range(3):
+        await run_worker_once(worker)
     await sign_in(app_client, writer)
-    pages = [f"/console/graphs/{gid}", f"/console/graphs/{gid}/versions/2", f"/console/jobs/{sl['id']}",
+    person = f"/console/graphs/{gid}/versions/2/people/" + quote(SCRIPT_ID, safe="")
+    r = await app_client.get(person)
+    assert r.status_code == 200 and "&lt;u&gt;hostile label&lt;/u&gt;" in r.text
+    r = await app_client.get(f"/console/graphs/{gid}/versions/2/rankings?measure=degree")
+    assert r.status_code == 200 and 'href="/console/graphs/' + gid + '/versions/2/people/%3Cscript%3E' in r.text
+    # Next contacts of a pasted list: the hostile ids come back escaped, by NetworkX's neighbours of k0.
+    token = csrf_of(r.text)
+    r = await app_client.post(f"/console/graphs/{gid}/versions/2/next-contacts",
+                              data={"csrf": token, "adopters": SCRIPT_ID})
+    assert r.status_code == 200
+    shown = set(re.findall(r'<tr><td><span class="mono">([^<]+)</span>', r.text))
+    assert shown and shown <= {f"k{v}" for v in nx.karate_club_graph()[0]}
+    pages = [person, f"/console/graphs/{gid}/versions/2/rankings?measure=degree", f"/console/graphs/{gid}", f"/console/graphs/{gid}/versions/2", f"/console/jobs/{sl['id']}",
              f"/console/graphs/{gid}/versions/2/picture?shortlist={sl['id']}", "/console/graphs", "/console/jobs"]
     for url in pages:
         r = await app_client.get(url)
@@ -166,11 +181,11 @@ async def test_other_tenants_ids_are_not_found_and_ids_are_escaped(app_client: h
         # HTML injection: the hostile ids, labels, segments and graph name come back escaped, never as markup.
         for raw in (SCRIPT_ID, EVIL_ID, "<b>north</b>", "<i>east</i>", "<u>hostile"):
             assert raw not in r.text, (url, raw)
-    picture = (await app_client.get(pages[3])).text
+    picture = (await app_client.get(pages[5])).text
     assert 'data-id="&lt;script&gt;alert(2)&lt;/script&gt;"' in picture
     assert 'data-id="&#34;&gt;&lt;img' in picture or 'data-id="&quot;&gt;&lt;img' in picture
     await sign_in(app_client, stranger)
-    for url in [*pages[:4], f"/console/jobs/{job['id']}", f"/console/jobs/{sl['id']}/result.csv"]:
+    for url in [*pages[:6], f"/console/jobs/{job['id']}", f"/console/jobs/{sl['id']}/result.csv"]:
         r = await app_client.get(url)
         assert r.status_code == 404 and "Nothing here" in r.text, url
 
