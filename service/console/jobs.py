@@ -45,7 +45,8 @@ def _state(job: Any) -> dict[str, Any]:
 def jobs_page(request: Request, session: SessionDep) -> Response:
     with maker_of(request)() as db:
         jobs, _ = job_repo.list_jobs(db, session.tenant_id, limit=100)
-        return render(request, "jobs.html", session, jobs=jobs)
+        graphs, _ = graph_repo.list_graphs(db, session.tenant_id, limit=1000)
+        return render(request, "jobs.html", session, jobs=jobs, graph_names={g.id: g.name for g in graphs})
 
 
 @router.get("/console/jobs/{job_id}/state")
