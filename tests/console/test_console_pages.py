@@ -267,3 +267,26 @@ async def test_a_large_network_is_drawn_as_the_seeds_neighbourhood_and_community
     reached = {c.find(ns + "title").text for c in circles if c.get("class") == "reached"}  # type: ignore[union-attr]
     assert set(people) == near | reached and len(people) <= 100
     assert "too many to draw one by one" in "".join(root.itertext())
+
+
+async def test_with_keys_switched_off_the_console_opens_without_one(sqlite_url: str, tmp_path: Path) -> None:
+    from service.app import create_app
+
+    app = create_app(make_settings(sqlite_url, tmp_path, auth_disabled=True))
+    async with app.router.lifespan_context(app):
+        transport = httpx.ASGITransport(app=app)
+        async with httpx.AsyncClient(transport=transport, base_url="http://testserver") as c:
+            page = await c.get("/console/sign-in")
+            assert "leave the field empty" in page.text
+            r = await c.post("/console/sign-in", data={"key": "", "next": "/console/jobs"})
+            assert r.status_code == 303 and r.headers["location"] == "/console/jobs"
+            r = await c.get("/console/jobs")
+            assert r.status_code == 200 and "default" in r.text
+            # An open session is worth nothing once keys are required again (same secret, same cookie).
+            cookie = c.cookies.get("bw_console") or ""
+    app = create_app(make_settings(sqlite_url, tmp_path, auth_disabled=False))
+    async with app.router.lifespan_context(app):
+        transport = httpx.ASGITransport(app=app)
+        async with httpx.AsyncClient(transport=transport, base_url="http://testserver") as c:
+            c.cookies.set("bw_console", cookie, path="/console")
+            assert (await c.get("/console/jobs")).status_code == 303

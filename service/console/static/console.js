@@ -89,8 +89,5 @@
   document.addEventListener("DOMContentLoaded", function () {
     document.querySelectorAll(".progress.live").forEach(follow);
     document.querySelectorAll("[data-pan-zoom]").forEach(panZoom);
-    document.querySelectorAll("select[data-autosubmit]").forEach(function (s) {
-      s.addEventListener("change", function () { s.form.submit(); });
-    });
   });
 })();
