@@ -290,3 +290,25 @@ async def test_with_keys_switched_off_the_console_opens_without_one(sqlite_url: 
         async with httpx.AsyncClient(transport=transport, base_url="http://testserver") as c:
             c.cookies.set("bw_console", cookie, path="/console")
             assert (await c.get("/console/jobs")).status_code == 303
+
+
+async def test_cancel_from_the_job_page_and_its_live_state(app_client: httpx.AsyncClient) -> None:
+    _, writer = make_key(app_client, "t1", ["read", "write"])
+    _, reader = make_key(app_client, "t1", ["read"])
+    gid = await make_network(app_client, writer)
+    auth = {"Authorization": f"Bearer {writer}"}
+    job = (await app_client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "profile", "params": {}}, headers=auth)).json()
+    await sign_in(app_client, reader)
+    page = await app_client.get(f"/console/jobs/{job['id']}")
+    assert page.status_code == 200 and "Cancel</button>" not in page.text  # a read key sees no cancel button
+    r = await app_client.post(f"/console/jobs/{job['id']}/cancel", data={"csrf": csrf_of(page.text)})
+    assert r.status_code == 403
+    await sign_in(app_client, writer)
+    page = await app_client.get(f"/console/jobs/{job['id']}")
+    state = (await app_client.get(f"/console/jobs/{job['id']}/state")).json()
+    assert state == {"id": job["id"], "status": "queued", "status_words": "Waiting", "progress": 0.0, "message": "",
+                     "finished": False}
+    r = await app_client.post(f"/console/jobs/{job['id']}/cancel", data={"csrf": csrf_of(page.text)})
+    assert r.status_code == 303
+    assert (await app_client.get(f"/v1/jobs/{job['id']}", headers=auth)).json()["status"] == "cancelled"
+    assert (await app_client.get(f"/console/jobs/{job['id']}/state")).json()["finished"] is True
