@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 from pathlib import Path
 from typing import Literal
@@ -9,7 +10,7 @@ from typing import Literal
 from pydantic import Field
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
-__all__ = ["Settings", "machine_memory_bytes"]
+__all__ = ["Settings", "machine_memory_bytes", "usable_cores", "cpu_quota"]
 
 GiB = 1024**3
 MiB = 1024**2
@@ -29,6 +30,39 @@ def machine_memory_bytes() -> int:
         if text.isdigit() and 0 < int(text) < total:
             total = int(text)
     return int(total)
+
+
+def usable_cores(cgroup: Path = Path("/sys/fs/cgroup")) -> int:
+    """Cores this process may run on: its CPU affinity, or the container's CPU quota
+    (cgroup ``cpu.max``, or ``cpu.cfs_quota_us`` / ``cpu.cfs_period_us``) rounded up
+    when lower; at least 1."""
+    try:
+        cores = len(os.sched_getaffinity(0))
+    except (AttributeError, OSError):  # not Linux
+        cores = os.cpu_count() or 1
+    quota = cpu_quota(cgroup)
+    if quota is not None:
+        cores = min(cores, math.ceil(quota))
+    return max(1, cores)
+
+
+def cpu_quota(cgroup: Path = Path("/sys/fs/cgroup")) -> float | None:
+    """CPUs the cgroup may use per period (cgroup v2, else v1), None without a quota."""
+    try:
+        fields = (cgroup / "cpu.max").read_text().split()
+        if len(fields) == 2 and fields[0] != "max":
+            return int(fields[0]) / int(fields[1])
+        return None
+    except (OSError, ValueError):
+        pass
+    for folder in (cgroup / "cpu", cgroup / "cpu,cpuacct"):
+        try:
+            quota = int((folder / "cpu.cfs_quota_us").read_text())
+            period = int((folder / "cpu.cfs_period_us").read_text())
+        except (OSError, ValueError):
+            continue
+        return quota / period if quota > 0 and period > 0 else None
+    return None
 
 
 class Settings(BaseSettings):
@@ -136,6 +170,20 @@ class Settings(BaseSettings):
         "running job stops (too-expensive). Default: half the machine's memory (the smaller of "
         "physical memory and the cgroup limit) divided by the number of workers of `serve`.",
     )
+
+    # -- Threads per job ---------------------------------------------------------------
+    threads: int | None = Field(
+        default=None, ge=1, le=256,
+        description="Threads one job may run on (RR sampling, simulations, sampled betweenness); "
+        "results are the same for any number. Default: the cores the worker may use (its CPU "
+        "affinity, or the container's CPU quota when lower), divided among the workers of `serve`.",
+    )
+
+    def thread_count(self, workers: int = 1) -> int:
+        """Threads per job: the setting, else the usable cores shared by ``workers``."""
+        if self.threads is not None:
+            return int(self.threads)
+        return max(1, usable_cores() // max(1, workers))
 
     # -- Per-process caches (service/usecases/caches.py) ---------------------------------------
     cache_bytes: int = Field(

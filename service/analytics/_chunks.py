@@ -17,23 +17,44 @@ buffers (None: no limit). The job worker sets it per job; buffers that grow
 with the request (RR-set stores, per-run simulation arrays) call
 :func:`check_memory` before they grow and raise :class:`TooExpensive`
 instead of being killed by the operating system.
+
+:data:`thread_limit` is the number of threads one computation may use (None:
+every core the process may run on, :func:`usable_cores`). The job worker sets
+it per job from its setting, as it sets :data:`memory_limit`; functions that
+take ``threads=`` fall back to it through :func:`thread_count`. Work is split
+into contiguous index ranges, one per thread, run by :func:`map_ordered` in one
+process-wide pool of threads (the compiled loops release the GIL), and the parts
+are merged in index order, so results never depend on the thread count.
 """
 
 from __future__ import annotations
 
+import os
+import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from contextvars import ContextVar
+from typing import TypeVar
 
-from .errors import TooExpensive
+from .errors import InvalidParameter, TooExpensive
 
-__all__ = ["ChunkSizer", "TARGET_SECONDS", "memory_limit", "check_memory", "run_chunked"]
+__all__ = [
+    "ChunkSizer", "TARGET_SECONDS", "memory_limit", "check_memory", "run_chunked",
+    "thread_limit", "usable_cores", "thread_count", "split_range", "map_ordered",
+]
+
+T = TypeVar("T")
 
 #: Seconds one chunk should take: well under the one second in which a job
 #: must reach a progress (and cancel) point.
 TARGET_SECONDS = 0.25
 
 memory_limit: ContextVar[int | None] = ContextVar("bellwether_memory_limit", default=None)
+thread_limit: ContextVar[int | None] = ContextVar("bellwether_thread_limit", default=None)
+
+#: Most threads a computation may ask for: more parts than this only add bookkeeping.
+MAX_THREADS = 256
 
 
 class ChunkSizer:
@@ -103,3 +124,76 @@ def _mib(nbytes: float) -> str:
     if nbytes >= 1 << 30:
         return f"{nbytes / (1 << 30):.1f} GiB"
     return f"{nbytes / (1 << 20):.0f} MiB"
+
+
+def usable_cores() -> int:
+    """The cores this process may run on (its CPU affinity), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # not Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def thread_count(threads: int | None = None) -> int:
+    """``threads`` checked, else :data:`thread_limit`, else :func:`usable_cores`."""
+    if threads is None:
+        threads = thread_limit.get()
+    if threads is None:
+        return usable_cores()
+    if isinstance(threads, bool) or not isinstance(threads, int) or not 1 <= threads <= MAX_THREADS:
+        raise InvalidParameter(f"threads must be a whole number from 1 to {MAX_THREADS}, "
+                               f"got {threads!r}", field="threads")
+    return threads
+
+
+def split_range(start: int, count: int, parts: int) -> list[tuple[int, int]]:
+    """``start .. start + count - 1`` as at most ``parts`` contiguous (first, count)
+    pieces of near-equal size, in order (none empty)."""
+    parts = max(1, min(parts, count))
+    base, extra = divmod(count, parts)
+    out = []
+    first = start
+    for i in range(parts):
+        c = base + (1 if i < extra else 0)
+        if c:
+            out.append((first, c))
+        first += c
+    return out
+
+
+_POOLS: dict[int, ThreadPoolExecutor] = {}
+_POOL_PREFIX = "bellwether-compute"
+
+
+def _pool() -> ThreadPoolExecutor:
+    # One pool per process: a pool inherited through fork has no live threads.
+    pid = os.getpid()
+    pool = _POOLS.get(pid)
+    if pool is None:
+        _POOLS.clear()
+        pool = _POOLS[pid] = ThreadPoolExecutor(
+            max_workers=max(2, usable_cores()), thread_name_prefix=_POOL_PREFIX)
+    return pool
+
+
+def map_ordered(fn: Callable[..., T], calls: Sequence[tuple[object, ...]]) -> list[T]:
+    """``[fn(*args) for args in calls]``, the calls run at once in the shared pool
+    (the last one in the calling thread), results in the order of ``calls``.
+
+    ``fn`` should spend its time in compiled code that releases the GIL. Called
+    from a thread of the pool itself, the calls run one after the other in that
+    thread (waiting on the pool from inside it could wait forever). An exception
+    of any call is raised after all have finished.
+    """
+    if len(calls) <= 1 or threading.current_thread().name.startswith(_POOL_PREFIX):
+        return [fn(*args) for args in calls]
+    pool = _pool()
+    futures = [pool.submit(fn, *args) for args in calls[:-1]]
+    try:
+        last = fn(*calls[-1])
+    finally:
+        done = [f.exception() for f in futures]  # wait for all before raising
+    for f, exc in zip(futures, done):
+        if exc is not None:
+            raise exc
+    return [f.result() for f in futures] + [last]

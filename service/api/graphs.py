@@ -18,6 +18,7 @@ from storage.repo import idempotency as idem_repo
 
 from .deps import DbDep, SettingsDep, TenantDep, WriteDbDep, require_graph
 from .errors import InvalidParams, UnsupportedMediaType
+from .event_params import EventQuery
 from .schemas.common import PROBLEM_RESPONSES
 from .schemas.graphs import GraphCreate, GraphPage, GraphRead, VersionList, VersionRead
 from .spool import FORMATS, UPLOAD_BODY, media_type, spool_body
@@ -117,7 +118,7 @@ def delete_graph(graph_id: str, db: WriteDbDep, tenant: TenantDep) -> Response:
 @router.post(
     "/{graph_id}/versions",
     status_code=status.HTTP_201_CREATED,
-    summary="Upload edges or node attributes as a new version",
+    summary="Upload edges, node attributes or an event table as a new version",
     openapi_extra=UPLOAD_BODY,
     response_model=VersionRead,
 )
@@ -126,7 +127,8 @@ async def create_version(
     request: Request,
     tenant: TenantDep,
     settings: SettingsDep,
-    part: Literal["edges", "nodes"] = "edges",
+    events: Annotated[EventQuery, Depends()],
+    part: Literal["edges", "nodes", "events"] = "edges",
     mode: Literal["replace", "append", "remove"] = "replace",
     duplicates: Literal["sum", "max", "last"] = "sum",
     source: Annotated[str, Query(min_length=1, max_length=200)] = "source",
@@ -155,7 +157,7 @@ async def create_version(
         parse_delimiter(delimiter)  # refuse a bad value before reading the body
     if fmt == "graphml" and part == "nodes":
         part = "edges"  # a GraphML file carries both; its nodes are applied with its edges
-    from service.usecases import uploads as ingest
+    from service.usecases import event_graphs, uploads as ingest
 
     maker = request.app.state.sessionmaker
     # Check the graph exists before reading a large body.
@@ -181,9 +183,16 @@ async def create_version(
             settings.upload_max_id_chars, settings.upload_max_label_chars, settings.upload_max_value_chars
         )
         route = f"POST /v1/graphs/{graph_id}/versions"
-        digest = _hash(spool.sha256, options)
+        digest = _hash(spool.sha256, options, events)
 
         def work() -> ingest.Uploaded:
+            if part == "events":
+                return event_graphs.upload_events(
+                    maker, tenant, graph_id, spool.path, event_graphs.EventUploadOptions(
+                        fmt, mode, events.columns(weight, extra_columns), events.settings(), delimiter, charset),
+                    limits=limits, render=lambda g, v: version_read(g.id, v).model_dump(mode="json"),
+                    idempotency_key=idempotency_key, request_hash=digest, route=route,
+                    max_attempts=settings.job_max_attempts)
             return ingest.upload_version(
                 maker, tenant, graph_id, spool.path, options, limits=limits,
                 render=lambda g, v: version_read(g.id, v).model_dump(mode="json"),

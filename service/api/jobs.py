@@ -52,7 +52,7 @@ def clock_of(request: Request) -> Clock:
 
 def queue_limits(settings: Settings) -> queueing.QueueLimits:
     return queueing.QueueLimits(settings.job_max_queued_per_tenant, settings.job_max_attempts,
-                                settings.job_memory_limit())
+                                settings.job_memory_limit(), settings.thread_count())
 
 
 def maker_of(request: Request) -> sessionmaker[Session]:

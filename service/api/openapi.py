@@ -57,7 +57,7 @@ OPERATION_IDS = {
 }
 
 #: Operations whose 201 (202 for a job), and 200 on an idempotent replay, carry ``Location``.
-CREATES = {"create_graph", "upload_version", "create_job", "create_schedule", "create_webhook"}
+CREATES = {"create_graph", "upload_version", "create_job", "create_schedule", "create_webhook", "create_campaign"}
 
 PROBLEM_REF = {"$ref": "#/components/schemas/Problem"}
 _STRING = {"type": "string"}

@@ -28,6 +28,8 @@ import numpy as np
 
 from service.settings import Settings
 
+from .demo_campaigns import campaigns_story
+from .demo_events import tasting_events
 from .scenario import STORES, generate, write_csv
 
 __all__ = ["run_demo", "CAUTIONS"]
@@ -209,6 +211,7 @@ def run_demo(settings: Settings, args: argparse.Namespace, echo: Callable[[str],
     try:
         demo = Demo(base, key, out, echo)
         _story(demo, sc, edges_csv, nodes_csv)
+        tasting_events(demo, sc, out / "upload", seed=args.seed)
     finally:
         if proc is not None:
             _stop(proc)
@@ -412,6 +415,7 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
             [[it["adopter"],
               ", ".join(f"{t['node_id']} ({t['exposure']:.2f})" for t in it.get("targets", [])),
               f"{it.get('expected_referrals', 0):.1f}"] for it in ra.get("groups", [])[:5]])
+    campaigns_story(d, sc, gid)
 
 
 def _count_by_store(rows: list[dict[str, Any]]) -> dict[str, int]:

@@ -148,10 +148,12 @@ def _run(args: argparse.Namespace, settings: Settings) -> int:
 
         return run_keys(settings, args)
     if args.command == "demo" and args.files_only:
+        from .demo_events import write_tastings
         from .scenario import generate, write_csv
 
-        edges, nodes = write_csv(generate(args.members or 20_000, seed=args.seed), Path(args.out))
-        print(f"wrote {edges} and {nodes}")
+        sc = generate(args.members or 20_000, seed=args.seed)
+        edges, nodes = write_csv(sc, Path(args.out))
+        print(f"wrote {edges}, {nodes} and {write_tastings(sc, Path(args.out), seed=args.seed)}")
         return 0
     if args.command == "demo":
         import httpx

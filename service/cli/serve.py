@@ -42,6 +42,11 @@ def serve(settings: Settings, *, workers: int, api_processes: int = 1, migrate: 
         limit = settings.job_memory_limit(max(workers, 1))
         settings = settings.model_copy(update={"job_memory_limit_bytes": limit})
         os.environ["BELLWETHER_JOB_MEMORY_LIMIT_BYTES"] = str(limit)
+    if settings.threads is None:
+        # The workers share the cores, as they share memory (Settings.thread_count).
+        threads = settings.thread_count(max(workers, 1))
+        settings = settings.model_copy(update={"threads": threads})
+        os.environ["BELLWETHER_THREADS"] = str(threads)
     supervisor = None
     if workers > 0:
         try:

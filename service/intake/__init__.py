@@ -18,6 +18,7 @@ It imports the standard library, numpy, defusedxml, ijson, charset-normalizer an
 
 from __future__ import annotations
 
+from .campaign_log import LOG_COLUMNS, LOG_ROLES, LogRow, read_campaign_log
 from .csvfile import read_edges_csv, read_nodes_csv
 from .dialect import (
     DELIMITER_NAMES,
@@ -51,6 +52,7 @@ from .errors import (
     UnsafeXml,
     UploadError,
 )
+from .events import EventColumns, EventRows, read_events_csv, read_events_json, read_events_ndjson
 from .graphml import GRAPHML_NS, read_graphml
 from .hints import EDGE_NAMES, NODE_NAMES, ColumnHint, normalise, suggest_columns
 from .interner import MAX_NODES, Interner
@@ -77,6 +79,11 @@ from .merge import (
 from .tables import CONSENT_WORDS, NODE_COLUMNS, EdgeOptions, EdgeTable, NodeTable
 
 __all__ = [
+    # campaign logs
+    "LOG_COLUMNS",
+    "LOG_ROLES",
+    "LogRow",
+    "read_campaign_log",
     # errors
     "IntakeError",
     "InvalidOption",
@@ -112,6 +119,11 @@ __all__ = [
     "read_nodes_ndjson",
     "read_nodes_json",
     "read_graphml",
+    "EventColumns",
+    "EventRows",
+    "read_events_csv",
+    "read_events_ndjson",
+    "read_events_json",
     "GRAPHML_NS",
     # encodings, delimiters and column hints (CSV)
     "open_csv",

@@ -1,6 +1,6 @@
 """Admission control: a job's peak memory, estimated from the version's size and its params.
 
-Each kind's ``JobKind.estimate(params, load, nodes=, edges=, limit=)`` returns
+Each kind's ``JobKind.estimate(params, load, nodes=, edges=, limit=, threads=)`` returns
 an :class:`Estimate` (``limit`` lets it say how far to lower a parameter); :func:`admit` compares it with the per-job memory limit
 (the setting ``job_memory_limit_bytes``, passed down as a plain number) and
 raises :class:`~service.analytics.errors.TooExpensive` above it, which the API
@@ -29,7 +29,14 @@ The estimates count the large buffers only, from their element sizes:
   simulated (reach, weighted reach and depth per run, twice while chunks are merged);
 - sampled betweenness, harmonic closeness, profile, recommendations, link
   evaluation: linear in the graph, covered by the graph term (twice for scores,
-  whose undirected view is a second igraph copy).
+  whose undirected view is a second igraph copy);
+- threads (``threads``, the setting passed down): every thread beyond the first
+  keeps buffers of its own, ``THREAD_BYTES_PER_NODE`` per node (visit marks, a
+  queue and per-node counts of a simulation thread; marks and lane queues of an
+  RR-sampling thread) and, with more than one thread sampling RR sets, each thread
+  one batch store of ``THREAD_BATCH_BYTES`` (its part of a quarter second of sets,
+  appended to the shared store in index order, so the store itself is never held
+  twice).
 """
 
 from __future__ import annotations
@@ -56,6 +63,9 @@ __all__ = [
     "PILOT_SETS",
     "PILOT_MAX_EDGES",
     "PILOT_MAX_ENTRIES",
+    "THREAD_BYTES_PER_NODE",
+    "THREAD_BATCH_BYTES",
+    "thread_bytes",
     "linear_estimate",
     "scores_estimate",
     "forecast_estimate",
@@ -68,6 +78,11 @@ RR_ENTRY_BYTES = 8
 RR_SET_BYTES = 9
 RUN_BYTES = 40
 PILOT_SETS = 2000
+#: Per node, per thread beyond the first: int32 marks and queue, int64 counts (simulation);
+#: int32 marks, uint16 lane marks and lane queue pages (RR sampling).
+THREAD_BYTES_PER_NODE = 16
+#: One thread's RR batch store: about a quarter second of sets (see tests/bench/bench_threads.py).
+THREAD_BATCH_BYTES = 32 * 1024 * 1024
 #: The pilot stops once its sets hold this many entries (32 MiB; 64 MiB at most after the last doubling).
 PILOT_MAX_ENTRIES = 4_000_000
 #: Above this many edges the API does not load the version to measure set sizes;
@@ -90,6 +105,14 @@ def graph_bytes(nodes: int, edges: int) -> int:
     return GRAPH_BYTES_PER_EDGE * int(edges) + GRAPH_BYTES_PER_NODE * int(nodes)
 
 
+def thread_bytes(nodes: int, threads: int, *, rr: bool = False) -> int:
+    """What ``threads`` threads hold beyond one thread's buffers (see the module docstring)."""
+    if int(threads) <= 1:
+        return 0
+    batches = int(threads) * THREAD_BATCH_BYTES if rr else 0
+    return (int(threads) - 1) * THREAD_BYTES_PER_NODE * int(nodes) + batches
+
+
 def _mib(n: float) -> str:
     return f"{n / (1 << 30):.1f} GiB" if n >= 1 << 30 else f"{n / (1 << 20):.0f} MiB"
 
@@ -106,8 +129,12 @@ def admit(estimate: Estimate | None, limit: int | None) -> None:
 
 
 def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, scheme: str,
-                 p: float | None, q: float | None, rounds: int | None, random_seed: int) -> float | None:
-    """The mean RR-set size measured on :data:`PILOT_SETS` sets, or None for a version too large to load here."""
+                 p: float | None, q: float | None, rounds: int | None, random_seed: int,
+                 settings: Any = None) -> float | None:
+    """The mean RR-set size measured on :data:`PILOT_SETS` sets, or None for a version too large to load here.
+
+    ``settings`` (diffusion settings, optional) builds the graph instead, as a learned model needs.
+    """
     if edges > PILOT_MAX_EDGES:
         return None
     import numpy as np
@@ -118,8 +145,8 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
     v = load()
     if v.graph.n == 0:
         return 0.0
-    dg = diffusion_graph_for(v.version_id, v.graph, model=model, scheme=scheme, p=p, q=q,
-                             random_seed=random_seed)
+    dg = settings.diffusion_graph(v) if settings is not None else diffusion_graph_for(
+        v.version_id, v.graph, model=model, scheme=scheme, p=p, q=q, random_seed=random_seed)
     coll = RRCollection(RRSampler(dg, rounds=rounds), np.uint64(0x9E3779B97F4A7C15))
     target = 4
     while True:  # doubling, so a stop leaves at most twice PILOT_MAX_ENTRIES in the store
@@ -137,7 +164,7 @@ def rr_mean_size(load: Callable[[], LoadedVersion], *, edges: int, model: str, s
 
 def _linear(factor: int) -> Callable[..., Estimate]:
     def estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
-                 limit: int | None = None) -> Estimate:
+                 limit: int | None = None, threads: int = 1) -> Estimate:
         return Estimate(factor * graph_bytes(nodes, edges), "the graph and its working copies",
                         "this graph is too large for this service's memory limit")
 
@@ -152,9 +179,9 @@ scores_estimate = _linear(2)
 
 
 def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
-                      limit: int | None = None) -> Estimate:
+                      limit: int | None = None, threads: int = 1) -> Estimate:
     runs = int(params.simulations)  # seed sets are simulated one after the other
-    fixed = graph_bytes(nodes, edges) + 16 * nodes
+    fixed = graph_bytes(nodes, edges) + 16 * nodes + thread_bytes(nodes, threads)
     relax = f"lower simulations ({RUN_BYTES} bytes each)"
     if limit is not None and limit > fixed:
         relax = f"lower simulations to at most {(limit - fixed) // RUN_BYTES:,} ({RUN_BYTES} bytes each)"
@@ -162,15 +189,16 @@ def forecast_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: 
 
 
 def shortlist_estimate(params: Any, load: Callable[[], LoadedVersion], *, nodes: int, edges: int,
-                       limit: int | None = None) -> Estimate:
-    base = graph_bytes(nodes, edges)
+                       limit: int | None = None, threads: int = 1) -> Estimate:
+    rr = params.method in ("imm", "opim")
+    base = graph_bytes(nodes, edges) + thread_bytes(nodes, threads, rr=rr)
     sims = int(params.forecast_runs) * RUN_BYTES  # the lists are forecast one after the other
-    if params.method not in ("imm", "opim"):
+    if not rr:
         return Estimate(base + sims, f"{params.forecast_runs:,} simulations per list",
                         "lower forecast_runs", {"forecast_runs": int(params.forecast_runs)})
     pr = params.probability
     mean = rr_mean_size(load, edges=edges, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                        rounds=params.rounds, random_seed=params.random_seed)
+                        rounds=params.rounds, random_seed=params.random_seed, settings=params)
     mean = 1.0 if mean is None else mean
     per_set = mean * RR_ENTRY_BYTES + RR_SET_BYTES
     sets = int(params.max_samples) + int(params.evaluation_samples)

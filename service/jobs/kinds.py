@@ -38,6 +38,8 @@ class TaskContext:
     random_seed: int
     progress: Progress
     _load: Callable[[], LoadedVersion]
+    # The worker's database, for the few kinds that write a version (``project_events``).
+    sessions: Any = None
 
     def load(self) -> LoadedVersion:
         """The job's graph version (arrays, caller ids, node attributes), cached per process."""
@@ -71,6 +73,10 @@ class JobKind:
     # Checks that need the version, run at job creation in the API process:
     # ``precheck(params, load, edges=...)`` raises an analytics error (a 422) or returns.
     precheck: Callable[..., None] | None = None
+    # Params that name another job's result, completed when the job is queued (before
+    # ``precheck``): ``resolve(params, db, tenant, load, graph_id=, version=)`` returns the
+    # params to store, or raises an analytics error (a 422).
+    resolve: Callable[..., BaseModel] | None = None
     # Peak memory from the version's size and the params, checked against the per-job
     # limit at creation and before running: ``estimate(params, load, nodes=, edges=, limit=)``
     # returns a :class:`service.jobs.admission.Estimate` (None: not estimated).

@@ -51,6 +51,7 @@ class QueueLimits:
     max_queued_per_tenant: int
     max_attempts: int
     memory_limit: int | None
+    threads: int = 1  # threads a job runs on (its memory estimate counts each thread's buffers)
 
 
 def parse_job_params(kind: JobKind, raw: dict[str, Any]) -> BaseModel:
@@ -116,16 +117,19 @@ def queue_job(
         graph_repo.get_graph(db, tenant, graph_id)
     kind = registry.get_kind(order.kind)
     params = parse_job_params(kind, order.params)
-    if kind.precheck is not None or kind.estimate is not None:
+    if kind.precheck is not None or kind.estimate is not None or kind.resolve is not None:
         # Before the write transaction: checking ids and estimating memory may load the version.
         with maker() as db:
             graph, number = resolve_version(db, tenant, graph_id, order.version)
             row = graph_repo.get_version(db, graph, number)
+            if kind.resolve is not None:
+                params = kind.resolve(params, db, tenant, lambda: load_version(db, row), graph_id=graph.id,
+                                      version=number)
             if kind.precheck is not None:
                 kind.precheck(params, lambda: load_version(db, row), edges=row.edges)
             if kind.estimate is not None:
                 estimate = kind.estimate(params, lambda: load_version(db, row), nodes=row.nodes,
-                                         edges=row.edges, limit=limits.memory_limit)
+                                         edges=row.edges, limit=limits.memory_limit, threads=limits.threads)
                 admission.admit(estimate, limits.memory_limit)
     with write() as db:
         if idempotency_key:

@@ -46,7 +46,9 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import forecast, layout, link_evaluation, profile, recommendations, referral_asks, scores, shortlist
+from .tasks import (backtest, dense_groups, forecast, layout, learn_probabilities, link_evaluation,
+                    odd_neighbourhoods, profile,
+                    project_events, recommendations, referral_asks, scores, shortlist)
 
 __all__ = [
     "JobKind",
@@ -60,7 +62,10 @@ __all__ = [
     "validation_errors",
 ]
 
-_BUILTIN = [profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist, layout]
+_BUILTIN = [
+    profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist,
+    project_events, odd_neighbourhoods, dense_groups, learn_probabilities, backtest, layout,
+]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}
 

@@ -36,7 +36,7 @@ import numpy as np
 from sqlalchemy import update
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.analytics._chunks import memory_limit
+from service.analytics._chunks import memory_limit, thread_limit, usable_cores
 from service.analytics.errors import Cancelled
 from service.usecases.loading import LoadedVersion, load_version
 from service.telemetry.metrics import service_metrics, start_worker_metrics_server
@@ -87,6 +87,8 @@ class WorkerConfig:
     metrics_host: str = "127.0.0.1"
     # The per-job memory limit in bytes (None: none).
     memory_limit_bytes: int | None = None
+    # Threads one job may run on (None: every core the process may use).
+    threads: int | None = None
 
     def timeout_for(self, kind: str) -> float:
         return float(self.kind_timeouts.get(kind, self.timeout_seconds))
@@ -121,6 +123,7 @@ class WorkerConfig:
             metrics_port=s.worker_metrics_port,
             metrics_host=s.worker_metrics_host,
             memory_limit_bytes=s.job_memory_limit(),
+            threads=s.thread_count(),
         )
 
 
@@ -321,16 +324,19 @@ class Worker:
                 random_seed=seed,
                 progress=progress,
                 _load=self._loader(run),
+                sessions=self.maker,
             )
             limit = self.config.memory_limit_bytes
             if kind.estimate is not None and job.graph_id is not None:
                 v = ctx.load()
-                admission.admit(kind.estimate(params, ctx.load, nodes=v.graph.n, edges=v.graph.m, limit=limit),
-                                limit)
+                admission.admit(kind.estimate(params, ctx.load, nodes=v.graph.n, edges=v.graph.m, limit=limit,
+                                              threads=self.config.threads or usable_cores()), limit)
             token = memory_limit.set(limit)  # growing buffers check it (analytics._chunks)
+            threads_token = thread_limit.set(self.config.threads)  # threads= defaults to it
             try:
                 output = kind.run(ctx, params)
             finally:
+                thread_limit.reset(threads_token)
                 memory_limit.reset(token)
             data = {k: v for k, v in output.data.items() if k not in RESERVED_RESULT_KEYS}
             data.update(

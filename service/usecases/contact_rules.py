@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 
 from service.analytics.errors import InfeasibleRequest, InvalidParameter, UnknownNode
 from service.analytics.seeding.rules import SeedRules
+from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning
 from service.usecases.loading import LoadedVersion
 
 if TYPE_CHECKING:
@@ -80,6 +81,7 @@ class ContactRules:
     max_per_segment: int | Mapping[str, int] | None = None
     target_segment: tuple[str, ...] | None = None
     weights: Literal["value"] | None = None
+    flagged: FlaggedRule | None = None  # people an integrity job flagged, never seeds
 
     def __post_init__(self) -> None:
         for name, problem in (
@@ -103,6 +105,7 @@ class ContactRules:
             target_segment=(target,) if isinstance(target, str) else
             None if target is None else tuple(target),
             weights=params.weights,
+            flagged=params.exclude_flagged,
         )
 
 
@@ -123,9 +126,11 @@ def resolve_rules(contact: ContactRules, version: LoadedVersion) -> ResolvedRule
     warnings: list[dict[str, Any]] = []
     must = _resolve(version, list(contact.must_include), "must_include", warnings)
     excluded = _resolve(version, list(contact.exclude), "exclude", warnings)
+    flagged = _flagged(contact, version, must, warnings)
     consent = attrs.contactable()
     eligible = consent.copy()
     eligible[excluded] = False
+    eligible[flagged] = False
     for rule, bad in (
         ("consent", [v for v in must if not consent[v]]),
         ("exclude", sorted(set(must) & set(excluded))),
@@ -208,6 +213,26 @@ def resolve_rules(contact: ContactRules, version: LoadedVersion) -> ResolvedRule
     )
     weights, target = _target(contact, version, warnings)
     return ResolvedRules(rules, contactable, weights, target, warnings)
+
+
+def _flagged(contact: ContactRules, version: LoadedVersion, must: list[int],
+             warnings: list[dict[str, Any]]) -> list[int]:
+    """The people ``exclude_flagged`` leaves out; a must-include person among them is refused."""
+    rule = contact.flagged
+    if rule is None:
+        return []
+    flagged = _resolve(version, flagged_ids(rule), "exclude_flagged", warnings)
+    both = sorted(set(must) & set(flagged))
+    if both:
+        names = [version.ids[v] for v in both]
+        raise InfeasibleRequest(
+            f"{len(names)} must-include person(s) are flagged for review by job {rule.job}: {_show(names)}; "
+            "review them, then drop them from must_include or leave exclude_flagged out",
+            field="must_include", node_ids=names[:LISTED], count=len(names))
+    note = flagged_warning(rule, len(flagged))
+    if note is not None:
+        warnings.append(note)
+    return flagged
 
 
 def _feasible(

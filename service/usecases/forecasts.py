@@ -195,7 +195,9 @@ def forecast_reach(version: LoadedVersion, params: ForecastParams, *, progress: 
         include_seeds=params.top_nodes_include_seeds,
         progress=progress,
     )
-    return Computed(data=result_document(params, v, prep, results))
+    doc = result_document(params, v, prep, results)
+    doc["threads"] = next(iter(results.values())).threads
+    return Computed(data=doc)
 
 
 # ------------------------------------------------------------------ the result

@@ -23,7 +23,7 @@ from storage.arrays import decode_strings, encode_strings
 from storage.models import GraphVersion
 from storage.repo import graphs as graph_repo
 
-__all__ = ["LoadedVersion", "load_version", "version_arrays", "clear_cache"]
+__all__ = ["LoadedVersion", "load_version", "version_arrays", "clear_cache", "version_origin"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -89,12 +89,27 @@ def clear_cache() -> None:
 
 def load_version(db: Session, version: GraphVersion) -> LoadedVersion:
     """The version's graph, ids and attributes (cached per process)."""
+    _origins[version.id] = (version.graph_id, db.get_bind())
     return version_cache.get(version.id, lambda: _load(db, version))
+
+
+# Version id -> (graph id, database it was loaded from), for the use cases that read more
+# of the same graph (its campaigns, a learned model) while holding only the loaded version.
+_origins: dict[str, tuple[str, Any]] = {}
+
+
+def version_origin(version_id: str) -> tuple[str, Any]:
+    """The graph id of a version loaded in this process and the database it came from.
+
+    Raises ``KeyError`` for a version this process never loaded.
+    """
+    return _origins[version_id]
 
 
 def _load(db: Session, version: GraphVersion) -> LoadedVersion:
     man = version.manifest
-    a = graph_repo.get_version_arrays(db, version)
+    # Event tables kept with the version are read only by the event use cases.
+    a = graph_repo.get_version_arrays(db, version, [k for k in man["arrays"] if not k.startswith("events.")])
     n = int(man["n"])
     g = GraphArrays(
         n=n,

@@ -23,8 +23,8 @@ from sqlalchemy.orm import Session
 
 from service.analytics.errors import InvalidParameter, UnknownNode
 from service.analytics.ties.referrals import NextContact, next_contacts, referral_asks
-from service.usecases.diffusion_inputs import diffusion_graph_for
-from service.usecases.diffusion_settings import ProbabilitySettings
+from service.usecases.diffusion_settings import ProbabilitySettings, diffusion_graph_under
+from service.usecases.integrity_rules import FlaggedRule, flagged_ids, flagged_warning, read_flagged
 from service.usecases.loading import LoadedVersion, load_version
 from storage.repo import graphs as graph_repo
 
@@ -58,6 +58,9 @@ class ReferralAsksParams(BaseModel):
     follow_on: FollowOn | None = Field(default=None, description="Blend in this per-node measure.")
     blend: float | None = Field(default=None, ge=0, le=1, description="Weight of follow_on (default 0.5 with it).")
     strict: bool = Field(default=True, description="Unknown adopter ids fail the job (true) or are skipped.")
+    exclude_flagged: FlaggedRule | None = Field(
+        default=None, description="People an odd_neighbourhoods or dense_groups job of this version flagged for "
+                                  "review are neither asked nor asked about: {job, lists}.")
 
 
 @dataclass(frozen=True)
@@ -80,6 +83,7 @@ class AdopterQuery:
     group_by: Literal["adopter"] | None = None
     per_adopter: int = 5
     strict: bool = True
+    exclude_flagged: FlaggedRule | None = None
 
 
 def exposure_explained(model: str, scheme: str) -> str:
@@ -187,6 +191,8 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
         graph = graph_repo.get_graph(db, tenant, query.graph_id)
         ver = graph_repo.get_version(db, graph, query.version)
         loaded = load_version(db, ver)
+        rule = None if query.exclude_flagged is None else read_flagged(
+            query.exclude_flagged, db, tenant, lambda: loaded, graph_id=graph.id, version=ver.number)
     lookup = loaded.index
     got = [lookup.get(s, -1) for s in query.adopters]
     idx = np.asarray(got, dtype=np.int64)
@@ -203,10 +209,16 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
         idx = idx[idx >= 0]
     adopters = np.unique(idx)
     pr = query.probability
-    dg = diffusion_graph_for(ver.id, loaded.graph, model=query.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                             random_seed=query.random_seed)
+    dg = diffusion_graph_under(loaded, model=query.model, probability=pr, random_seed=query.random_seed)
     index = neighbour_index_for(ver.id, loaded.graph)
     ok = loaded.attrs.contactable()
+    warnings: list[dict[str, Any]] = []
+    if rule is not None:
+        flagged = resolve_ids(lookup, flagged_ids(rule), "exclude_flagged")
+        ok = ok.copy()
+        ok[flagged] = False
+        note = flagged_warning(rule, len(flagged))
+        warnings += [note] if note else []
     blend = _blend(query.blend, query.follow_on)
     values = follow_on_for(ver.id, loaded.graph, query.follow_on) if query.follow_on else None
     body: dict[str, Any] = {
@@ -220,6 +232,7 @@ def next_contacts_for(sessions: Callable[[], Session], tenant: str, query: Adopt
         "unknown_adopters": {"count": len(unknown), "examples": unknown[:20]} if unknown else None,
         "group_by": query.group_by,
         "exposure_explained": exposure_explained(query.model, pr.scheme),
+        **({"warnings": warnings} if warnings else {}),
     }
     ids, labels = loaded.ids, loaded.labels
     if query.group_by == "adopter":
@@ -253,9 +266,15 @@ def ask_for_referrals(v: LoadedVersion, params: ReferralAsksParams, *, progress:
     adopters = (resolve_ids(v.index, params.adopters, "adopters") if params.strict
                 else np.fromiter(known.values(), np.int64, len(known)))
     pr = params.probability
-    dg = diffusion_graph_for(v.version_id, v.graph, model=params.model, scheme=pr.scheme, p=pr.p, q=pr.q,
-                             random_seed=params.random_seed)
+    dg = diffusion_graph_under(v, model=params.model, probability=pr, random_seed=params.random_seed)
     ok = v.attrs.contactable()
+    warnings: list[dict[str, Any]] = []
+    if params.exclude_flagged is not None:
+        flagged = resolve_ids(v.index, flagged_ids(params.exclude_flagged), "exclude_flagged")
+        ok = ok.copy()
+        ok[flagged] = False
+        note = flagged_warning(params.exclude_flagged, len(flagged))
+        warnings += [note] if note else []
     blend = _blend(params.blend, params.follow_on)
     values = follow_on_for(v.version_id, v.graph, params.follow_on) if params.follow_on else None
     progress(0.5, "ranking")
@@ -288,6 +307,7 @@ def ask_for_referrals(v: LoadedVersion, params: ReferralAsksParams, *, progress:
                 "won over if every adopter asks each of their targets once."
             ),
             "columns": REFERRAL_ASKS_HEADER,
+            **({"warnings": warnings} if warnings else {}),
         },
         arrays=arrays,
     )

@@ -165,6 +165,7 @@ class ReferralAsksResult(Result):
     expected_referrals_explained: str | None = Field(
         default=None, description="What the expected referrals figure counts, in plain words."
     )
+    warnings: list[ResultWarning] = Field(default_factory=list, description="People left out, and why.")
 
 
 class LinkMethodScore(_Open):
@@ -279,6 +280,8 @@ class ForecastResult(Result):
     half_width: float | None = None
     stream_key: str | None = None
     outcome_histogram: OutcomeHistogram | None = None
+    threads: int | None = Field(
+        default=None, description="Threads the job ran on; every figure is the same for any number.")
 
 
 # -- shortlist -------------------------------------------------------------------------
@@ -368,6 +371,8 @@ class ReplacedList(_Open):
 class ShortlistResult(Result):
     kind: Literal["shortlist"]
     params: ShortlistParams
+    threads: int | None = Field(
+        default=None, description="Threads the job ran on; every figure is the same for any number.")
     model: str
     probability: ProbabilitySettings
     rounds: int | None

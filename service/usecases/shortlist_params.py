@@ -15,6 +15,7 @@ from pydantic import Field, model_validator
 from .diffusion_settings import DiffusionSettings
 
 from .contact_rules import budget_problem, caps_problem, target_problem
+from .integrity_rules import FlaggedRule
 
 __all__ = [
     "BASELINES",
@@ -105,6 +106,11 @@ class ShortlistParams(DiffusionSettings):
         default_factory=list,
         max_length=MAX_IDS,
         description="People who may not be contacted (besides those without consent).",
+    )
+    exclude_flagged: FlaggedRule | None = Field(
+        default=None,
+        description="Leave out the people an odd_neighbourhoods or dense_groups job of this version flagged "
+        "for review: {job, lists}.",
     )
     max_per_segment: int | dict[str, int] | None = Field(
         default=None,

@@ -60,6 +60,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
+from service.analytics._chunks import thread_count
 from service.usecases.loading import LoadedVersion
 
 from ._shortlist_result import result_document
@@ -151,6 +152,7 @@ def build_shortlist(
     clock.lap("forward_monte_carlo")
     doc = result_document(params, version, prep, chosen, evaluated, fc, cmp, used)
     doc["timings"] = {"method": doc["timings"], **clock.laps, "total": clock.total()}
+    doc["threads"] = thread_count()  # what RR sampling and simulations ran on (the worker's setting)
     return doc
 
 

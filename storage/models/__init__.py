@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from .apikey import ApiKey
 from .base import Base, UtcDateTime, new_id, utcnow
+from .campaign import Campaign
 from .graph import Graph, GraphVersion, VersionArray
 from .idempotency import IdempotencyRecord
 from .job import FINISHED_STATUSES, JOB_STATUSES, Job, JobResult, ResultArray
@@ -29,4 +30,5 @@ __all__ = [
     "DELIVERY_STATUSES",
     "IdempotencyRecord",
     "ApiKey",
+    "Campaign",
 ]

@@ -77,7 +77,7 @@ def test_lanes_give_the_same_sets(lanes_always, mixed, rounds, weighted):
     assert np.array_equal(coll.nodes, nodes)
     assert np.array_equal(coll.offsets[1:], ends)
     assert coll.examined == examined
-    assert not coll._vis.any()  # marks are left cleared between calls
+    assert not any(sc.vis.any() for sc in coll.sampler.scratch)  # marks are left cleared between calls
 
 
 def test_lanes_survive_a_full_store():
@@ -91,7 +91,8 @@ def test_lanes_survive_a_full_store():
     sampler = RRSampler(dg)
     sampler.lanes = True
     sampler.rec, sampler.recf = _rr_lanes.lane_records(sampler.indptr, sampler.mode, sampler.aux)
-    sampler.pend = np.empty(_rr_lanes.LANES * 2, np.int64)
+    sampler.pend_size = _rr_lanes.LANES * 2
+    pend = np.empty(sampler.pend_size, np.int64)
     key = K.stream_key(4, 0)
     ref_nodes, ref_ends, _ = one_at_a_time(sampler, key, 200)
     for room in (n, 3 * n, 50 * n):
@@ -101,7 +102,7 @@ def test_lanes_survive_a_full_store():
         queues = np.empty(_rr_lanes.LANES * n, np.int32)
         done, pos, _ = _rr_lanes.sample_ic_lanes(
             sampler.rec, sampler.recf, sampler.indices, sampler.arc, sampler.accept,
-            sampler.alias, key, 0, 200, -1, out, 0, ends, vis, queues, sampler.pend,
+            sampler.alias, key, 0, 200, -1, out, 0, ends, vis, queues, pend,
         )
         assert 1 <= done <= 200
         assert np.array_equal(ends[:done], ref_ends[:done])
@@ -109,8 +110,6 @@ def test_lanes_survive_a_full_store():
         assert not vis.any()
     # Through the collection the store grows until every set fits.
     coll = RRCollection(sampler, key)
-    coll._vis = np.zeros(n, np.uint16)
-    coll._queues = np.empty(_rr_lanes.LANES * n, np.int32)
     coll.extend_to(200)
     assert np.array_equal(coll.nodes, ref_nodes)
 
@@ -178,5 +177,5 @@ def test_lt_lanes_give_the_same_sets(lanes_always, scheme, rounds, weighted):
     assert np.array_equal(coll.nodes, nodes[:pos])
     assert np.array_equal(coll.offsets[1:], ends)
     assert coll.examined == examined
-    assert not coll._vis.any()
+    assert not any(sc.vis.any() for sc in coll.sampler.scratch)
     assert (np.diff(coll.offsets) > 1).any() == (rounds != 0)  # walks longer than the root

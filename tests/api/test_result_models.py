@@ -13,6 +13,7 @@ from service.api.schemas.results import RESULT_MODELS, JobResult
 from service.jobs.registry import REGISTRY
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import make_graph, run_worker_once, worker_for
+from tests.jobs.campaign_helpers import upload_campaigns
 
 pytestmark = [pytest.mark.anyio, pytest.mark.slow]
 
@@ -38,7 +39,15 @@ RUNS: list[tuple[str, dict[str, Any]]] = [
     ("shortlist", {"budget": 3, "method": "celf", "celf_runs": 50, "target_segment": "officer"}),
     ("shortlist", {"cost_budget": 4.0, "must_include": ["1"], "max_per_segment": 2}),
     ("layout", {}),
+    ("odd_neighbourhoods", {"top": 5}),
+    ("dense_groups", {"groups": 2}),
+    ("project_events", {"backbone": "disparity_filter", "alpha": 0.5}),
+    ("learn_probabilities", {}),
+    ("backtest", {"latest": 2, "simulations": 100}),
+    ("backtest", {"holdout": "each", "simulations": 50, "methods": ["uniform"]}),
 ]
+# Kinds that run on a version built from an event table (karate club's edges as two-person events).
+EVENTS_CSV = "person,event\n" + "".join(f"{u},e{i}\n{v},e{i}\n" for i, (u, v) in enumerate(nx.karate_club_graph().edges()))
 
 
 @pytest.fixture
@@ -75,8 +84,15 @@ async def test_every_kind_result_matches_its_model(client: Any) -> None:
     r = await client.post(f"/v1/graphs/{gid}/versions", params={"part": "nodes", "mode": "append"},
                           content=NODES_CSV, headers={"Content-Type": "text/csv"})
     assert r.status_code == 201, r.text
+    events_gid = await make_graph(client, None)
+    r = await client.post(f"/v1/graphs/{events_gid}/versions", params={"part": "events"}, content=EVENTS_CSV,
+                          headers={"Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    karate = [(str(u), str(v)) for u, v in nx.karate_club_graph().edges()]
+    await upload_campaigns(client, gid, karate, 6, p=0.2)  # what learn_probabilities and backtest read
     for kind, params in RUNS:
-        r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": params})
+        on = events_gid if kind == "project_events" else gid
+        r = await client.post(f"/v1/graphs/{on}/jobs", json={"kind": kind, "params": params})
         assert r.status_code == 202, r.text
         await run_worker_once(worker_for(client))
         job = (await client.get(f"/v1/jobs/{r.json()['id']}")).json()

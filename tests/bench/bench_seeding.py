@@ -168,7 +168,7 @@ def throughput(exe: Path, pairs: int, seconds: float) -> list[tuple[str, float, 
     ratios = []
     for label, dataset, directed in THROUGHPUT_GRAPHS:
         _, dg = load(dataset, directed)
-        sampler = RRSampler(dg)
+        sampler = RRSampler(dg, threads=1)  # one thread, as the C reference (bench_threads: all cores)
         RRCollection(sampler, K.stream_key(0, 0)).extend_to(2000)  # compile / load the kernel cache
         method, scan = fastest_method(exe, dataset, directed, seconds)
         print(
@@ -226,6 +226,9 @@ def imm(exe: Path, seconds: float) -> list[str]:
     lines = []
     for label, dataset, directed in IMM_GRAPHS:
         _, dg = load(dataset, directed)
+        from service.analytics._chunks import thread_limit
+
+        thread_limit.set(1)  # one thread, as the heading says (bench_threads runs IMM on all cores)
         # compile / load the kernel caches
         imm_seeds(dg, SeedRules.build(dg.n, budget=2), epsilon=0.5, forecast_runs=0)
         resettable = _reset_peak()

@@ -23,6 +23,8 @@ SECTIONS = [
     "## Where the shortlist gains, store by store",
     "## The same campaign on a money budget",
     "## First wave",
+    "## Learning from past campaigns",
+    "## Ties from tasting attendance",
     "## Cautions",
 ]
 
@@ -53,7 +55,7 @@ def test_demo_report_has_every_section_and_valid_plots(tmp_path: Path) -> None:
     assert "-0 " not in report and "| -0 |" not in report
     assert str(tmp_path) not in report  # no absolute paths of the machine
     svgs = sorted(p.name for p in out.glob("*.svg"))
-    assert svgs == ["adoption.svg", "degree_distribution.svg", "outcomes.svg", "reach_curve.svg",
+    assert svgs == ["adoption.svg", "backtest.svg", "degree_distribution.svg", "outcomes.svg", "reach_curve.svg",
                     "segment_reach.svg"]
     for p in out.glob("*.svg"):
         root = ET.fromstring(p.read_text())  # valid XML
@@ -61,12 +63,15 @@ def test_demo_report_has_every_section_and_valid_plots(tmp_path: Path) -> None:
         assert desc is not None and json.loads(desc.text)["series"]  # type: ignore[arg-type]
         assert "top_degree" not in p.read_text()  # plain words in plots
     # The first wave's table can be acted on: never "None", and varied chances, not ten rows of 1.00.
-    wave = report[report.index("## First wave"):report.index("## Cautions")]
+    wave = report[report.index("## First wave"):report.index("## Learning from past campaigns")]
     assert "None" not in wave
     rows = [r for r in wave.splitlines() if re.match(r"\| m\d", r)]
     chances = [float(r.split("|")[2]) for r in rows[:10]]
     assert len(rows) >= 10 and len(set(chances)) > 3 and chances == sorted(chances, reverse=True)
     assert "nobody may ask" not in "".join(rows[:10])  # an adopter who may ask comes first
+    # Past campaigns: the learned model is reported with the hidden truth beside it, and a backtest verdict.
+    learning = report[report.index("## Learning from past campaigns"):report.index("## Cautions")]
+    assert "hidden truth" in learning and "The learned model's forecasts were off by" in learning
     assert (out / "upload" / "edges.csv").exists() and (out / "upload" / "members.csv").exists()
 
 

@@ -8,10 +8,10 @@ import pathlib
 
 import service.intake as pkg
 
-MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "graphml", "merge", "dialect",
+MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "graphml", "events", "merge", "dialect",
            "encoding", "hints"]
 ALLOWED = {"__future__", "array", "collections", "csv", "dataclasses", "decimal", "io", "itertools",
-           "json", "math", "typing", "numpy", "defusedxml", "ijson", "service",
+           "datetime", "json", "math", "typing", "numpy", "defusedxml", "ijson", "service",
            "codecs", "re", "charset_normalizer"}
 
 

@@ -137,3 +137,46 @@ def test_estimates_count_what_the_params_ask_for() -> None:
         admission.admit(est, 10 << 20)
     assert err.value.data["estimated_bytes"] == est.bytes  # type: ignore[attr-defined]
     admission.admit(est, None)  # no limit: admitted
+    # Every thread beyond the first keeps its own per-node buffers (marks, queue, counts).
+    four = admission.forecast_estimate(P(), lambda: None, nodes=1000, edges=5000, threads=4)
+    assert four.bytes - est.bytes == 3 * admission.THREAD_BYTES_PER_NODE * 1000
+
+
+def test_threads_setting_defaults_to_the_usable_cores_shared_by_the_workers(
+        tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
+    import os
+
+    monkeypatch.delenv("BELLWETHER_THREADS", raising=False)
+
+    from service.settings import Settings, usable_cores
+
+    # Source: the process's CPU affinity (os.sched_getaffinity), the cores it may run on,
+    # and no CPU quota in an empty cgroup folder.
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count()
+    assert usable_cores(tmp_path) == cores
+    s = Settings(data_dir=tmp_path)
+    assert s.threads is None
+    assert s.thread_count() == usable_cores()  # the real cgroup: a CI container may set a quota
+    assert s.thread_count(workers=cores * 2) == 1  # never below one
+    assert Settings(data_dir=tmp_path, threads=3).thread_count(workers=4) == 3
+    from service.jobs.worker import WorkerConfig
+    assert WorkerConfig.from_settings(Settings(data_dir=tmp_path, threads=5)).threads == 5
+
+
+def test_a_container_cpu_quota_caps_the_usable_cores(tmp_path: Path) -> None:
+    from service.settings import cpu_quota, usable_cores
+
+    # Source: the cgroup v2 cpu.max format ("quota period", or "max period" for none) and
+    # the v1 cfs files (quota -1 for none), as documented by the Linux kernel.
+    (tmp_path / "cpu.max").write_text("150000 100000\n")
+    assert cpu_quota(tmp_path) == 1.5
+    assert usable_cores(tmp_path) == min(2, usable_cores(tmp_path / "none"))  # 1.5 rounded up
+    (tmp_path / "cpu.max").write_text("max 100000\n")
+    assert cpu_quota(tmp_path) is None
+    (tmp_path / "cpu.max").unlink()
+    (tmp_path / "cpu").mkdir()
+    (tmp_path / "cpu" / "cpu.cfs_quota_us").write_text("100000\n")
+    (tmp_path / "cpu" / "cpu.cfs_period_us").write_text("100000\n")
+    assert cpu_quota(tmp_path) == 1.0 and usable_cores(tmp_path) == 1
+    (tmp_path / "cpu" / "cpu.cfs_quota_us").write_text("-1\n")
+    assert cpu_quota(tmp_path) is None

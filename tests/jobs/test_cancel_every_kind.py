@@ -21,6 +21,7 @@ import pytest
 from service.jobs.worker import RunOutcome
 from tests.conftest import make_settings
 from tests.jobs.api_helpers import make_graph, worker_for
+from tests.jobs.campaign_helpers import upload_campaigns
 
 pytestmark = [pytest.mark.anyio, pytest.mark.slow]
 
@@ -45,9 +46,18 @@ EXPENSIVE: dict[str, dict[str, Any]] = {
     "link_evaluation": {"negatives_per_positive": 100, "max_positives": None, "k": 1_000_000,
                         "negatives": "two_hop"},
     "recommendations": {"limit": 1000, "explain": 10},
+    "project_events": {"projection": "newman", "max_event_size": 0, "backbone": "sdsm", "alpha": 0.999},
     "referral_asks": {"adopters": ALL[:1000], "per_adopter": 1000,
                       "probability": {"scheme": "uniform", "p": 0.05}},
+    "odd_neighbourhoods": {"top": 1000, "local_outlier": True, "min_contacts": 1},
+    "dense_groups": {"groups": 50, "min_size": 2, "weighting": "uniform"},
+    # DrL at this size runs in a child process, which the cancellation ends.
+    "layout": {"method": "drl"},
+    # These two learn from the graph's past campaigns (CAMPAIGNS, uploaded first).
+    "learn_probabilities": {"folds": 20},
+    "backtest": {"holdout": "each", "simulations": 100_000, "folds": 20},
 }
+CAMPAIGNS = 20  # simulated past campaigns uploaded for the kinds that learn from them
 
 
 def _csv() -> str:
@@ -81,7 +91,15 @@ def test_every_kind_has_a_row() -> None:
 @pytest.mark.parametrize("case", list(EXPENSIVE))
 async def test_cancel_takes_effect_within_two_seconds(client, case: str) -> None:  # type: ignore[no-untyped-def]
     kind = case.split(":")[0]
-    gid = await make_graph(client, _csv())
+    gid = await make_graph(client, _csv() if kind != "project_events" else None)
+    if kind == "project_events":  # an event table: the graph's edges as the events' rows
+        r = await client.post(f"/v1/graphs/{gid}/versions", params={"part": "events", "single_events": "skip"},
+                              content=_csv().replace("source,target", "person,event"),
+                              headers={"Content-Type": "text/csv"})
+        assert r.status_code == 201, r.text
+    if kind in ("learn_probabilities", "backtest"):
+        lines = _csv().splitlines()[1:]
+        await upload_campaigns(client, gid, [(a, b) for a, b in (x.split(",") for x in lines)], CAMPAIGNS, p=0.05)
     r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": kind, "params": EXPENSIVE[case]})
     assert r.status_code == 202, r.text
     job_id = r.json()["id"]

@@ -44,17 +44,15 @@ References
 from __future__ import annotations
 
 import math
-import os
 import time
 from collections.abc import Callable, Sequence
-from concurrent.futures import ThreadPoolExecutor
 from typing import NamedTuple
 
-import numba
 import numpy as np
 from numba import njit
 from numpy.typing import NDArray
 
+from .._chunks import map_ordered, split_range, thread_count
 from .._rng import GAMMA, LO32, M1, M2, S11, S27, S30, S31, S32, TWO_M53, mix64, prefetch
 from ._kernel_graph import SKIP_MAX_P, SKIP_MIN_DEGREE, KernelGraph, kernel_graph, prepare
 
@@ -443,20 +441,11 @@ def run_one(kg: KernelGraph, seeds: NDArray[np.int32], key: int, horizon: int) -
 
 # ------------------------------------------------------------ Python drivers
 
-_POOLS: dict[int, ThreadPoolExecutor] = {}
 _PILOT_RUNS = 16
 _PARALLEL_MIN_SECONDS = 0.003
-
-
-def _pool() -> ThreadPoolExecutor:
-    # One pool per process: a pool inherited through fork has no live threads.
-    pid = os.getpid()
-    pool = _POOLS.get(pid)
-    if pool is None:
-        _POOLS.clear()
-        pool = _POOLS[pid] = ThreadPoolExecutor(max_workers=max(1, os.cpu_count() or 1),
-                                                thread_name_prefix="bellwether-diffusion")
-    return pool
+# Batches of at least this many pilots' worth of runs per thread are split without a
+# pilot: the serial pilot would hold up the other threads for 1/_PILOT_SHARE of the work.
+_PILOT_SHARE = 16
 
 
 def simulate(
@@ -491,33 +480,30 @@ def split_runs(
 ) -> ChunkResult:
     """Runs ``run0 .. run0 + nruns - 1`` of ``chunk`` (a ``run_chunk``), merged.
 
-    A serial pilot of a few runs measures the cost; when the rest would take
-    more than a few milliseconds it is split into contiguous chunks run in
-    threads (the kernels release the GIL). The merged result is identical
+    A small batch first runs a serial pilot of a few runs to measure the cost (a
+    large one is split at once); when the rest would take more than a few
+    milliseconds it is split into one contiguous range per
+    thread (``threads``, default :func:`.._chunks.thread_count`), run at once
+    (the kernels release the GIL). The merged result is identical
     whatever the split, because each run's numbers depend only on its index
     and all accumulators are integers. The world kernels use the same split.
     """
-    pilot = min(nruns, _PILOT_RUNS)
-    t0 = time.perf_counter()
-    parts = [chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
-    elapsed = time.perf_counter() - t0
+    nthreads = thread_count(threads)
+    if nthreads == 1 or nruns >= _PILOT_RUNS * _PILOT_SHARE * nthreads:
+        pilot, parts, elapsed = 0, [], math.inf  # a large batch: split it all at once
+    else:
+        pilot = min(nruns, _PILOT_RUNS)
+        t0 = time.perf_counter()
+        parts = [chunk(kg, seeds, key, run0, pilot, horizon, weights, track_nodes=track_nodes)]
+        elapsed = time.perf_counter() - t0
     rest = nruns - pilot
     if rest:
-        nthreads = threads if threads is not None else numba.get_num_threads()
-        nthreads = max(1, min(nthreads, rest))
-        if nthreads == 1 or elapsed / pilot * rest < _PARALLEL_MIN_SECONDS:
-            bounds = [run0 + pilot, run0 + nruns]
-        else:
-            bounds = np.linspace(run0 + pilot, run0 + nruns, nthreads + 1).astype(np.int64).tolist()
-        jobs = [(int(a), int(b - a)) for a, b in zip(bounds[:-1], bounds[1:]) if b > a]
-        if len(jobs) == 1:
-            parts.append(chunk(kg, seeds, key, jobs[0][0], jobs[0][1], horizon, weights,
-                               track_nodes=track_nodes))
-        else:
-            pool = _pool()
-            futures = [pool.submit(chunk, kg, seeds, key, a, c, horizon, weights,
-                                   track_nodes=track_nodes) for a, c in jobs]
-            parts.extend(f.result() for f in futures)
+        if elapsed / max(pilot, 1) * rest < _PARALLEL_MIN_SECONDS:
+            nthreads = 1
+        jobs = split_range(run0 + pilot, rest, nthreads)
+        parts.extend(map_ordered(
+            lambda a, c: chunk(kg, seeds, key, a, c, horizon, weights, track_nodes=track_nodes),
+            jobs))
     return merge(parts)
 
 

@@ -195,6 +195,7 @@ def estimate_spread(
     rounds: int | None = None,
     random_seed: int = 0,
     weights: NDArray[np.float64] | None = None,
+    threads: int | None = None,
 ) -> SpreadEstimate:
     """Monte Carlo estimate of the expected spread sigma(seeds) under ``dg.model``.
 
@@ -207,6 +208,8 @@ def estimate_spread(
     random_seed : seeds stream :func:`stream_key` ``(random_seed)``.
     weights : optional non-negative value per node; the spread is then the
         summed value of the active nodes (a target audience) instead of their number.
+    threads : most threads to run on (default: every core the process may use); the
+        estimate is the same for any number.
 
     Returns
     -------
@@ -249,7 +252,8 @@ def estimate_spread(
     nruns = _check_count(runs, "runs", minimum=1)
     horizon = _check_rounds(rounds)
     w = _check_weights(dg, weights)
-    res = K.simulate(kg, s, stream_key(random_seed), 0, nruns, horizon, w, track_nodes=False)
+    res = K.simulate(kg, s, stream_key(random_seed), 0, nruns, horizon, w, track_nodes=False,
+                     threads=threads)
     mean, var = K.mean_var(res.weighted)
     return SpreadEstimate(mean, math.sqrt(var / nruns), nruns)
 

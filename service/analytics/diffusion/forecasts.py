@@ -25,13 +25,12 @@ from dataclasses import dataclass
 from statistics import NormalDist
 from typing import NamedTuple
 
-import numba
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from . import _kernels as K
 from . import _world_kernels as W
-from .._chunks import ChunkSizer, check_memory
+from .._chunks import ChunkSizer, check_memory, thread_count
 from .cascades import (
     _check_count,
     _check_rounds,
@@ -127,6 +126,8 @@ class ForecastResult:
     #: order. Campaign ``i`` is the same world for every set, so two sets compare pairwise on
     #: their first common campaigns (:func:`service.analytics.diffusion.paired.paired_interval`).
     per_run: NDArray[np.float64] | None = None
+    #: Threads the simulations ran on (the figures are the same for any number).
+    threads: int = 1
 
 
 def forecast(
@@ -146,6 +147,7 @@ def forecast(
     top_nodes: int = 20,
     include_seeds: bool = False,
     progress: Progress | None = None,
+    threads: int | None = None,
 ) -> dict[str, ForecastResult]:
     """Forecast the reach of each named seed set, simulating until precise enough.
 
@@ -177,6 +179,9 @@ def forecast(
     include_seeds : whether the seeds (reached with probability 1) may be listed.
     progress : called as ``progress(fraction, message)`` after every batch; it may
         raise :class:`~service.analytics.errors.Cancelled`, which propagates.
+    threads : most threads to simulate on (default: every core the process may use).
+        Simulation ``i`` depends only on ``(random_seed, i)`` and the parts are merged
+        in index order, so every figure is bit-identical for any number of threads.
 
     Returns
     -------
@@ -252,29 +257,31 @@ def forecast(
     codes, labels = _check_segments(dg, segments, segment_labels)
     ntop = _check_count(top_nodes, "top_nodes", minimum=0)
     z = NormalDist().inv_cdf(0.5 + confidence / 2.0)
+    nthreads = thread_count(threads)
 
     out: dict[str, ForecastResult] = {}
     for j, (name, seeds) in enumerate(sets.items()):
         key = world_key(key_seed)
         res, reason = _run_until(kg, seeds, key, cap, first, z, precision, relative_precision,
-                                 horizon, w, progress, j / len(sets), 1.0 / len(sets), name)
+                                 horizon, w, progress, j / len(sets), 1.0 / len(sets), name,
+                                 nthreads)
         out[name] = _summarise(res, seeds, reason, z, confidence, rounds, key_seed, key,
-                               w.size > 0, codes, labels, ntop, include_seeds)
+                               w.size > 0, codes, labels, ntop, include_seeds, nthreads)
     return out
 
 
 def _run_until(kg: K.KernelGraph, seeds: NDArray[np.int32], key: int, cap: int, first: int,
                z: float, precision: float | None, relative: float | None, horizon: int,
                w: NDArray[np.float64], progress: Progress | None, base: float, share: float,
-               name: str) -> tuple[K.ChunkResult, str]:
+               name: str, threads: int) -> tuple[K.ChunkResult, str]:
     """Simulate in batches until the stopping rule holds or ``cap`` runs are done."""
     res: K.ChunkResult | None = None
     done, batch = 0, first
     sizer = ChunkSizer(first=min(first, 64))
     while True:
         # Every run kept costs its per-run arrays (reach, weighted reach, depth) twice
-        # while chunks are merged.
-        check_memory(2 * RUN_BYTES * (done + batch) + 8 * kg.n * (2 + numba.get_num_threads()),
+        # while chunks are merged; each thread holds per-node counts and scratch.
+        check_memory(2 * RUN_BYTES * (done + batch) + 8 * kg.n * (2 + 2 * threads),
                      what=f"{done + batch:,} simulations", relax="lower simulations")
         end = done + batch
         parts = [] if res is None else [res]
@@ -283,7 +290,7 @@ def _run_until(kg: K.KernelGraph, seeds: NDArray[np.int32], key: int, cap: int, 
             # depend only on their index, so the merged result is the same.
             count = sizer.next(end - done)
             t0 = time.perf_counter()
-            part = W.simulate(kg, seeds, key, done, count, horizon, w)
+            part = W.simulate(kg, seeds, key, done, count, horizon, w, threads=threads)
             sizer.took(count, time.perf_counter() - t0)
             parts.append(part)
             done += count
@@ -310,7 +317,7 @@ def _run_until(kg: K.KernelGraph, seeds: NDArray[np.int32], key: int, cap: int, 
 def _summarise(res: K.ChunkResult, seeds: NDArray[np.int32], reason: str, z: float,
                confidence: float, rounds: int | None, random_seed: int, key: int,
                weighted: bool, codes: NDArray[np.int32], labels: tuple[str, ...], ntop: int,
-               include_seeds: bool) -> ForecastResult:
+               include_seeds: bool, threads: int) -> ForecastResult:
     nsim = int(res.reach.shape[0])
     reach = _interval(res.reach, z)
     # Cumulative reach after each round: sums from the new-activation counts,
@@ -361,6 +368,7 @@ def _summarise(res: K.ChunkResult, seeds: NDArray[np.int32], reason: str, z: flo
         stream_key=key,
         outcome_histogram=outcome_histogram(res.reach),
         per_run=np.asarray(res.weighted if weighted else res.reach, dtype=np.float64),
+        threads=threads,
     )
 
 

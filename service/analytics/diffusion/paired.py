@@ -32,7 +32,7 @@ from scipy import stats
 
 from . import _kernels as K
 from . import _world_kernels as W
-from .._chunks import ChunkSizer, check_memory
+from .._chunks import ChunkSizer, check_memory, thread_count
 from .cascades import (_check_count, _check_rounds, _check_seed, _check_seeds, _check_weights,
                         _is_number, stream_key)
 from ..errors import InvalidParameter
@@ -125,6 +125,7 @@ def compare_reach(
     random_seed: int = 0,
     weights: NDArray[np.float64] | None = None,
     progress: Progress | None = None,
+    threads: int | None = None,
 ) -> PairedComparison:
     """Simulate every set on the same worlds until each paired difference is precise.
 
@@ -145,6 +146,8 @@ def compare_reach(
     random_seed : the seed of the worlds.
     weights : optional value per node; reach then counts audience value.
     progress : ``progress(fraction, message)`` after every batch; may raise ``Cancelled``.
+    threads : most threads to run on (default: every core the process may use); the
+        result is bit-identical for any number (worlds are split by index, merged in order).
 
     Returns
     -------
@@ -189,12 +192,13 @@ def compare_reach(
     seed = _check_seed(random_seed)
     w = _check_weights(dg, weights)
     key = world_key(seed)
+    nthreads = thread_count(threads)
     parts: dict[str, list[NDArray[np.float64]]] = {name: [] for name in sets}
     done, batch = 0, first
     sizer = ChunkSizer(first=min(first, 64))
     while True:
         # Each list's outcome per campaign is kept (8 bytes a campaign and list).
-        check_memory(8 * len(sets) * (done + batch) * 2 + 8 * kg.n * 4,
+        check_memory(8 * len(sets) * (done + batch) * 2 + 8 * kg.n * (2 + 2 * nthreads),
                      what=f"{done + batch:,} simulated campaigns for {len(sets)} lists",
                      relax="lower forecast_max_runs")
         for j, (name, s) in enumerate(sets.items()):
@@ -204,7 +208,8 @@ def compare_reach(
                 # so the chunks give the campaigns one call would.
                 count = sizer.next(done + batch - start)
                 t0 = time.perf_counter()
-                res = W.simulate(kg, s, key, start, count, horizon, w, track_nodes=False)
+                res = W.simulate(kg, s, key, start, count, horizon, w, track_nodes=False,
+                                 threads=nthreads)
                 sizer.took(count, time.perf_counter() - t0)
                 parts[name].append(res.weighted.astype(np.float64))
                 start += count

@@ -45,6 +45,9 @@ EXACT_COUNT_LIMIT = 50
 class EmptyBackbone(EmptyGraph):
     """No tie is significant at this level, so the backbone would be empty."""
 
+    slug = "empty-backbone"
+    title = "Backbone keeps no tie"
+
 
 @dataclass(frozen=True, eq=False)
 class Backbone:

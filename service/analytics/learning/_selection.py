@@ -5,7 +5,7 @@ Private to :mod:`service.analytics.learning.probabilities`, which re-exports its
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -92,6 +92,7 @@ def learn_probabilities(
     random_seed: int = 0,
     tol: float = 1e-7,
     max_iter: int = 300,
+    progress: Callable[[float, str], None] | None = None,
 ) -> LearnedModel:
     """Learn IC probabilities from past campaigns; keep the model that predicts best.
 
@@ -116,6 +117,8 @@ def learn_probabilities(
     folds : number of folds (>= 2; at most the number of campaigns).
     random_seed : seeds the trivalency draw.
     tol, max_iter : EM stopping rule.
+    progress : called as ``progress(fraction, message)`` before each fit (it may
+        raise to stop, e.g. on cancellation).
 
     Returns
     -------
@@ -157,7 +160,13 @@ def learn_probabilities(
         raise InvalidParameter(f"folds must be a whole number >= 2, got {folds!r}", field="folds")
     k = min(folds, len(cs))
 
+    fits_to_run = k * len(chosen) + 3 if k >= 2 else 3
+    fits_done = [0]
+
     def fit(data: Episodes, mth: str) -> tuple[EmFit, tuple[ParameterEstimate, ...]]:
+        if progress is not None:
+            progress(min(fits_done[0] / fits_to_run, 1.0), f"fitting {_WORDS[mth]}")
+        fits_done[0] += 1
         return _fit(data, a, mth, segments=segments, features=features,
                     prior_strength=prior_strength, tol=tol, max_iter=max_iter)
 

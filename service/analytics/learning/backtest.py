@@ -27,7 +27,7 @@ from numpy.typing import ArrayLike, NDArray
 
 from ._episodes import Campaign, check_campaigns
 from ..errors import InvalidParameter
-from ..diffusion.forecasts import forecast
+from ..diffusion.forecasts import Progress, forecast
 from ..graph import GraphArrays, arcs, edge_probabilities
 from .probabilities import LearnedModel, learn_probabilities, learned_diffusion_graph
 from ..ties.evaluation import auc
@@ -177,6 +177,7 @@ def backtest(
     simulations: int = 1000,
     random_seed: int = 0,
     folds: int = 5,
+    progress: Progress | None = None,
 ) -> BacktestResult:
     """Hold campaigns out, learn on the rest, forecast them and score every scheme.
 
@@ -193,6 +194,8 @@ def backtest(
         on the training campaigns.
     simulations : forecast simulations per campaign and scheme.
     random_seed : seeds the forecasts and the trivalency draw.
+    progress : called as ``progress(fraction, message)`` between and during the
+        forecasts (it may raise to stop the backtest, e.g. on cancellation).
 
     Returns
     -------
@@ -249,29 +252,49 @@ def backtest(
     tri = edge_probabilities(a, "trivalency", random_seed=random_seed)
     scores: list[CampaignScore] = []
     models: list[LearnedModel] = []
+    total = sum(len(test) for _, test in splits) * len(BACKTEST_SCHEMES)
     for train, test in splits:
         model = learn_probabilities(g, [cs[j] for j in train], methods=methods,
                                     segments=segments, features=features,
                                     feature_names=feature_names, folds=folds,
-                                    random_seed=random_seed)
+                                    random_seed=random_seed,
+                                    progress=_at(progress, len(scores) / total))
         models.append(model)
         uni = model.fits["uniform"] if uniform_p is None else np.full(wc.shape, float(uniform_p))
         probs = {"learned": model.arc_prob, "weighted_cascade": wc, "uniform": uni,
                  "trivalency": tri}
         for j in test:
             for scheme in BACKTEST_SCHEMES:
-                scores.append(_score(g, cs[j], scheme, probs[scheme], simulations, random_seed))
+                step = None
+                if progress is not None:
+                    done, report = len(scores), progress
+
+                    def step(f: float, msg: str, done: int = done, report: Progress = report) -> None:
+                        report((done + f) / total, msg)
+                scores.append(_score(g, cs[j], scheme, probs[scheme], simulations, random_seed, step))
     summary = {s: _summarise([x for x in scores if x.scheme == s]) for s in BACKTEST_SCHEMES}
     return BacktestResult(tuple(scores), summary, backtest_verdict(summary), tuple(models))
 
 
+def _at(progress: Progress | None, fraction: float) -> Progress | None:
+    """``progress`` held at ``fraction`` (for the learning step of a split)."""
+    if progress is None:
+        return None
+    report = progress
+
+    def step(_f: float, msg: str) -> None:
+        report(fraction, msg)
+    return step
+
+
 def _score(g: GraphArrays, c: Campaign, scheme: str, arc_prob: NDArray[np.float64],
-           simulations: int, random_seed: int) -> CampaignScore:
+           simulations: int, random_seed: int, progress: Progress | None = None) -> CampaignScore:
     seeds = c.node[c.round == 0]
     dg = learned_diffusion_graph(g, arc_prob)
     horizon = max(1, int(c.horizon if c.horizon is not None else c.round.max()))
     res = forecast(dg, {"campaign": seeds}, simulations=simulations, rounds=horizon,
-                   random_seed=random_seed, top_nodes=g.n, include_seeds=True)["campaign"]
+                   random_seed=random_seed, top_nodes=g.n, include_seeds=True,
+                   progress=progress)["campaign"]
     prob = np.zeros(g.n)
     for nr in res.top_nodes:
         prob[nr.node] = nr.probability

@@ -13,6 +13,12 @@ pointers and counts. Sampling with lanes (large graphs) adds per node
 2 bytes of visit marks (and for IC 16 bytes of node records), and reserves 4 bytes per node
 per lane of queue space, of which only the pages the largest sets reach are
 ever committed.
+
+Threads. A sampler splits each batch of sets into one contiguous index range per
+thread, sampled into per-thread buffers and appended to the store in index order
+(:mod:`._rr_parts`): the store is bit-identical whatever the thread count and is
+never held twice. Coverage counts (:meth:`RRSampler.count_hits`) are split the
+same way and added.
 """
 
 from __future__ import annotations
@@ -26,7 +32,8 @@ from numpy.typing import NDArray
 
 from . import _rr_kernels as K
 from . import _rr_lanes
-from .._chunks import ChunkSizer, check_memory
+from . import _rr_parts as P
+from .._chunks import ChunkSizer, check_memory, map_ordered, split_range, thread_count
 from ..errors import InvalidParameter
 from ..graph import DiffusionGraph
 
@@ -37,10 +44,6 @@ __all__ = [
 ]
 
 BYTES_PER_ENTRY = 8  # int32 node in the store + int32 set id in the inverted index
-# Visit marks are set numbers + 1. int32 marks halve the mark array (on com-DBLP it
-# then fits in a core's L2 cache: about 15% faster sampling, measured); a collection
-# or count that would pass this bound switches to int64 marks.
-_MARK32_LIMIT = 2**31 - 2
 
 
 # Graphs whose in-arcs and node records take more than this many bytes are sampled
@@ -50,13 +53,6 @@ _MARK32_LIMIT = 2**31 - 2
 # 2.18 on com-DBLP (9.2 MiB). 1 MiB is the per-core L2 cache of the 2-core machine these
 # were measured on: a graph that fits there gains nothing from lanes (ca-GrQc above).
 LANES_MIN_BYTES = 1 << 20
-
-
-def _marks(n: int, last: int) -> NDArray[np.int32] | NDArray[np.int64]:
-    """A zeroed mark array able to hold marks up to ``last + 1``."""
-    if last < _MARK32_LIMIT:
-        return np.zeros(n, dtype=np.int32)
-    return np.zeros(n, dtype=np.int64)
 
 
 Progress = Callable[[float, str], None]
@@ -72,8 +68,12 @@ class RRSampler:
         *,
         weights: NDArray[np.float64] | None = None,
         rounds: int | None = None,
+        threads: int | None = None,
     ) -> None:
         self.n = int(dg.n)
+        self.threads = thread_count(threads)
+        # Per-thread buffers, used by its collections in turn (never two at once).
+        self.scratch: list[P.Scratch] = []
         self.model = dg.model
         self.indptr = np.ascontiguousarray(dg.in_indptr, dtype=np.int64)
         self.indices = np.ascontiguousarray(dg.in_indices, dtype=np.int32)
@@ -90,7 +90,7 @@ class RRSampler:
         if self.lanes and self.model == "ic":
             self.rec, self.recf = _rr_lanes.lane_records(self.indptr, self.mode, self.aux)
             max_in = int(np.diff(self.indptr).max()) if self.n else 0
-            self.pend = np.empty(_rr_lanes.LANES * (max_in + 1), dtype=np.int64)
+            self.pend_size = _rr_lanes.LANES * (max_in + 1)
         if weights is None:
             self.total_weight = float(self.n)
             self.accept = np.empty(0, dtype=np.float64)
@@ -105,11 +105,22 @@ class RRSampler:
     def count_hits(
         self, is_seed: NDArray[np.bool_], key: np.uint64, first: int, count: int
     ) -> tuple[int, int]:
-        """Sets ``first..first+count-1`` that contain a seed (not stored)."""
-        stamp = _marks(self.n, first + count)
+        """Sets ``first..first+count-1`` that contain a seed (not stored); the range is
+        split over the sampler's threads and the counts added."""
         fn: Any = K.hits_ic if self.model == "ic" else K.hits_lt  # numba dispatchers are untyped
-        hits, examined = fn(*self._args(), key, first, count, self.horizon, is_seed, stamp)
-        return int(hits), int(examined)
+
+        def part(a: int, c: int) -> tuple[int, int]:
+            stamp = P.marks(self.n, a + c)
+            hits, examined = fn(*self._args(), key, a, c, self.horizon, is_seed, stamp)
+            return int(hits), int(examined)
+
+        parts = split_range(first, count, self._parts(count))
+        out = map_ordered(part, parts)
+        return sum(h for h, _ in out), sum(e for _, e in out)
+
+    def _parts(self, count: int) -> int:
+        """How many threads a batch of ``count`` sets is split over."""
+        return P.parts_for(self.threads, count)
 
 
 class RRCollection:
@@ -125,11 +136,7 @@ class RRCollection:
         n = sampler.n
         self._nodes = np.empty(max(4 * n, 1 << 16), dtype=np.int32)
         self._ends = np.empty(1 << 12, dtype=np.int64)
-        self._stamp: NDArray[np.int32] | NDArray[np.int64] = _marks(n, 0)
-        if sampler.lanes:
-            self._vis = np.zeros(n, dtype=np.uint16)
-            # Pages are only committed as lanes write to them (see sample_ic_lanes).
-            self._queues = np.empty(_rr_lanes.LANES * max(n, 1), dtype=np.int32)
+        self._sizer = ChunkSizer(first=256, most=1 << 22)
         self.count = 0
         self.entries = 0
         self.examined = 0
@@ -164,7 +171,7 @@ class RRCollection:
         fn = K.sample_ic if self.sampler.model == "ic" else K.sample_lt
         n = self.sampler.n
         start_count = self.count
-        sizer = ChunkSizer(first=256, most=1 << 22)
+        sizer = self._sizer  # kept across calls: IMM's estimation rounds need no new ramp-up
         while self.count < target:
             want = sizer.next(target - self.count)
             if self.count >= 256:  # the mean set size is known: check the whole target's store
@@ -172,20 +179,22 @@ class RRCollection:
                 check_memory((self.entries + mean_now * (target - self.count)) * BYTES_PER_ENTRY
                              + 9 * target + 16 * n, what=f"{target:,} RR sets (about {mean_now:,.0f} "
                              "people each)", relax=self.relax)
-            if self._stamp.dtype == np.int32 and self.count + want >= _MARK32_LIMIT:
-                self._stamp = self._stamp.astype(np.int64)
             if self._ends.shape[0] < self.count + want:
                 # Set ends are 8 bytes per set: size them for the whole target at once.
-                self._ends = _grow(self._ends, target)
+                self._ends = P.grow(self._ends, target)
             mean = self.entries / self.count if self.count else 8.0
             need = self.entries + int(mean * want * 1.25) + n + 16
             if self._nodes.shape[0] < need:
                 # Size for the whole target once the mean set size is known,
                 # so a long run copies the store only a few times.
                 whole = self.entries + int(mean * (target - self.count) * 1.1) + n + 16
-                self._nodes = _grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
+                self._nodes = P.grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
             t0 = time.perf_counter()
-            done, pos, examined = self._sample(fn, want)
+            parts = self.sampler._parts(want)
+            if parts > 1:
+                done, pos, examined = self._sample_parallel(fn, want, parts)
+            else:
+                done, pos, examined = self._sample(fn, want)
             dt = time.perf_counter() - t0
             self.seconds += dt
             self.count += int(done)
@@ -194,39 +203,49 @@ class RRCollection:
             self._index = None
             sizer.took(int(done), dt)
             if done < want:  # the store ran out of room: grow it before the next call
-                self._nodes = _grow(self._nodes, self._nodes.shape[0] + n + 16)
+                self._nodes = P.grow(self._nodes, self._nodes.shape[0] + n + 16)
             if progress is not None:
                 frac = (self.count - start_count) / max(target - start_count, 1)
                 progress(span[0] + (span[1] - span[0]) * frac, message)
 
     def _sample(self, fn: Callable[..., tuple[int, int, int]], want: int) -> tuple[int, int, int]:
-        """Sets ``count .. count+want-1`` into the store, with lanes when the sampler uses them."""
-        smp = self.sampler
-        out_ends = self._ends[self.count:]
-        if smp.lanes and smp.model == "ic":
-            done, pos, examined = _rr_lanes.sample_ic_lanes(
-                smp.rec, smp.recf, smp.indices, smp.arc, smp.accept, smp.alias, self.key,
-                self.count, want, smp.horizon, self._nodes, self.entries, out_ends,
-                self._vis, self._queues, smp.pend,
-            )
-            return int(done), int(pos), int(examined)
-        if smp.lanes:
-            walk: Any = _rr_lanes.sample_lt_lanes  # numba dispatchers are untyped
-            done, pos, examined = walk(
-                *smp._args(), self.key, self.count, want, smp.horizon, self._nodes,
-                self.entries, out_ends, self._vis, self._queues,
-            )
-            return int(done), int(pos), int(examined)
-        done, pos, examined = fn(
-            *smp._args(), self.key, self.count, want, smp.horizon,
-            self._nodes, self.entries, out_ends, self._stamp,
-        )
-        return int(done), int(pos), int(examined)
+        """Sets ``count .. count+want-1`` into the store, in this thread."""
+        sc = P.take_scratch(self.sampler, self, 0, self.count + want)
+        return P.call_kernel(fn, self.sampler, sc, self.key, self.count, want, self._nodes,
+                             self.entries, self._ends[self.count:])
+
+    def _sample_parallel(self, fn: Callable[..., tuple[int, int, int]], want: int,
+                         parts: int) -> tuple[int, int, int]:
+        """Sets ``count .. count+want-1`` over ``parts`` threads (:mod:`._rr_parts`),
+        appended to the store in index order (always all ``want``)."""
+        mean = self.entries / self.count if self.count else 8.0
+        results = P.sample_parts(fn, self.sampler, self, self.key, self.count, want, parts, mean)
+        size = sum(len(nodes) for nodes, _, _ in results)
+        if self._nodes.shape[0] < self.entries + size:
+            self._nodes = P.grow(self._nodes, self.entries + size)
+        pos, done, examined = self.entries, 0, 0
+        for nodes, ends, ex in results:
+            self._nodes[pos: pos + nodes.shape[0]] = nodes
+            self._ends[self.count + done: self.count + done + ends.shape[0]] = ends + pos
+            pos += nodes.shape[0]
+            done += ends.shape[0]
+            examined += ex
+        return done, pos, examined
 
     def index(self) -> tuple[NDArray[np.int64], NDArray[np.int32], NDArray[np.int64]]:
-        """(node -> sets indptr, set ids, per-node set counts), cached until the next extend."""
+        """(node -> sets indptr, set ids, per-node set counts), cached until the next extend.
+
+        Built over the sampler's threads when the sets hold enough entries
+        (:func:`._rr_parts.index_parallel`, the same index); each part costs 8 bytes per
+        person, so the parts together take at most half the bytes of the set ids.
+        """
         if self._index is None:
-            self._index = K.inverted_index(self.nodes, self.offsets, self.sampler.n)
+            n = self.sampler.n
+            parts = min(P.parts_for(self.sampler.threads, self.count), self.entries // max(4 * n, 1))
+            if parts <= 1:
+                self._index = K.inverted_index(self.nodes, self.offsets, n)
+            else:
+                self._index = P.index_parallel(self.nodes, self.offsets, n, self.count, parts)
         return self._index
 
     def hits(self, seeds: NDArray[np.int64]) -> int:
@@ -240,7 +259,3 @@ class RRCollection:
         return self.sampler.total_weight / max(self.count, 1)
 
 
-def _grow(a: NDArray, need: int) -> NDArray:  # type: ignore[type-arg]
-    out = np.empty(max(need, int(a.shape[0] * 1.6)), dtype=a.dtype)
-    out[: a.shape[0]] = a
-    return out

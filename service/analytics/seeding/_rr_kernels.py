@@ -58,6 +58,8 @@ __all__ = [
     "hits_ic",
     "hits_lt",
     "inverted_index",
+    "count_members",
+    "fill_members",
     "cover_node",
     "covered_by",
     "best_candidate",
@@ -97,7 +99,7 @@ def stream_key(random_seed: int, tag: int) -> np.uint64:
     return np.uint64(z)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def prepare_ic(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     """Per-node mode, per-node parameter (1 / log(1 - p) for skipping rows, the
     32-bit coin threshold for block rows) and 53-bit per-arc thresholds."""
@@ -142,7 +144,7 @@ def prepare_ic(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     return mode, param, thr
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def prepare_lt(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     """Per-node mode, common weight for equal rows, and cumulative weights per row."""
     n = indptr.shape[0] - 1
@@ -169,7 +171,7 @@ def prepare_lt(indptr: Any, prob: Any) -> Any:  # pragma: no cover - compiled
     return mode, w, cum
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def build_alias(weights: Any) -> Any:  # pragma: no cover - compiled
     """Walker's alias table (Vose's construction) for drawing i with P ~ weights[i]."""
     n = weights.shape[0]
@@ -222,7 +224,7 @@ def _root(state: Any, n: Any, accept: Any, alias: Any) -> Any:
     return state, np.int64(alias[i])
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def sample_ic(
     indptr: Any, indices: Any, mode: Any, param: Any, thr: Any, accept: Any, alias: Any,
     key: Any, first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any,
@@ -341,7 +343,7 @@ def _lt_pick(state: Any, v: Any, indptr: Any, mode: Any, w: Any, cum: Any) -> An
     return state, lo
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def sample_lt(
     indptr: Any, indices: Any, mode: Any, w: Any, cum: Any, accept: Any, alias: Any, key: Any,
     first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any, stamp: Any,
@@ -383,7 +385,7 @@ def sample_lt(
     return done, pos, examined
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def hits_ic(
     indptr: Any, indices: Any, mode: Any, param: Any, thr: Any, accept: Any, alias: Any,
     key: Any, first: Any, count: Any, horizon: Any, is_seed: Any, stamp: Any,
@@ -474,7 +476,7 @@ def hits_ic(
     return hits, examined
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def hits_lt(
     indptr: Any, indices: Any, mode: Any, w: Any, cum: Any, accept: Any, alias: Any, key: Any,
     first: Any, count: Any, horizon: Any, is_seed: Any, stamp: Any,
@@ -506,7 +508,7 @@ def hits_lt(
     return hits, examined
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def inverted_index(nodes: Any, offsets: Any, n: Any) -> Any:  # pragma: no cover - compiled
     """Node -> sets CSR: row v lists (ascending) the sets that contain v.
 
@@ -530,7 +532,26 @@ def inverted_index(nodes: Any, offsets: Any, n: Any) -> Any:  # pragma: no cover
     return indptr, sets, counts
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
+def count_members(nodes: Any, offsets: Any, s0: Any, s1: Any, counts: Any) -> None:  # pragma: no cover
+    """Add to ``counts[v]`` the sets ``s0 .. s1-1`` that contain v (one part of
+    :func:`inverted_index`, run by one thread)."""
+    for i in range(offsets[s0], offsets[s1]):
+        counts[nodes[i]] += 1
+
+
+@njit(cache=True, nogil=True)
+def fill_members(nodes: Any, offsets: Any, s0: Any, s1: Any, fill: Any, sets: Any) -> None:  # pragma: no cover
+    """Write the ids of sets ``s0 .. s1-1`` into their nodes' rows from ``fill[v]`` on
+    (one part of :func:`inverted_index`: each thread fills its own slots of every row)."""
+    for s in range(s0, s1):
+        for i in range(offsets[s], offsets[s + 1]):
+            v = nodes[i]
+            sets[fill[v]] = s
+            fill[v] += 1
+
+
+@njit(cache=True, nogil=True)
 def cover_node(
     v: Any, inv_indptr: Any, inv_sets: Any, offsets: Any, nodes: Any, covered: Any, counts: Any,
 ) -> Any:  # pragma: no cover
@@ -547,7 +568,7 @@ def cover_node(
     return newly
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def covered_by(nodes: Any, offsets: Any, is_seed: Any) -> Any:  # pragma: no cover - compiled
     """Number of stored sets that contain at least one seed."""
     nsets = offsets.shape[0] - 1
@@ -560,7 +581,7 @@ def covered_by(nodes: Any, offsets: Any, is_seed: Any) -> Any:  # pragma: no cov
     return hit
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def best_candidate(
     counts: Any, avail: Any, tiebreak: Any, costs: Any, ratio: Any, budget_left: Any,
 ) -> Any:  # pragma: no cover
@@ -594,7 +615,7 @@ def best_candidate(
     return best
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def capped_top_sum(
     order: Any, counts: Any, group: Any, caps_left: Any, k: Any,
 ) -> Any:  # pragma: no cover - compiled

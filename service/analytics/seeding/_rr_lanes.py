@@ -122,7 +122,7 @@ def _in_set_order(
     return done, p
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def sample_ic_lanes(
     rec: Any, recf: Any, indices: Any, thr: Any, accept: Any, alias: Any, key: Any, first: Any,
     count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any, vis: Any, queues: Any,
@@ -141,7 +141,8 @@ def sample_ic_lanes(
     lower-numbered one is stored only if room for a whole set (n slots) remains
     after it, so set ``first`` is always stored; a set that cannot be stored is
     dropped with every later one, so the sets stored are always
-    ``first .. first+done-1``. Returns (done, new pos, in-arcs examined).
+    ``first .. first+done-1``. Returns (done, new pos, in-arcs examined for the sets
+    stored: the same count as :func:`._rr_kernels.sample_ic`, whatever was dropped).
     """
     n = rec.shape[0] // 2 - 1
     cap = out_nodes.shape[0]
@@ -158,8 +159,9 @@ def sample_ic_lanes(
     state = np.zeros(LANES, np.uint64)
     starts = np.empty(count, np.int64)
     lens = np.full(count, -1, np.int64)
+    exs = np.zeros(count, np.int64)  # in-arcs examined per set: dropped sets do not count
+    lane_ex = np.zeros(LANES, np.int64)
     pos0 = pos
-    examined = np.int64(0)
     started = 0
     finished = 0
     full = False
@@ -199,7 +201,7 @@ def sample_ic_lanes(
                     a = rec[2 * v]
                     b = rec[2 * v + 2]
                     d = b - a
-                    examined += d
+                    lane_ex[ln] += d
                     c = recf[2 * v + 1]
                     if c >= _REC_BLOCK:
                         s, live = K.block_coins(s, np.uint32(c - _REC_BLOCK), d)
@@ -237,6 +239,7 @@ def sample_ic_lanes(
             elif k == 0 and h >= t:  # store the finished set, start the next
                 j = set_of[ln]
                 if j >= 0:
+                    exs[j] = lane_ex[ln]
                     pos, drop_from = _store(queues, qb, t, vis, bit, set_of, j, out_nodes, pos,
                                             n, drop_from, starts, lens)
                     full = full or drop_from < count
@@ -251,6 +254,7 @@ def sample_ic_lanes(
                     s, r = K._root(K._set_state(key, first + j), n, accept, alias)
                     state[ln] = s
                     set_of[ln] = j
+                    lane_ex[ln] = 0
                     queues[qb] = r
                     vis[r] |= bit
                     head[ln] = 0
@@ -259,10 +263,10 @@ def sample_ic_lanes(
                     depth[ln] = 0
                     prefetch(rec, 2 * r)
     done, p = _in_set_order(out_nodes, pos0, pos, starts, lens, started, out_ends)
-    return done, p, examined
+    return done, p, exs[:done].sum()
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def sample_lt_lanes(
     indptr: Any, indices: Any, mode: Any, w: Any, cum: Any, accept: Any, alias: Any, key: Any,
     first: Any, count: Any, horizon: Any, out_nodes: Any, pos: Any, out_ends: Any, vis: Any,
@@ -290,8 +294,9 @@ def sample_lt_lanes(
     state = np.zeros(LANES, np.uint64)
     starts = np.empty(count, np.int64)
     lens = np.full(count, -1, np.int64)
+    exs = np.zeros(count, np.int64)  # in-arcs examined per set: dropped sets do not count
+    lane_ex = np.zeros(LANES, np.int64)
     pos0 = pos
-    examined = np.int64(0)
     started = 0
     finished = 0
     full = False
@@ -318,7 +323,7 @@ def sample_lt_lanes(
                             ended[ln] = True
                 else:  # (1) the arc the current node keeps, if any
                     v = cur[ln]
-                    examined += indptr[v + 1] - indptr[v]
+                    lane_ex[ln] += indptr[v + 1] - indptr[v]
                     s, e = K._lt_pick(state[ln], v, indptr, mode, w, cum)
                     state[ln] = s
                     if e < 0:
@@ -329,6 +334,7 @@ def sample_lt_lanes(
                 continue
             j = set_of[ln]
             if j >= 0:  # store the finished set
+                exs[j] = lane_ex[ln]
                 pos, drop_from = _store(queues, qb, tail[ln], vis, bit, set_of, j, out_nodes,
                                         pos, n, drop_from, starts, lens)
                 full = full or drop_from < count
@@ -343,6 +349,7 @@ def sample_lt_lanes(
                 s, r = K._root(K._set_state(key, first + j), n, accept, alias)
                 state[ln] = s
                 set_of[ln] = j
+                lane_ex[ln] = 0
                 queues[qb] = r
                 vis[r] |= bit
                 tail[ln] = 1
@@ -353,4 +360,4 @@ def sample_lt_lanes(
                 prefetch(indptr, r)
                 prefetch(w, r)
     done, p = _in_set_order(out_nodes, pos0, pos, starts, lens, started, out_ends)
-    return done, p, examined
+    return done, p, exs[:done].sum()

@@ -5,10 +5,14 @@ Each sampled path comes from a balanced bidirectional search (Borassi and
 Natale 2016): BFS on hops here, Dijkstra on arc lengths in
 :mod:`._weighted_sampling`.
 
-Private to ``service.analytics``. The random stream is a SplitMix64 state held
-in a one-element ``uint64`` array that the caller owns, so a run is reproducible
-from its seed, can be split into chunks (for progress reports) without
-changing the result, and never touches numpy's or numba's global generators.
+Private to ``service.analytics``. The random numbers are SplitMix64 streams, one
+per sample: sample ``i`` of a run with seed ``s`` draws from the stream started at
+``mix64(key ^ mix64((i + 1) * gamma))``, ``key`` a hash of ``s``. The caller owns a
+two-element ``uint64`` array ``[key, next sample index]`` (:func:`seed_state`), so a
+run is reproducible from its seed, can be split into chunks (for progress reports)
+or over threads (each part its own state starting at its first index, its own
+counts, added afterwards) without changing the result, and never touches numpy's or
+numba's global generators.
 """
 
 from __future__ import annotations
@@ -22,14 +26,24 @@ __all__ = [
     "rk_sample_unweighted",
     "vertex_diameter_bound",
     "seed_state",
+    "sample_stream",
     "bfs_distance_counts",
 ]
 
 
 
-def seed_state(seed: int) -> np.ndarray:
-    """A fresh SplitMix64 state for ``seed``."""
-    return np.array([np.uint64(int(seed) & 0xFFFFFFFFFFFFFFFF)], dtype=np.uint64)
+def seed_state(seed: int, first: int = 0) -> np.ndarray:
+    """The sampling state ``[key, next sample index]`` of ``seed``, at sample ``first``."""
+    z = (int(seed) * 0x9E3779B97F4A7C15 + 0x3C6EF372FE94F82B) & 0xFFFFFFFFFFFFFFFF
+    z = ((z ^ (z >> 30)) * 0xBF58476D1CE4E5B9) & 0xFFFFFFFFFFFFFFFF
+    z = ((z ^ (z >> 27)) * 0x94D049BB133111EB) & 0xFFFFFFFFFFFFFFFF
+    return np.array([z ^ (z >> 31), first], dtype=np.uint64)
+
+
+@njit(cache=True, inline="always")
+def sample_stream(state: np.ndarray, i: int, out: np.ndarray) -> None:
+    """Start ``out[0]`` at the stream of sample ``i`` of ``state``'s key."""
+    out[0] = mix64(state[0] ^ mix64(np.uint64(i + 1) * GAMMA))
 
 
 @njit(cache=True, inline="always")
@@ -110,7 +124,7 @@ def _walk_back(
             counts[v] += 1.0
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def rk_sample_unweighted(
     n: int,
     out_indptr: np.ndarray,
@@ -121,7 +135,8 @@ def rk_sample_unweighted(
     state: np.ndarray,
     counts: np.ndarray,
 ) -> None:
-    """Add ``r`` sampled shortest paths to ``counts`` (interior vertices only).
+    """Add ``r`` sampled shortest paths to ``counts`` (interior vertices only): samples
+    ``state[1] .. state[1] + r - 1`` of ``state``'s key, advancing ``state[1]``.
 
     Each sample draws an ordered pair ``s != t`` uniformly and a uniformly
     random shortest ``s``-``t`` path, found by a balanced bidirectional BFS
@@ -143,9 +158,13 @@ def rk_sample_unweighted(
     nxt = np.empty(n, dtype=np.int64)
     vis_f = np.empty(n, dtype=np.int64)
     vis_b = np.empty(n, dtype=np.int64)
-    for _ in range(r):
-        s = _below(state, n)
-        t = _below(state, n - 1)
+    first = int(state[1])
+    state[1] += np.uint64(r)
+    rng = np.empty(1, dtype=np.uint64)
+    for i in range(r):
+        sample_stream(state, first + i, rng)
+        s = _below(rng, n)
+        t = _below(rng, n - 1)
         if t >= s:
             t += 1
         df[s] = 0
@@ -189,7 +208,7 @@ def rk_sample_unweighted(
                 v = front[i]
                 if df[v] == lf and db[v] == lb:
                     total += sf[v] * sb[v]
-            target = _uniform(state) * total
+            target = _uniform(rng) * total
             acc = 0.0
             pick = -1
             for i in range(size):
@@ -201,8 +220,8 @@ def rk_sample_unweighted(
                         break
             if pick != s and pick != t:
                 counts[pick] += 1.0
-            _walk_back(pick, s, in_indptr, in_indices, df, sf, state, counts)
-            _walk_back(pick, t, out_indptr, out_indices, db, sb, state, counts)
+            _walk_back(pick, s, in_indptr, in_indices, df, sf, rng, counts)
+            _walk_back(pick, t, out_indptr, out_indices, db, sb, rng, counts)
         for i in range(nvf):
             df[vis_f[i]] = -1
             sf[vis_f[i]] = 0.0

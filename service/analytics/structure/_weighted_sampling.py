@@ -7,8 +7,8 @@ probability 1 / sigma_st is in :func:`rk_sample_weighted`). The one-directional
 Dijkstra sampler, ``_rk_sample_weighted_dijkstra``, stays as the reference the
 tests and ``tests/bench/bench_betweenness.py`` compare against.
 
-Private to ``service.analytics``; the random stream is the caller-owned state of
-:func:`._centrality_kernels.seed_state`.
+Private to ``service.analytics``; the random streams come from the caller-owned
+state of :func:`._kernels.seed_state`, one stream per sample (see :mod:`._kernels`).
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from ._kernels import _below, _uniform
+from ._kernels import _below, _uniform, sample_stream
 
 __all__ = ["rk_sample_weighted"]
 
@@ -269,7 +269,7 @@ def _workspace(n: int, m: int) -> tuple[
             np.empty(n, dtype=np.int64))
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def rk_sample_weighted(
     n: int,
     out_indptr: np.ndarray,
@@ -283,7 +283,8 @@ def rk_sample_weighted(
     counts: np.ndarray,
     rtol: float,
 ) -> int:
-    """As :func:`rk_sample_unweighted` over positive arc lengths; returns nodes settled.
+    """As :func:`rk_sample_unweighted` over positive arc lengths (samples ``state[1] ..
+    state[1] + r - 1``, advancing ``state[1]``); returns nodes settled.
 
     Two path lengths count as equal when they differ by at most ``rtol``
     times the larger one, so sums like 1/2 + 1/2 and 1 tie.
@@ -327,15 +328,19 @@ def rk_sample_weighted(
     (df, sf, done_f, tf, hdf, hvf, db, sb, done_b, tb, hdb, hvb,
      rec_tail, rec_head, rec_len, path) = _workspace(n, out_indices.shape[0])
     settled = 0
-    for _ in range(r):
-        s = _below(state, n)
-        t = _below(state, n - 1)
+    first = int(state[1])
+    state[1] += np.uint64(r)
+    rng = np.empty(1, dtype=np.uint64)
+    for i in range(r):
+        sample_stream(state, first + i, rng)
+        s = _below(rng, n)
+        t = _below(rng, n - 1)
         if t >= s:
             t += 1
         npath, work = _bidirectional_path(
             s, t, out_indptr, out_indices, out_length, in_indptr, in_indices, in_length,
             df, sf, done_f, tf, hdf, hvf, db, sb, done_b, tb, hdb, hvb,
-            rec_tail, rec_head, rec_len, state, path, rtol)
+            rec_tail, rec_head, rec_len, rng, path, rtol)
         settled += work
         for i in range(npath):
             counts[path[i]] += 1.0

@@ -19,7 +19,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _kernels as _k
-from .._chunks import run_chunked
+from .._chunks import map_ordered, run_chunked, split_range, thread_count
 from ._views import _Views
 from ._weighted_sampling import rk_sample_weighted
 from ..errors import InvalidParameter
@@ -65,6 +65,7 @@ def betweenness(
     exact_limit: float = EXACT_WORK_LIMIT,
     random_seed: int = 0,
     progress: Progress = None,
+    threads: int | None = None,
     _views: _Views | None = None,
 ) -> tuple[NDArray[np.float64], dict[str, Any]]:
     """Betweenness centrality: exact (Brandes 2001) or sampled (Riondato-Kornaropoulos 2014).
@@ -86,6 +87,10 @@ def betweenness(
         Seeds the sampled method; equal seeds give equal results.
     progress : callable, optional
         ``progress(fraction, message)`` about every quarter second; may raise Cancelled.
+    threads : int, optional
+        Most threads the sampled method runs on (default: every core the process may
+        use). Sample ``i`` depends only on ``(random_seed, i)`` and the per-thread counts
+        are whole numbers added exactly, so the scores are the same for any number.
 
     Returns
     -------
@@ -175,13 +180,15 @@ def betweenness(
         factor = scale if g.directed else 2.0 * scale
         meta.update(method="exact", algorithm="Brandes 2001 (igraph)")
         return raw * factor, meta
-    values, info = _sampled_betweenness(g, use_w, epsilon, delta, random_seed, progress)
+    values, info = _sampled_betweenness(g, use_w, epsilon, delta, random_seed, progress,
+                                        thread_count(threads))
     meta.update(info)
     return values, meta
 
 
 def _sampled_betweenness(
-    g: GraphArrays, use_w: bool, epsilon: float, delta: float, seed: int, progress: Progress
+    g: GraphArrays, use_w: bool, epsilon: float, delta: float, seed: int, progress: Progress,
+    threads: int = 1,
 ) -> tuple[NDArray[np.float64], dict[str, Any]]:
     from scipy.sparse import csr_matrix
     from scipy.sparse.csgraph import connected_components
@@ -202,7 +209,7 @@ def _sampled_betweenness(
     r = rk_sample_size(vd, epsilon, delta)
     counts = np.zeros(n)
     state = _k.seed_state(seed)
-    _draw_samples(n, out, inn, use_w, r, state, counts, progress)
+    _draw_samples(n, out, inn, use_w, r, state, counts, progress, threads=threads)
     rescale = n / (n - 2) if n > 2 else 0.0
     values = counts / r * rescale if r else np.zeros(n)
     return values, {
@@ -221,19 +228,34 @@ def _sampled_betweenness(
 
 
 def _draw_samples(n: int, out: Any, inn: Any, use_w: bool, r: int,
-                              state: NDArray[np.uint64], counts: NDArray[np.float64],
-                              progress: Progress, *, first: int = 16) -> None:
+                  state: NDArray[np.uint64], counts: NDArray[np.float64],
+                  progress: Progress, *, first: int = 16, threads: int = 1) -> None:
     """Draw ``r`` RK samples into ``counts`` in chunks of about a quarter second each,
-    calling ``progress`` after every chunk (the kernels carry ``state`` across calls,
-    so the counts equal those of one call drawing all ``r``)."""
+    calling ``progress`` after every chunk. Each chunk is split into one index range
+    per thread, each with its own state and counts, added in order; sample ``i``
+    depends only on ``(key, i)``, so the counts equal those of one call drawing all
+    ``r`` (they are whole numbers, so the additions are exact in any order)."""
 
-    def step(_start: int, todo: int) -> None:
+    def part(start: int, todo: int) -> NDArray[np.float64]:
+        local = np.zeros(n) if threads > 1 else counts
+        st = np.array([state[0], start], dtype=np.uint64)
         if use_w:
             rk_sample_weighted(n, out.indptr, out.indices, out.data, inn.indptr,
-                               inn.indices, inn.data, todo, state, counts, _RTOL)
+                               inn.indices, inn.data, todo, st, local, _RTOL)
         else:
             _k.rk_sample_unweighted(n, out.indptr, out.indices, inn.indptr, inn.indices,
-                                    todo, state, counts)
+                                    todo, st, local)
+        return local
+
+    def step(_start: int, todo: int) -> None:
+        start = int(state[1])
+        parts = split_range(start, todo, threads if todo >= 4 * threads else 1)
+        if threads > 1:
+            for local in map_ordered(part, parts):
+                counts[:] += local
+        else:
+            part(start, todo)
+        state[1] = np.uint64(start + todo)
 
     def after(done: int) -> None:
         if progress is not None:

@@ -7,6 +7,8 @@ from typing import Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.usecases.diffusion_settings import ProbabilitySettings
+from service.usecases.integrity_rules import FlaggedRule
+from service.usecases.result_models import ResultWarning
 from service.usecases.next_contacts import FollowOn
 from service.usecases.recommendations import METHOD_ALIASES, LinkMethodName
 from .common import JsonInt, PerAdopter, PositiveInt, Seed
@@ -84,6 +86,10 @@ class NextContactsRequest(BaseModel):
     strict: bool = Field(
         default=True, description="Unknown adopter ids are an error (true) or skipped and counted (false)."
     )
+    exclude_flagged: FlaggedRule | None = Field(
+        default=None, description="People an odd_neighbourhoods or dense_groups job of this version flagged for "
+        "review are neither listed nor asked: {job, lists}."
+    )
 
 
 class AskRead(BaseModel):
@@ -137,6 +143,7 @@ class NextContactsPage(BaseModel):
     groups: list[ReferralGroupRead] | None = Field(
         default=None, description="Per adopter, whom to ask them to refer (group_by=adopter)."
     )
+    warnings: list[ResultWarning] | None = Field(default=None, description="People left out, and why.")
 
 
 #: The request body of next contacts in the OpenAPI document: JSON, or CSV with the options as query parameters.

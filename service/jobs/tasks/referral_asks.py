@@ -14,6 +14,7 @@ from typing import TYPE_CHECKING, Any
 from numpy.typing import NDArray
 
 from service.usecases import next_contacts as use_case
+from service.usecases.integrity_rules import resolve_exclude_flagged
 from service.usecases.next_contacts import ReferralAsksParams
 
 from .. import admission
@@ -44,6 +45,7 @@ KIND = JobKind(
     params=ReferralAsksParams,
     run=run,
     estimate=admission.linear_estimate,
+    resolve=resolve_exclude_flagged,
     summary="For every adopter, whom to ask them to refer (each target assigned to one adopter)",
     result_description=(
         "Counts (adopters, unknown_adopters, askers, targets, expected_referrals), exposure_explained "

@@ -14,7 +14,9 @@ from service.usecases.shortlist_params import (
     PRECHECK_MAX_EDGES,
     ShortlistParams,
 )
+from service.usecases.integrity_rules import resolve_exclude_flagged
 from service.usecases.shortlists import build_shortlist, precheck, prepare
+
 
 from .. import admission
 from ..kinds import JobKind, TaskContext, TaskOutput
@@ -45,6 +47,7 @@ KIND = JobKind(
     plots={"reach_curve": result_plots.reach_curve, "segment_reach": result_plots.segment_reach},
     estimate=admission.shortlist_estimate,
     precheck=precheck,
+    resolve=resolve_exclude_flagged,
     summary="Seed shortlist under contact rules: whom to contact first, with its guarantee and baselines",
     result_description=(
         "method (asked for) and method_used (the list returned: a baseline when it reached clearly more on the "
