@@ -25,6 +25,7 @@ from .api.middleware import (
 from .api.openapi import install_openapi, operation_id
 from .api.problems import install_problem_handlers
 from .api.spool import remove_stale_spool
+from .console import console_router
 from .usecases.caches import set_max_bytes as set_cache_bytes
 from .telemetry.logs import configure_logging
 from .settings import Settings
@@ -83,5 +84,6 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     install_problem_handlers(app)
     app.include_router(api_router)
     app.include_router(metrics_api.router)
+    app.include_router(console_router)
     install_openapi(app)
     return app

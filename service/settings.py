@@ -93,6 +93,12 @@ class Settings(BaseSettings):
     # Auth: keys are required unless disabled, which is allowed only on loopback.
     auth_disabled: bool = False
     default_tenant: str = "default"
+    console_secret: str | None = Field(
+        default=None,
+        description="Signs the console's session cookies; unset: a random secret kept in the data folder "
+        "(set the same value on every API replica).",
+    )
+    console_session_minutes: int = Field(default=60, ge=1, le=24 * 60, description="Console sign-in lifetime.")
 
     # Jobs
     job_lease_seconds: float = 30.0

@@ -56,6 +56,8 @@ from .structure import (
     degree,
     eigenvector_centrality,
     EXACT_WORK_LIMIT,
+    force_layout,
+    FR_MAX_NODES,
     graph_profile,
     graph_summary,
     harmonic_closeness,
@@ -214,6 +216,8 @@ from .integrity import (
 )
 
 __all__ = [
+    "force_layout",
+    "FR_MAX_NODES",
     "adamic_adar",
     "adjust_p_values",
     "adoption_auc",

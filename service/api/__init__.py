@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from fastapi import APIRouter, Depends
 
-from . import campaigns, graphs, health, jobs, plots, recommendations, result_exports, schedules, scores, webhooks
+from . import campaigns, graphs, health, jobs, layouts, plots, recommendations, result_exports, schedules, scores, webhooks
 from .auth import authorize
 from .deps import reject_unknown_query
 
@@ -18,7 +18,7 @@ __all__ = ["api_router", "ROUTERS", "OPEN_ROUTERS"]
 # Routers under /v1: every one needs a bearer key (see auth.py).
 ROUTERS = [
     graphs.router, jobs.router, schedules.router, webhooks.router, recommendations.router, result_exports.router,
-    plots.router, scores.router, campaigns.router,
+    plots.router, scores.router, campaigns.router, layouts.router,
 ]
 # Operations endpoints: no key.
 OPEN_ROUTERS = [health.router]

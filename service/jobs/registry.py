@@ -46,7 +46,8 @@ from pydantic import BaseModel, ValidationError
 
 from .errors import InvalidJobParams, UnknownKind
 from .kinds import JobKind, TaskContext, TaskOutput
-from .tasks import (backtest, dense_groups, forecast, learn_probabilities, link_evaluation, odd_neighbourhoods, profile,
+from .tasks import (backtest, dense_groups, forecast, layout, learn_probabilities, link_evaluation,
+                    odd_neighbourhoods, profile,
                     project_events, recommendations, referral_asks, scores, shortlist)
 
 __all__ = [
@@ -63,7 +64,7 @@ __all__ = [
 
 _BUILTIN = [
     profile, scores, recommendations, link_evaluation, referral_asks, forecast, shortlist,
-    project_events, odd_neighbourhoods, dense_groups, learn_probabilities, backtest,
+    project_events, odd_neighbourhoods, dense_groups, learn_probabilities, backtest, layout,
 ]
 
 REGISTRY: dict[str, JobKind] = {m.KIND.name: m.KIND for m in _BUILTIN}

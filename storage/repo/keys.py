@@ -13,7 +13,7 @@ from sqlalchemy.orm import Session
 from ..errors import NotFound
 from ..models import ApiKey, new_id, utcnow
 
-__all__ = ["SCOPES", "add_key", "get_key_by_secret", "list_keys", "revoke_key", "hash_key"]
+__all__ = ["SCOPES", "add_key", "get_key_by_secret", "get_live_key", "list_keys", "revoke_key", "hash_key"]
 
 SCOPES = ("read", "write", "admin")
 KEY_PREFIX = "bw"
@@ -72,6 +72,15 @@ def get_key_by_secret(db: Session, plain: str, *, now: datetime | None = None) -
         return None
     now = now or utcnow()
     if key.revoked_at is not None or (key.expires_at is not None and key.expires_at <= now):
+        return None
+    return key
+
+
+def get_live_key(db: Session, key_id: str, *, now: datetime | None = None) -> ApiKey | None:
+    """The key with id ``key_id`` if it is still live (not revoked, not expired), else None."""
+    key = db.get(ApiKey, key_id)
+    now = now or utcnow()
+    if key is None or key.revoked_at is not None or (key.expires_at is not None and key.expires_at <= now):
         return None
     return key
 

@@ -38,6 +38,7 @@ RUNS: list[tuple[str, dict[str, Any]]] = [
     ("shortlist", {"budget": 3}),
     ("shortlist", {"budget": 3, "method": "celf", "celf_runs": 50, "target_segment": "officer"}),
     ("shortlist", {"cost_budget": 4.0, "must_include": ["1"], "max_per_segment": 2}),
+    ("layout", {}),
     ("odd_neighbourhoods", {"top": 5}),
     ("dense_groups", {"groups": 2}),
     ("project_events", {"backbone": "disparity_filter", "alpha": 0.5}),

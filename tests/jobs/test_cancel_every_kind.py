@@ -51,6 +51,8 @@ EXPENSIVE: dict[str, dict[str, Any]] = {
                       "probability": {"scheme": "uniform", "p": 0.05}},
     "odd_neighbourhoods": {"top": 1000, "local_outlier": True, "min_contacts": 1},
     "dense_groups": {"groups": 50, "min_size": 2, "weighting": "uniform"},
+    # DrL at this size runs in a child process, which the cancellation ends.
+    "layout": {"method": "drl"},
     # These two learn from the graph's past campaigns (CAMPAIGNS, uploaded first).
     "learn_probabilities": {"folds": 20},
     "backtest": {"holdout": "each", "simulations": 100_000, "folds": 20},

@@ -29,6 +29,11 @@ from .communities import (
     modularity,
 )
 
+from .layout import (
+    force_layout,
+    FR_MAX_NODES,
+)
+
 from .paths import (
     betweenness,
     EXACT_WORK_LIMIT,
@@ -65,6 +70,8 @@ __all__ = [
     "leiden",
     "modularity",
     "community_summary",
+    "force_layout",
+    "FR_MAX_NODES",
     "EXACT_WORK_LIMIT",
     "betweenness",
     "harmonic_closeness",
