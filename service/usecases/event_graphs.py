@@ -31,7 +31,7 @@ from service.intake.events import EventColumns, read_events_csv, read_events_jso
 from service.usecases.event_projection import EventArrays, ProjectionParams, project, resolve_settings
 from service.usecases.loading import LoadedVersion, load_version, version_arrays
 from service.usecases.outcome import Computed, Progress
-from service.usecases.uploads import Uploaded, _extend_attrs, _has_attributes
+from service.usecases.uploads import Uploaded, _extend_attrs, _has_attributes, replay_of_upload
 from storage.arrays import decode_strings, encode_strings
 from storage.db import write_session
 from storage.repo import graphs as graph_repo
@@ -204,10 +204,7 @@ def upload_events(maker: sessionmaker[Session], tenant: str, graph_id: str, path
     Bad input raises the intake and analytics errors before anything is written.
     """
     def replay_of(db: Session) -> Uploaded | None:
-        if not idempotency_key:
-            return None
-        replay = idem_repo.get_replay(db, tenant, idempotency_key, route, request_hash)
-        return None if replay is None else Uploaded(replay.status_code, replay.body, replay.location or "")
+        return replay_of_upload(db, tenant, idempotency_key, route, request_hash)
 
     with maker() as db:
         g = graph_repo.get_graph(db, tenant, graph_id)

@@ -51,7 +51,7 @@ if TYPE_CHECKING:
 
     from storage.models import Graph, GraphVersion
 
-__all__ = ["UploadOptions", "BuiltVersion", "Uploaded", "build_version", "upload_version"]
+__all__ = ["UploadOptions", "BuiltVersion", "Uploaded", "build_version", "replay_of_upload", "upload_version"]
 
 
 @dataclass(frozen=True)
@@ -320,6 +320,15 @@ class Uploaded:
     location: str
 
 
+def replay_of_upload(db: Session, tenant: str, idempotency_key: str | None, route: str,
+                     request_hash: str) -> Uploaded | None:
+    """What an earlier upload with this idempotency key answered (None: no key, or no such upload)."""
+    if not idempotency_key:
+        return None
+    replay = idem_repo.get_replay(db, tenant, idempotency_key, route, request_hash)
+    return None if replay is None else Uploaded(replay.status_code, replay.body, replay.location or "")
+
+
 def upload_version(
     maker: sessionmaker[Session],
     tenant: str,
@@ -343,10 +352,7 @@ def upload_version(
     of the same request answers what the first one did.
     """
     def replay_of(db: Session) -> Uploaded | None:
-        if not idempotency_key:
-            return None
-        replay = idem_repo.get_replay(db, tenant, idempotency_key, route, request_hash)
-        return None if replay is None else Uploaded(replay.status_code, replay.body, replay.location or "")
+        return replay_of_upload(db, tenant, idempotency_key, route, request_hash)
 
     with maker() as db:
         g = graph_repo.get_graph(db, tenant, graph_id)
