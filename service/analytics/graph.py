@@ -172,7 +172,7 @@ class NodeAttributes:
         """Who may be contacted.
 
         When the version carries consent data, only an explicit yes counts:
-        unknown consent is treated as no, because the brief's rule is "none
+        unknown consent is treated as no, because the product's rule is "none
         without marketing consent". A version with no consent data at all
         marks everyone contactable.
         """

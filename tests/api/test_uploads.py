@@ -1,4 +1,4 @@
-"""Uploads: formats, modes, duplicates and every bad input of the brief's list."""
+"""Uploads: formats, modes, duplicates and every kind of bad input an upload can hold."""
 
 from __future__ import annotations
 
