@@ -19,15 +19,13 @@ from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field
-from sqlalchemy.orm import Session
 
 from service.analytics.errors import InvalidParameter
 from service.analytics.learning import BACKTEST_SCHEMES, SchemeSummary, backtest, backtest_verdict
-from service.usecases.campaigns import campaigns_on_version
+from service.usecases.campaigns import episodes_of
 from service.usecases.learning import MethodName, feature_matrix, segment_codes
-from service.usecases.loading import LoadedVersion, version_origin
+from service.usecases.loading import LoadedVersion
 from service.usecases.outcome import Computed, Progress
-from storage.repo import campaigns as campaign_repo
 
 if TYPE_CHECKING:
     from numpy.typing import NDArray
@@ -81,21 +79,13 @@ def _splits(n: int, params: BacktestParams) -> list[list[int]]:
 
 def precheck(params: BacktestParams, load: Callable[[], LoadedVersion], *, edges: int) -> None:
     """Refuse before queueing: too few campaigns, unknown or unready ones, or nothing left to learn from."""
-    version = load()
-    graph_id, bind = version_origin(version.version_id)
-    with Session(bind) as db:
-        tenant = campaign_repo.get_graph_tenant(db, graph_id)
-        episodes, _ = campaigns_on_version(db, tenant, graph_id, version, params.campaigns,
-                                           round_hours=params.round_hours)
+    episodes, _ = episodes_of(load(), params.campaigns, round_hours=params.round_hours)
     _splits(len(episodes), params)
 
 
 def run_backtest(version: LoadedVersion, params: BacktestParams, *, tenant: str, progress: Progress) -> Computed:
     """Hold out, learn, forecast and score; see the module docstring."""
-    graph_id, bind = version_origin(version.version_id)
-    with Session(bind) as db:
-        episodes, used = campaigns_on_version(db, tenant, graph_id, version, params.campaigns,
-                                              round_hours=params.round_hours)
+    episodes, used = episodes_of(version, params.campaigns, round_hours=params.round_hours, tenant=tenant)
     splits = _splits(len(episodes), params)
     seg, labels = segment_codes(version)
     x, names = feature_matrix(version)

@@ -30,7 +30,7 @@ from service.analytics.learning import Campaign as Episode
 from service.analytics.learning import bucket_rounds
 from service.intake import SizeLimits
 from service.intake.campaign_log import LogRow, read_campaign_log
-from service.usecases.loading import LoadedVersion, load_version
+from service.usecases.loading import LoadedVersion, load_version, version_origin
 from storage.db import write_session
 from storage.errors import Conflict, NotFound
 from storage.models import Campaign
@@ -49,6 +49,7 @@ __all__ = [
     "delete_campaign",
     "upload_campaign_log",
     "campaigns_on_version",
+    "episodes_of",
     "MAX_LISTED",
 ]
 
@@ -338,3 +339,16 @@ def campaigns_on_version(db: Session, tenant: str, graph_id: str, version: Loade
                      "people": int(nodes.size), "seeds": int(seed.sum()),
                      "unknown": len(r.log or []) - len(entries)})
     return out, used
+
+
+def episodes_of(version: LoadedVersion, ids: list[str] | None, *, round_hours: float,
+                tenant: str | None = None) -> tuple[list[Episode], list[dict[str, Any]]]:
+    """:func:`campaigns_on_version` for a loaded version, from a job or a check that holds no session.
+
+    The database and graph are the ones the version was loaded from; ``tenant`` defaults to
+    the graph's own (a check before queueing knows no tenant but the graph's).
+    """
+    graph_id, bind = version_origin(version.version_id)
+    with Session(bind) as db:
+        owner = tenant if tenant is not None else campaign_repo.get_graph_tenant(db, graph_id)
+        return campaigns_on_version(db, owner, graph_id, version, ids, round_hours=round_hours)

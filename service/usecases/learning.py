@@ -20,13 +20,11 @@ from typing import Any, Literal
 import numpy as np
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field
-from sqlalchemy.orm import Session
 
 from service.analytics.learning import campaign_episodes, edge_features, goyal_lt_weights, learn_probabilities
-from service.usecases.campaigns import campaigns_on_version
-from service.usecases.loading import LoadedVersion, version_origin
+from service.usecases.campaigns import episodes_of
+from service.usecases.loading import LoadedVersion
 from service.usecases.outcome import Computed, Progress
-from storage.repo import campaigns as campaign_repo
 
 __all__ = ["LearnParams", "learn_model", "precheck", "segment_codes", "feature_matrix", "MethodName"]
 
@@ -73,10 +71,7 @@ def feature_matrix(version: LoadedVersion, names: tuple[str, ...] | None = None
 
 def learn_model(version: LoadedVersion, params: LearnParams, *, tenant: str, progress: Progress) -> Computed:
     """Learn from the chosen campaigns on ``version``; see the module docstring."""
-    graph_id, bind = version_origin(version.version_id)
-    with Session(bind) as db:
-        episodes, used = campaigns_on_version(db, tenant, graph_id, version, params.campaigns,
-                                              round_hours=params.round_hours)
+    episodes, used = episodes_of(version, params.campaigns, round_hours=params.round_hours, tenant=tenant)
     progress(0.1, f"learning from {len(episodes)} campaigns")
     seg, labels = segment_codes(version)
     segments = seg if len(labels) > 2 else None  # one segment (or none): nothing to tell apart
@@ -141,9 +136,5 @@ def _readings(method: str, reason: str, p: NDArray[np.float64], m: Any) -> list[
 def precheck(params: Any, load: Callable[[], LoadedVersion], *, edges: int) -> None:
     """Refuse before queueing: unknown or unready campaigns, none at all, or unusable on this version."""
     version = load()
-    graph_id, bind = version_origin(version.version_id)
-    with Session(bind) as db:
-        tenant = campaign_repo.get_graph_tenant(db, graph_id)
-        episodes, _ = campaigns_on_version(db, tenant, graph_id, version, params.campaigns,
-                                           round_hours=params.round_hours)
+    episodes, _ = episodes_of(version, params.campaigns, round_hours=params.round_hours)
     campaign_episodes(version.graph, episodes)  # the engine's own checks, named per campaign

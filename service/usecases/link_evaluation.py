@@ -14,27 +14,20 @@ with the batch export and returns a different document.
 from __future__ import annotations
 
 from collections.abc import Iterator
-from typing import Any, Literal
+from typing import Any, Literal, get_args
 
 from numpy.typing import NDArray
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.analytics.ties.evaluation import evaluate_link_prediction
+from service.analytics.ties.recommend import LinkMethod
 from service.usecases.loading import LoadedVersion
 
 from .recommendations import METHOD_ALIASES, BatchOutput, LinkMethodName, Progress
 
 __all__ = ["ALL_METHODS", "LinkEvaluationParams", "evaluate_links", "link_evaluation_table"]
 
-ALL_METHODS: list[LinkMethodName] = [
-    "adamic_adar",
-    "resource_allocation",
-    "jaccard",
-    "common_neighbours",
-    "preferential_attachment",
-    "personalized_pagerank",
-    "weighted_adamic_adar",
-]
+ALL_METHODS: list[LinkMethodName] = list(get_args(LinkMethod))  # every method the engine has
 
 
 class LinkEvaluationParams(BaseModel):
