@@ -31,7 +31,7 @@ from service.intake.events import EventColumns, read_events_csv, read_events_jso
 from service.usecases.event_projection import EventArrays, ProjectionParams, project, resolve_settings
 from service.usecases.loading import LoadedVersion, load_version, version_arrays
 from service.usecases.outcome import Computed, Progress
-from service.usecases.uploads import Uploaded, _extend_attrs, _has_attributes, replay_of_upload
+from service.usecases.uploads import BuiltVersion, Uploaded, _extend_attrs, _has_attributes, replay_of_upload
 from storage.arrays import decode_strings, encode_strings
 from storage.db import write_session
 from storage.repo import graphs as graph_repo
@@ -108,18 +108,8 @@ def _read(path: Path, options: EventUploadOptions, people: intake.Interner, even
     raise InvalidParameter("event tables are read from CSV, NDJSON or JSON, not GraphML", field="Content-Type")
 
 
-@dataclass
-class _Built:
-    arrays: dict[str, NDArray[Any]]
-    manifest: dict[str, Any]
-    summary: dict[str, Any]
-    origin: dict[str, Any]
-    nodes: int
-    edges: int
-
-
 def _build(path: Path, options: EventUploadOptions, *, directed: bool, previous: LoadedVersion | None,
-           stored: _Stored | None, limits: intake.SizeLimits, job_rows: int) -> tuple[_Built, dict[str, Any] | None]:
+           stored: _Stored | None, limits: intake.SizeLimits, job_rows: int) -> tuple[BuiltVersion, dict[str, Any] | None]:
     """The next version (and the job's params when the table is large); nothing is written."""
     if options.mode not in ("replace", "append"):
         raise InvalidParameter("an event table replaces the events (mode=replace) or adds to them "
@@ -176,7 +166,7 @@ def _build(path: Path, options: EventUploadOptions, *, directed: bool, previous:
     arrays, manifest = version_arrays(graph, ids, attrs)
     arrays.update(_event_arrays(table, events.ids))
     manifest["event_count"] = len(events)
-    return _Built(arrays, manifest, summary, origin, graph.n, graph.m), job
+    return BuiltVersion(arrays, manifest, summary, origin, graph.n, graph.m), job
 
 
 def _plain(settings: Any) -> dict[str, Any]:
