@@ -348,6 +348,11 @@ def _at_least(p: Any) -> str:
     return f"{min(pct, 99.99):.2f}%"
 
 
+def _floor_pct(x: float) -> str:
+    """A share as a whole percent, rounded down: an "at least" never overstates (0.405 -> 40%)."""
+    return f"{math.floor(float(x) * 100)}%"
+
+
 def _plain(g: Any, method: str) -> str:
     """The guarantee in plain words."""
     approx, prob, ratio = g.get("approximation"), g.get("probability"), g.get("certified_ratio")
@@ -359,7 +364,8 @@ def _plain(g: Any, method: str) -> str:
             f"{g.get('optimum_upper_bound', float('nan')):,.1f})."
         )
         if approx is not None and approx > ratio:
-            text += f" The worst-case guarantee ({g.get('approximation_formula')}) also holds: {approx:.3f}."
+            text += (f" The method's worst-case guarantee also holds: at least {_floor_pct(approx)} of the best "
+                     f"({g.get('approximation_formula')}).")
         return text
     if approx is None:
         notes = [n for n in g.get("notes", []) if "no guarantee" not in n]
@@ -371,11 +377,11 @@ def _plain(g: Any, method: str) -> str:
         return "Exact: there was no choice to make."
     if method == "celf":
         return (
-            f"Greedy: at least {approx:.3f} ({g.get('approximation_formula')}) of the best shortlist under the "
-            "same rules if the reach estimates were exact; with Monte Carlo estimates, up to their error."
+            f"Greedy: at least {_floor_pct(approx)} of the best shortlist's reach under the same rules if the reach "
+            f"estimates were exact ({g.get('approximation_formula')}); with simulated estimates, up to their error."
         )
     return (
-        f"With probability at least {_at_least(prob)}, this shortlist's expected reach is at least {approx:.3f} "
-        f"({g.get('approximation_formula')}) of the best possible shortlist under the same rules "
-        "(a worst-case guarantee of the method)."
+        f"With probability at least {_at_least(prob)}, this shortlist's expected reach is at least {_floor_pct(approx)} "
+        f"of the best possible shortlist's under the same rules (the method's worst-case guarantee, "
+        f"{g.get('approximation_formula')})."
     )

@@ -8,6 +8,7 @@ set with NetworkX (``descendants``), outside the project.
 from __future__ import annotations
 
 import itertools
+import math
 import subprocess
 import sys
 from collections.abc import Callable, Iterator
@@ -209,3 +210,14 @@ def test_the_use_case_imports_first_without_a_circle(module: str) -> None:
     done = subprocess.run([sys.executable, "-c", f"import service.usecases.{module}"], cwd=root,
                           capture_output=True, text=True, timeout=120)
     assert done.returncode == 0, done.stderr[-2000:]
+
+
+def test_the_guarantee_in_words_is_a_share_rounded_down() -> None:
+    # 1 - 1/e (Nemhauser, Wolsey and Fisher 1978) less IMM's epsilon 0.1 is 0.532...: "at least 53%".
+    # The knapsack rule's 0.405 (the ratio the seeding rules use) must read 40%, never 41%.
+    from service.usecases._shortlist_result import _plain
+
+    imm = _plain({"approximation": 1 - 1 / math.e - 0.1, "probability": 0.99}, "imm")
+    assert "at least 53% of the best possible shortlist's" in imm and "0.532" not in imm
+    assert "at least 40% " in _plain({"approximation": 0.405, "probability": 0.99}, "imm")
+    assert "at least 63% of the best shortlist's reach" in _plain({"approximation": 1 - 1 / math.e}, "celf")
