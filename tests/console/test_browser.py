@@ -83,12 +83,28 @@ def _wait_for(driver: Any, css: str, seconds: float = 90) -> Any:
 
 def _submit(driver: Any, css: str = "form.form button[type=submit]") -> None:
     """Send a form and wait until the next page has loaded."""
-    from selenium.webdriver.support import expected_conditions as ec
     from selenium.webdriver.support.ui import WebDriverWait
 
     button = driver.find_element("css selector", css)
     button.click()
-    WebDriverWait(driver, 60).until(ec.staleness_of(button))
+    WebDriverWait(driver, 60).until(lambda _: _gone(button))
+
+
+def _gone(element: Any) -> bool:
+    """Whether the page moved on from ``element``. Newer chromedrivers answer a node of the
+    unloaded page with "Node with given id does not belong to the document" instead of a
+    stale-element error; both mean the same."""
+    from selenium.common.exceptions import StaleElementReferenceException, WebDriverException
+
+    try:
+        element.is_enabled()
+    except StaleElementReferenceException:
+        return True
+    except WebDriverException as exc:
+        if "does not belong to the document" in str(exc):
+            return True
+        raise
+    return False
 
 
 def _errors(driver: Any) -> list[str]:
