@@ -25,8 +25,10 @@ from itertools import chain
 from typing import BinaryIO
 
 import numpy as np
+import pyarrow as pa
 from numpy.typing import NDArray
 
+from . import _arrow_csv as arrow_csv
 from . import csvfile
 from ._jsonstream import json_records, ndjson_records
 from .errors import EmptyUpload, InvalidOption, MissingColumn, TooLong, UnknownColumn, UploadError
@@ -224,8 +226,13 @@ class EventSink:
 
 def read_events_csv(fh: BinaryIO, people: Interner, events: Interner, *, columns: EventColumns | None = None,
                     limits: SizeLimits | None = None, delimiter: str = ",",
-                    block_bytes: int = csvfile.BLOCK_BYTES) -> EventRows:
+                    block_bytes: int = csvfile.BLOCK_BYTES, threads: int = 1) -> EventRows:
     """Read an event table from CSV with a header row (RFC 4180, as :func:`read_edges_csv`).
+
+    A large plain file (``threads`` >= 1, at least :data:`~._arrow_csv.FAST_BYTES`, no quotes)
+    is read by Arrow's reader on ``threads`` threads; the exact reader below reads the rest,
+    and reads again any file the fast path does not accept, to find its problem and line.
+    ``threads=0`` always takes the exact reader.
 
     Raises
     ------
@@ -247,6 +254,20 @@ def read_events_csv(fh: BinaryIO, people: Interner, events: Interner, *, columns
     """
     cols = columns or EventColumns()
     n_p, n_e = len(people), len(events)
+    if threads and csvfile._body_size(fh) >= arrow_csv.FAST_BYTES and arrow_csv.plain_utf8(fh):
+        start = fh.tell()
+        try:
+            fast = _read_fast(fh, people, events, cols, DEFAULT_LIMITS if limits is None else limits, delimiter,
+                              threads)
+        except BaseException:
+            people.truncate(n_p)
+            events.truncate(n_e)
+            raise
+        if fast is not None:
+            return fast
+        people.truncate(n_p)
+        events.truncate(n_e)
+        fh.seek(start)
     try:
         sink = EventSink(people, events, cols, limits=limits)
         blocks = csvfile._blocks(fh, block_bytes)
@@ -270,6 +291,47 @@ def read_events_csv(fh: BinaryIO, people: Interner, events: Interner, *, columns
         people.truncate(n_p)
         events.truncate(n_e)
         raise
+
+
+def _read_fast(fh: BinaryIO, people: Interner, events: Interner, cols: EventColumns, limits: SizeLimits,
+               delimiter: str, threads: int) -> EventRows | None:
+    """The rows by Arrow's reader (:mod:`.arrow_csv`); None when the exact reader must decide."""
+    tc, wc = cols.time_column, cols.weight_column
+    got = arrow_csv.read_string_columns(fh, delimiter, [cols.person, cols.event, tc, wc], threads=threads)
+    if got is None:
+        return None
+    header, table = got
+    try:
+        _plan(header, 1, cols)
+    except UploadError:
+        return None
+    ids = [table.column(cols.person), table.column(cols.event)]
+    for col in ids:
+        fewest, most = arrow_csv.lengths(col)
+        if fewest == 0 or most > limits.id_chars:
+            return None
+    weight = time = None
+    if wc in header:
+        col = table.column(wc)
+        if arrow_csv.lengths(col)[1] > MAX_NUMBER_CHARS:
+            return None
+        try:
+            weight = col.cast(pa.float64()).to_numpy()
+        except (pa.ArrowInvalid, pa.ArrowNotImplementedError):
+            return None
+        if not bool(np.all((weight > 0.0) & (weight < math.inf))):
+            return None
+    if tc in header:
+        col = table.column(tc)
+        if arrow_csv.lengths(col)[1] > 64:
+            return None
+        time = parse_times(col.to_pylist())
+        if not bool(np.isfinite(time).all()):
+            return None
+    person, event = arrow_csv.intern_columns([(people, ids[0]), (events, ids[1])], threads=threads)
+    if person is None or event is None:
+        return None
+    return EventRows(person, event, weight, time, table.num_rows)
 
 
 def _plan(header: list[str], line: int, cols: EventColumns) -> tuple[int, int, int | None, int | None]:

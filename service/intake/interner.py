@@ -39,11 +39,22 @@ class Interner:
     ['ann', 'bob', 'cy', 'dee']
     """
 
-    __slots__ = ("ids", "index")
+    __slots__ = ("ids", "_index")
 
     def __init__(self) -> None:
         self.ids: list[str] = []
-        self.index: dict[str, int] = {}
+        self._index: dict[str, int] | None = {}
+
+    @property
+    def index(self) -> dict[str, int]:
+        """The map id -> index, built when first needed after :meth:`trusted` or :meth:`extend_new`."""
+        if self._index is None:
+            self._index = dict(zip(self.ids, range(len(self.ids))))
+        return self._index
+
+    @index.setter
+    def index(self, value: dict[str, int]) -> None:
+        self._index = value
 
     @classmethod
     def from_ids(cls, ids: Iterable[str]) -> Interner:
@@ -61,6 +72,23 @@ class Interner:
         if len(it.index) != len(it.ids) or "" in it.index:
             raise ValueError("ids must be unique and non-empty")
         return it
+
+    @classmethod
+    def trusted(cls, ids: Iterable[str]) -> Interner:
+        """Start from ids known to be unique and non-empty (a stored version's), unchecked.
+
+        The map from id to index is built only if a lookup needs it: a dict of millions of
+        ids takes seconds to build.
+        """
+        it = cls()
+        it.ids = list(ids)
+        it._index = None
+        return it
+
+    def extend_new(self, ids: list[str]) -> None:
+        """Number ``ids``, known to be new, unique and non-empty, after the existing ones."""
+        self._index = None  # rebuilt if a lookup needs it
+        self.ids.extend(ids)
 
     def __len__(self) -> int:
         return len(self.ids)
@@ -117,13 +145,14 @@ class Interner:
         """An independent copy (ids are shared strings, the containers are not)."""
         it = Interner()
         it.ids = list(self.ids)
-        it.index = dict(self.index)
+        it._index = None if self._index is None else dict(self._index)
         return it
 
     def truncate(self, n: int) -> None:
         """Forget every id numbered ``n`` or later (undo a failed read)."""
-        for s in self.ids[n:]:
-            del self.index[s]
+        if self._index is not None:
+            for s in self.ids[n:]:
+                del self._index[s]
         del self.ids[n:]
 
     def compact(self, keep: NDArray[np.bool_]) -> Interner:

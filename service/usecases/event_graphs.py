@@ -22,6 +22,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from service import intake
+from service.analytics._chunks import thread_count
 from service.analytics.errors import InvalidParameter
 from service.analytics.graph import GraphArrays, NodeAttributes
 from service.analytics.structure.summary import graph_summary
@@ -99,8 +100,10 @@ def _read(path: Path, options: EventUploadOptions, people: intake.Interner, even
     with open(path, "rb") as fh:
         if options.fmt == "csv":
             source = open_csv(fh, charset=options.charset, delimiter=options.delimiter)
+            # Arrow's reader takes the worker's threads; a transcoded body goes through the exact reader.
+            threads = thread_count() if source.encoding == "utf-8" else 0
             rows = read_events_csv(source.fh, people, events, columns=options.columns, limits=limits,
-                                   delimiter=source.delimiter)
+                                   delimiter=source.delimiter, threads=threads)
             return rows, {"encoding": source.encoding, "delimiter": source.delimiter_name}
         if options.fmt in ("ndjson", "json"):
             reader = read_events_ndjson if options.fmt == "ndjson" else read_events_json
@@ -118,8 +121,9 @@ def _build(path: Path, options: EventUploadOptions, *, directed: bool, previous:
     if options.mode == "append" and stored is None:
         raise InvalidParameter("mode=append adds events to a version built from events; this graph's newest "
                                "version is not: send the whole table with mode=replace", field="mode")
-    people = intake.Interner.from_ids(previous.ids) if previous is not None else intake.Interner()
-    events = intake.Interner.from_ids(stored.event_ids) if options.mode == "append" and stored else intake.Interner()
+    # Stored ids are unique: their lookup maps are built only if the exact reader needs them.
+    people = intake.Interner.trusted(previous.ids) if previous is not None else intake.Interner()
+    events = intake.Interner.trusted(stored.event_ids) if options.mode == "append" and stored else intake.Interner()
     n_before = len(people)
     rows, read_as = _read(path, options, people, events, limits)
     person, event, weight, time = rows.person, rows.event, rows.weight, rows.time
@@ -232,14 +236,23 @@ def upload_events(maker: sessionmaker[Session], tenant: str, graph_id: str, path
 
 
 def project_stored_events(maker: sessionmaker[Session], tenant: str, graph_id: str, number: int,
-                          params: ProjectEventsParams, *, progress: Progress) -> Computed:
+                          params: ProjectEventsParams, *, progress: Progress, job_id: str | None = None) -> Computed:
     """Project the events stored with version ``number`` and store the ties as the next version.
 
     The new version is numbered ``number + 1``: if another version was added meanwhile the
-    job fails with a conflict rather than build on top of it.
+    job fails with a conflict rather than build on top of it. The version records ``job_id``,
+    so a retry of a job that stored its version but not its result (the worker was stopped in
+    between) answers with that version instead of a conflict.
     """
     with maker() as db:
         g = graph_repo.get_graph(db, tenant, graph_id)
+        if job_id is not None and g.latest_version > number:
+            written = graph_repo.get_version(db, g, number + 1)
+            if (written.origin or {}).get("job_id") == job_id:
+                return Computed(data={"version_created": written.number, "nodes": written.nodes,
+                                      "edges": written.edges,
+                                      "projection": written.summary["projection"],
+                                      "backbone": written.summary["backbone"]})
         version = graph_repo.get_version(db, g, number)
         stored = _stored_events(db, g, version)
         if stored is None:
@@ -255,6 +268,8 @@ def project_stored_events(maker: sessionmaker[Session], tenant: str, graph_id: s
                "backbone": made.backbone}
     origin = {"part": "events", "mode": "project", "based_on": number, "events_version": stored.source_version,
               "records": stored.table.rows, "settings": _plain(settings)}
+    if job_id is not None:
+        origin["job_id"] = job_id
     progress(0.95, "storing the new version")
     with write_session(maker) as db:
         g = graph_repo.get_graph(db, tenant, graph_id)

@@ -184,7 +184,8 @@ def project(table: EventArrays, settings: ProjectionChoices, *, directed: bool,
                               time=table.time if decay is not None else None, half_life=decay,
                               max_event_size=cap, oversized=s.oversized,  # type: ignore[arg-type]
                               singletons="skip" if s.single_events == "skip" else "refuse",
-                              n_people=table.n_people, n_events=table.n_events)
+                              n_people=table.n_people, n_events=table.n_events,
+                              progress=lambda done: report(0.1 + 0.4 * done, "projecting events onto people"))
     except UnknownProjection as exc:  # pragma: no cover - resolve_settings refuses it first
         raise InvalidParameter(f"there is no projection called {s.projection!r}", field="projection") from exc
     except SingleParticipantEvent as exc:

@@ -252,3 +252,38 @@ def test_strength_and_degree_per_person():
     assert np.array_equal(g.degree, np.bincount(ends, minlength=40))
     ra = project_events(person, event, method="resource_allocation", singletons="skip")
     assert ra.strength is None and ra.degree is None
+
+
+@pytest.mark.parametrize("method", ["newman", "resource_allocation"])
+def test_any_thread_count_and_round_size_give_the_same_ties(method, monkeypatch):
+    # Source: SciPy's sparse product B^T D B (as in the tests above) for the weights; the
+    # threads and the rounds only change who writes which rows, so every run is bit-identical.
+    from service.analytics._chunks import ChunkSizer
+    from service.analytics.events import projection as mod
+    from service.analytics.events.backbone import disparity_filter
+
+    rng = np.random.default_rng(5)
+    person, event = rng.integers(0, 700, 6_000), rng.integers(0, 400, 6_000)
+    runs = []
+    for threads, first, target in [(1, 1 << 20, 0.25), (2, 1 << 20, 0.25), (3, 7, 1e-9), (4, 1, 1e-9)]:
+        monkeypatch.setattr(mod, "ChunkSizer", lambda first_=first, target_=target, **_: ChunkSizer(
+            first=first_, target=target_))
+        done: list[float] = []
+        g = project_events(person, event, method=method, singletons="skip", threads=threads, progress=done.append)
+        b = disparity_filter(g, alpha=0.3, threads=threads) if method == "newman" else None
+        runs.append((g, b, len(done)))
+    g0, b0, _ = runs[0]
+    assert runs[-1][2] > 100  # rounds of a slot or so: the rows were moved down many times
+    for g, b, _ in runs[1:]:
+        for name in ("src", "dst", "weight", "shared"):
+            assert np.array_equal(getattr(g, name), getattr(g0, name)), name
+        if b is not None:
+            assert np.array_equal(b.p_value, b0.p_value) and np.array_equal(b.keep, b0.keep)
+    if method == "newman":
+        B = sp.csr_matrix((np.ones(person.size), (event, person)), shape=(400, 700))
+        B.data[:] = 1.0  # duplicate rows count once
+        size = np.asarray(B.sum(axis=1)).ravel()
+        D = sp.diags(np.where((size > 1) & (size <= 100), 1.0 / np.maximum(size - 1, 1), 0.0))
+        want = sp.triu((B.T @ D @ B).tocsr(), k=1)
+        got = sp.csr_matrix((g0.weight, (g0.src, g0.dst)), shape=(700, 700))
+        assert abs(got - want).max() < 1e-12

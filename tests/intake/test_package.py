@@ -12,7 +12,7 @@ MODULES = ["errors", "limits", "interner", "tables", "csvfile", "jsonfile", "gra
            "encoding", "hints"]
 ALLOWED = {"__future__", "array", "collections", "csv", "dataclasses", "decimal", "io", "itertools",
            "datetime", "json", "math", "typing", "numpy", "defusedxml", "ijson", "service",
-           "codecs", "re", "charset_normalizer"}
+           "codecs", "re", "charset_normalizer", "pyarrow", "concurrent"}
 
 
 def test_all_agrees_with_the_modules():

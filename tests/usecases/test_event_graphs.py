@@ -84,6 +84,26 @@ def test_upload_then_job_step_rebuilds_with_other_settings(maker: Any, tmp_path:
         project_stored_events(maker, "t", gid, 1, ProjectEventsParams(), progress=lambda f, m=None: None)
 
 
+def test_a_retried_job_answers_with_the_version_it_already_stored(maker: Any, tmp_path: Path) -> None:
+    # A worker stopped after storing the version but before storing the result retries the
+    # job: the same job finds its own version; another job on the same version is refused.
+    from storage.errors import Conflict
+
+    _, _, rows = _davis()
+    gid = _graph(maker)
+    _upload(maker, gid, _file(tmp_path, rows), projection="count", max_event_size=0)
+    quiet = lambda f, m=None: None  # noqa: E731
+    first = project_stored_events(maker, "t", gid, 1, ProjectEventsParams(projection="newman"), progress=quiet,
+                                  job_id="job-a")
+    again = project_stored_events(maker, "t", gid, 1, ProjectEventsParams(projection="newman"), progress=quiet,
+                                  job_id="job-a")
+    assert again.data == first.data and again.data["version_created"] == 2
+    with maker() as db:
+        assert graph_repo.get_graph(db, "t", gid).latest_version == 2
+    with pytest.raises(Conflict):
+        project_stored_events(maker, "t", gid, 1, ProjectEventsParams(), progress=quiet, job_id="job-b")
+
+
 def test_large_table_is_stored_with_a_queued_job(maker: Any, tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:
     from service.usecases import event_graphs
 

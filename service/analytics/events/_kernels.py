@@ -90,25 +90,38 @@ def person_csr(ptr, members, n_people):  # type: ignore[no-untyped-def]
 
 
 @njit(cache=True, nogil=True)
-def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capacity):  # type: ignore[no-untyped-def]
-    """Pairs i < j with weight sum_e factor[e] * w_ie * w_je and their shared-event count.
-
-    Events with ``factor[e] == 0`` are skipped. Output is sorted by (src, dst).
-    ``capacity`` should be the pair-slot count, an upper bound on the pairs:
-    the arrays are reserved at that size and only the written part is touched.
-    Also returns each person's strength and degree in the projection. The
-    per-person work values sit side by side in one row of ``work`` (weight,
-    shared count, strength, degree), so an update touches one cache line.
-    """
-    work = np.zeros((n_people, 4), np.float64)
-    touched = np.empty(n_people, np.int32)
-    capacity = max(capacity, 16)
-    src = np.empty(capacity, np.int32)
-    dst = np.empty(capacity, np.int32)
-    w = np.empty(capacity, np.float64)
-    c = np.empty(capacity, np.int32)
-    k = 0
+def person_slots(pptr, pev, ppos, ptr, factor, n_people):  # type: ignore[no-untyped-def]
+    """Per person, the pairs their row of the projection can hold at most (members after
+    them in their kept events): the room :func:`upper_pairs_rows` writes into."""
+    out = np.zeros(n_people, np.int64)
     for i in range(n_people):
+        total = 0
+        for s in range(pptr[i], pptr[i + 1]):
+            e = pev[s]
+            if factor[e] != 0.0:
+                total += ptr[e + 1] - ppos[s] - 1
+        out[i] = total
+    return out
+
+
+@njit(cache=True, nogil=True)
+def upper_pairs_rows(i0, i1, at, pptr, pev, ppos, ptr, members, mweight, factor,  # type: ignore[no-untyped-def]
+                     src, dst, w, c, strength, degree, work, touched):
+    """The projection's rows for people ``i0 .. i1 - 1``, written from index ``at``: pairs
+    i < j with weight sum_e factor[e] * w_ie * w_je and their shared-event count, sorted by
+    (i, j). Events with ``factor[e] == 0`` are skipped. A dense accumulator (weight and
+    count side by side in one row of ``work``, so an update touches one cache line) with a
+    touched list merges repeated pairs without a global sort.
+
+    The caller reserves room from :func:`person_slots`; ``work`` (n_people x 2, zero) and
+    ``touched`` (n_people) are this call's scratch and come back as they went in. Sets
+    ``strength[i]`` and ``degree[i]`` to the sum and count of person i's row (the pairs
+    where i is the smaller id; :func:`column_sums` adds the others). Returns the pairs
+    written. Rows of different people are independent, so ranges of people run
+    on different threads give, put end to end, the single-thread rows bit for bit.
+    """
+    k = at
+    for i in range(i0, i1):
         nt = 0
         for s in range(pptr[i], pptr[i + 1]):
             e = pev[s]
@@ -124,20 +137,10 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
                     nt += 1
                 work[j, 0] += fi * mweight[t]
                 work[j, 1] += 1.0
+        strength[i] = 0.0
+        degree[i] = nt
         if nt == 0:
             continue
-        if k + nt > capacity:
-            while k + nt > capacity:
-                capacity *= 2
-            src2 = np.empty(capacity, np.int32)
-            dst2 = np.empty(capacity, np.int32)
-            w2 = np.empty(capacity, np.float64)
-            c2 = np.empty(capacity, np.int32)
-            src2[:k] = src[:k]
-            dst2[:k] = dst[:k]
-            w2[:k] = w[:k]
-            c2[:k] = c[:k]
-            src, dst, w, c = src2, dst2, w2, c2
         row = touched[:nt]
         row.sort()
         si = 0.0
@@ -150,14 +153,30 @@ def upper_pairs(pptr, pev, ppos, ptr, members, mweight, factor, n_people, capaci
             c[k] = np.int32(work[j, 1])
             work[j, 0] = 0.0
             work[j, 1] = 0.0
-            work[j, 2] += wj
-            work[j, 3] += 1.0
             si += wj
             k += 1
-        work[i, 2] += si
-        work[i, 3] += nt
-    # Views, not copies: pages past k were never written, so they hold no memory.
-    return src[:k], dst[:k], w[:k], c[:k], work[:, 2].copy(), work[:, 3].astype(np.int64)
+        strength[i] = si
+    return k - at
+
+
+@njit(cache=True, nogil=True)
+def column_sums(dst, w, strength, degree):  # type: ignore[no-untyped-def]
+    """Add each tie to its larger end's strength and degree, in tie order (one thread, so the
+    sums do not depend on how the rows were split)."""
+    for e in range(dst.shape[0]):
+        j = dst[e]
+        strength[j] += w[e]
+        degree[j] += 1
+
+
+@njit(cache=True, nogil=True)
+def move_down(src, dst, w, c, frm, to, count):  # type: ignore[no-untyped-def]
+    """Move ``count`` pairs from index ``frm`` down to ``to`` (``to <= frm``), front first."""
+    for q in range(count):
+        src[to + q] = src[frm + q]
+        dst[to + q] = dst[frm + q]
+        w[to + q] = w[frm + q]
+        c[to + q] = c[frm + q]
 
 
 @njit(cache=True, nogil=True)
@@ -311,36 +330,47 @@ def node_stats(src, dst, w, n, directed):  # type: ignore[no-untyped-def]
 
 
 @njit(cache=True, nogil=True)
-def disparity_p(src, dst, w, st, both, keep_degree_one):  # type: ignore[no-untyped-def]
-    """Disparity-filter p-value per tie and whether a degree-one rule forces it.
+def disparity_p_range(e0, e1, src, dst, w, st, both, keep_degree_one, p, forced):  # type: ignore[no-untyped-def]
+    """Disparity-filter p-value of ties ``e0 .. e1 - 1`` into ``p``, and into ``forced``
+    whether a degree-one rule keeps the tie (each tie alone).
 
     ``st`` from :func:`node_stats`: the source is tested on (s, k) in columns
     0-1, the target on columns 2-3. (1 - p)^(k - 1) is taken as
     exp((k - 1) log1p(-p)) so small shares keep their digits at large degree.
+
+    Ties are sorted by source, so the source's row is read in order, but the
+    target's is a random row: a cache miss each on graphs of millions of people.
+    The targets' rows of a block of ties are therefore read first, in a loop of
+    loads alone that the processor overlaps, and then used (measured on 58
+    million ties: 2.7 s against 8.5 to 10 s reading them inside the test).
     """
-    m = src.shape[0]
-    p = np.empty(m, np.float64)
-    forced = np.zeros(m, np.bool_)
-    for e in range(m):
-        a = src[e]
-        b = dst[e]
-        ka = st[a, 1]
-        kb = st[b, 3]
-        pa = 1.0
-        if ka > 1.0:
-            pa = math.exp((ka - 1.0) * math.log1p(-min(w[e] / st[a, 0], 1.0)))
-        pb = 1.0
-        if kb > 1.0:
-            pb = math.exp((kb - 1.0) * math.log1p(-min(w[e] / st[b, 2], 1.0)))
-        if both:
-            # An endpoint with one tie has no test: the other endpoint decides.
-            if ka == 1.0:
-                pa = pb
-            if kb == 1.0:
-                pb = pa
-            p[e] = max(pa, pb)
-        else:
-            p[e] = min(pa, pb)
-        if keep_degree_one and (ka == 1.0 or kb == 1.0):
-            forced[e] = True
-    return p, forced
+    block = 256
+    s_b = np.empty(block, np.float64)
+    k_b = np.empty(block, np.float64)
+    for b0 in range(e0, e1, block):
+        b1 = min(b0 + block, e1)
+        for e in range(b0, b1):
+            b = dst[e]
+            s_b[e - b0] = st[b, 2]
+            k_b[e - b0] = st[b, 3]
+        for e in range(b0, b1):
+            a = src[e]
+            ka = st[a, 1]
+            kb = k_b[e - b0]
+            pa = 1.0
+            if ka > 1.0:
+                pa = math.exp((ka - 1.0) * math.log1p(-min(w[e] / st[a, 0], 1.0)))
+            pb = 1.0
+            if kb > 1.0:
+                pb = math.exp((kb - 1.0) * math.log1p(-min(w[e] / s_b[e - b0], 1.0)))
+            if both:
+                # An endpoint with one tie has no test: the other endpoint decides.
+                if ka == 1.0:
+                    pa = pb
+                if kb == 1.0:
+                    pb = pa
+                p[e] = max(pa, pb)
+            else:
+                p[e] = min(pa, pb)
+            if keep_degree_one and (ka == 1.0 or kb == 1.0):
+                forced[e] = True

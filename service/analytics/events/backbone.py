@@ -17,6 +17,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from . import _kernels as K
+from .._chunks import map_ordered, split_range, thread_count
 from ..errors import ComputationFailed, EmptyGraph, InvalidParameter
 from .projection import (
     DEFAULT_MAX_PAIR_SLOTS,
@@ -181,7 +182,7 @@ def _finish(graph: Projection, p: NDArray[np.float64], *, method: str, alpha: fl
 def disparity_filter(graph: Projection, *, alpha: float = 0.05,
                      rule: Literal["either", "both"] = "either",
                      degree_one: Literal["other_end", "keep"] = "other_end",
-                     correction: str = "none") -> Backbone:
+                     correction: str = "none", threads: int | None = None) -> Backbone:
     """Disparity filter backbone of a weighted projection.
 
     For an endpoint i of degree k_i and strength s_i, the tie's share
@@ -204,6 +205,8 @@ def disparity_filter(graph: Projection, *, alpha: float = 0.05,
         tie of a person with a single tie. Convention chosen here.
     correction : {"none", "bonferroni", "fdr_bh"}
         Applied to the ties' p-values, one test per tie.
+    threads : int, optional
+        Threads testing ties (default :func:`thread_count`); the p-values do not depend on it.
 
     Returns
     -------
@@ -248,8 +251,13 @@ def disparity_filter(graph: Projection, *, alpha: float = 0.05,
         st[:, 1] = st[:, 3] = graph.degree
     else:
         st = K.node_stats(graph.src, graph.dst, graph.weight, graph.n_people, graph.directed)
-    p, forced = K.disparity_p(graph.src, graph.dst, graph.weight, st, rule == "both",
-                              degree_one == "keep")
+    m = graph.src.shape[0]
+    p = np.empty(m, np.float64)
+    forced = np.zeros(m, np.bool_)
+    # Each tie is tested alone: ranges of ties on different threads give the same p-values.
+    parts = split_range(0, m, thread_count(threads) if m >= 1 << 16 else 1)
+    map_ordered(K.disparity_p_range, [(a, a + n, graph.src, graph.dst, graph.weight, st, rule == "both",
+                                       degree_one == "keep", p, forced) for a, n in parts])
     return _finish(graph, p, method="disparity_filter", alpha=alpha, correction=correction,
                    tests=None, forced=forced if degree_one == "keep" else None)
 

@@ -9,6 +9,8 @@ on event size. The intake layer interns ids to 0..n-1 before calling it.
 
 from __future__ import annotations
 
+import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, Literal
 
@@ -16,6 +18,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from . import _kernels as K
+from .._chunks import ChunkSizer, map_ordered, thread_count
 from ..errors import EmptyGraph, InvalidParameter
 
 __all__ = [
@@ -284,7 +287,8 @@ def project_events(person: ArrayLike, event: ArrayLike, *, method: str = "count"
                    oversized: Literal["drop", "downweight"] = "drop",
                    singletons: Literal["refuse", "skip"] = "refuse",
                    n_people: int | None = None, n_events: int | None = None,
-                   max_pair_slots: int = DEFAULT_MAX_PAIR_SLOTS) -> Projection:
+                   max_pair_slots: int = DEFAULT_MAX_PAIR_SLOTS, threads: int | None = None,
+                   progress: Callable[[float], None] | None = None) -> Projection:
     """Project a (person, event) table onto people.
 
     ``method`` chooses the weight each shared event e with n_e participants
@@ -398,14 +402,71 @@ def project_events(person: ArrayLike, event: ArrayLike, *, method: str = "count"
                         n_events=n_events)
     return project_table(table, method=method, half_life=half_life, t_ref=t_ref,
                          max_event_size=max_event_size, oversized=oversized,
-                         singletons=singletons, max_pair_slots=max_pair_slots)
+                         singletons=singletons, max_pair_slots=max_pair_slots, threads=threads,
+                         progress=progress)
+
+
+def _upper_pairs(table: EventTable, factor: NDArray[np.float64], *, threads: int,
+                 progress: Callable[[float], None] | None) -> tuple[
+                     NDArray[np.int32], NDArray[np.int32], NDArray[np.float64], NDArray[np.int32],
+                     NDArray[np.float64], NDArray[np.int64]]:
+    """The projection's pairs i < j, sorted by (i, j), with weight and shared-event count, and
+    each person's strength and degree.
+
+    People are taken in rounds of about a quarter second (:class:`ChunkSizer`), each round
+    split into contiguous ranges of people with equal room, one per thread. Each range writes
+    its rows into the room :func:`K.person_slots` reserves for it, and the rows are then moved
+    down end to end, so the arrays hold the single-thread result whatever the split.
+    """
+    n = table.n_people
+    slots = K.person_slots(table.person_ptr, table.person_events, table.person_pos, table.ptr, factor, n)
+    room = np.zeros(n + 1, np.int64)
+    np.cumsum(slots, out=room[1:])
+    capacity = max(int(room[-1]), 1)
+    src = np.empty(capacity, np.int32)
+    dst = np.empty(capacity, np.int32)
+    w = np.empty(capacity, np.float64)
+    c = np.empty(capacity, np.int32)
+    strength = np.zeros(n, np.float64)
+    degree = np.zeros(n, np.int64)
+    scratch = [(np.zeros((n, 2), np.float64), np.empty(n, np.int32)) for _ in range(threads)]
+    sizer = ChunkSizer(first=1 << 20)
+    i, k = 0, 0
+    while i < n:
+        t0 = time.perf_counter()
+        budget = sizer.next(int(room[-1] - room[i]))
+        end = max(i + 1, min(n, int(np.searchsorted(room, room[i] + budget, side="right")) - 1))
+        marks = np.searchsorted(room, np.linspace(room[i], room[end], threads + 1)[1:-1])
+        cuts = [i, *sorted({int(b) for b in marks if i < b < end}), end]
+        calls = [(a, b, int(room[a]), table.person_ptr, table.person_events, table.person_pos, table.ptr,
+                  table.members, table.member_weight, factor, src, dst, w, c, strength, degree, *scratch[q])
+                 for q, (a, b) in enumerate(zip(cuts[:-1], cuts[1:]))]
+        written = map_ordered(K.upper_pairs_rows, calls)
+        for a, count in zip(cuts[:-1], written):
+            if int(room[a]) != k:
+                K.move_down(src, dst, w, c, int(room[a]), k, int(count))
+            k += int(count)
+        sizer.took(int(room[end] - room[i]), time.perf_counter() - t0)
+        i = end
+        if progress is not None:
+            progress(i / n)
+    del scratch
+    K.column_sums(dst[:k], w[:k], strength, degree)
+    # Views, not copies (pages past k that a range wrote before its rows moved down stay resident).
+    return src[:k], dst[:k], w[:k], c[:k], strength, degree
 
 
 def project_table(table: EventTable, *, method: str, half_life: float | None = None,
                   t_ref: float | None = None, max_event_size: int | None = DEFAULT_MAX_EVENT_SIZE,
                   oversized: str = "drop", singletons: str = "refuse",
-                  max_pair_slots: int = DEFAULT_MAX_PAIR_SLOTS) -> Projection:
-    """:func:`project_events` on an already grouped :class:`EventTable`."""
+                  max_pair_slots: int = DEFAULT_MAX_PAIR_SLOTS, threads: int | None = None,
+                  progress: Callable[[float], None] | None = None) -> Projection:
+    """:func:`project_events` on an already grouped :class:`EventTable`.
+
+    The pairs are formed on ``threads`` threads (default: :func:`thread_count`), in timed
+    rounds; ``progress(fraction)`` is called after each round (a job's cancel point). The
+    result does not depend on the thread count.
+    """
     if method not in PROJECTIONS:
         raise UnknownProjection(name=method, choices=list(PROJECTIONS))
     f, n_over, n_single = _event_factors(table, method, half_life=half_life, t_ref=t_ref,
@@ -418,9 +479,8 @@ def project_table(table: EventTable, *, method: str, half_life: float | None = N
     if slots > max_pair_slots:
         raise ProjectionTooLarge(pair_slots=slots, limit=max_pair_slots, largest_event=largest,
                                  max_event_size=max_event_size)
-    src, dst, w, shared, strength, degree = K.upper_pairs(table.person_ptr, table.person_events, table.person_pos,
-                                        table.ptr, table.members, table.member_weight, f,
-                                        table.n_people, slots)
+    src, dst, w, shared, strength, degree = _upper_pairs(table, f, threads=thread_count(threads),
+                                                         progress=progress)
     in_events = table.person_degree > 0
     people_in_events = int(in_events.sum())
     common: dict[str, Any] = dict(n_people=table.n_people, rows=table.rows, duplicate_rows=table.duplicate_rows,

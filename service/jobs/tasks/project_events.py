@@ -13,7 +13,7 @@ __all__ = ["KIND", "run"]
 def run(ctx: TaskContext, params: ProjectEventsParams) -> TaskOutput:
     version = ctx.load().number  # the job's version (the newest when none was named)
     return project_stored_events(ctx.sessions, ctx.tenant_id, str(ctx.graph_id), version, params,
-                                 progress=ctx.progress)
+                                 progress=ctx.progress, job_id=ctx.job_id)
 
 
 KIND = JobKind(
