@@ -12,6 +12,7 @@ from service.analytics import (
     GraphArrays,
     InvalidParameter,
     auc,
+    contact_circles,
     ego_features,
     lof_scores,
     oddball,
@@ -243,31 +244,32 @@ def _rank(scores: np.ndarray, members: np.ndarray) -> tuple[float, float]:
     return precision_at_k(scores[m], scores[~m], int(m.sum())), auc(scores[m], scores[~m])
 
 
-def _planted_figures(name: str) -> dict[str, tuple[float, float]]:
-    """(precision at the number injected, AUC) of each score on one planted graph (seed 1)."""
+def _planted_figures(name: str, seed: int = 1) -> dict[str, tuple[float, float]]:
+    """(precision at the number injected, AUC) of each score on one planted graph."""
     g0, _ = snap_graph(name, directed=False)
-    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
+    g, rings, centres = plant(g0, np.random.default_rng(seed), [10, 20, 30, 40], 5, 150)
     out: dict[str, tuple[float, float]] = {}
-    for ring_score in ("own", "shared-contacts"):
+    for ring_score in ("own", "shared-contacts", "separate-circles"):
         r = oddball(g, ring_score=ring_score)
         up = np.where(r.side == 1, r.score, 0.0)
         down = np.where(r.side == -1, r.score, 0.0)
         out[f"{ring_score} rings>=20"] = _rank(up, np.concatenate(rings[1:]))
         out[f"{ring_score} ring of 10"] = _rank(up, rings[0])
         out[f"{ring_score} stars"] = _rank(down, centres)
-        if ring_score == "shared-contacts":
+        if ring_score != "own":
             planted = np.zeros(g.n, bool)
             planted[np.concatenate(rings)] = True
             top = np.argsort(-up, kind="stable")[:90]
             n_, e_ = r.features.neighbours[top], r.features.edges[top]
             density = (e_ - n_) / np.maximum(n_ * (n_ - 1) / 2, 1)
-            out["top 90 unplanted, median ego density"] = (float((~planted[top]).sum()),
-                                                            float(np.median(density)))
+            out[f"{ring_score} top 90 unplanted, median ego density"] = (
+                float((~planted[top]).sum()), float(np.median(density)))
     for key, (a, b) in out.items():
-        if key.startswith("top"):
-            print(f"{name} top 90 near-cliques: {a:.0f} unplanted, median ego density {b:.3f}")
+        if "top 90" in key:
+            print(f"{name} seed {seed} {key.split(' top')[0]} top 90 near-cliques: {a:.0f} unplanted, "
+                  f"median ego density {b:.3f}")
         else:
-            print(f"{name} {key}: precision {a:.3f}, AUC {b:.3f}")
+            print(f"{name} seed {seed} {key}: precision {a:.3f}, AUC {b:.3f}")
     return out
 
 
@@ -360,7 +362,79 @@ def test_ring_score_lifts_the_whole_ring_and_leaves_the_rest() -> None:
         assert r.score[k] == pytest.approx(raw[k] / peak, rel=1e-9)
     with pytest.raises(InvalidParameter) as err:
         oddball(g, ring_score="group")
-    assert err.value.data["allowed"] == ["own", "shared-contacts"]
+    assert err.value.data["allowed"] == ["own", "shared-contacts", "separate-circles"]
+
+
+def _nx_circles(G: nx.Graph, i: int) -> int:
+    return nx.number_connected_components(G.subgraph(G[i])) if G.degree(i) else 0
+
+
+@pytest.mark.parametrize("seed,p", [(0, 0.05), (1, 0.15), (2, 0.3)])
+def test_contact_circles_match_networkx(seed: int, p: float) -> None:
+    # Source: NetworkX, number_connected_components of the subgraph induced by each
+    # person's neighbours (the person left out), computed here; 0 for an isolated person.
+    G = nx.gnp_random_graph(120, p, seed=seed)
+    G.add_node(120)
+    G.add_edges_from([(121, 122), (121, 123)])  # a path: 2 circles at its middle
+    src, dst = zip(*G.edges)
+    got = contact_circles(arrays(src, dst, n=124))
+    want = np.array([_nx_circles(G, i) for i in range(124)])
+    assert np.array_equal(got, want)
+    assert got[120] == 0 and got[121] == 2
+
+
+def test_contact_circles_read_the_graph_as_simple_and_undirected() -> None:
+    # Source: NetworkX on the undirected simple graph written out by hand: both directions of
+    # 0-1 and the repeated 1-2 are one tie each, the self-loop 3-3 is dropped.
+    g = arrays([0, 1, 1, 1, 2, 3, 3, 0], [1, 0, 2, 2, 0, 3, 4, 3], directed=True)
+    G = nx.Graph([(0, 1), (1, 2), (2, 0), (3, 4), (0, 3)])
+    assert contact_circles(g).tolist() == [_nx_circles(G, i) for i in range(5)]
+
+
+def _stitched_and_closed() -> tuple[GraphArrays, np.ndarray, np.ndarray]:
+    """The clique of 12 of _ring_graph (people with contacts of their own) and a closed
+    clique of 16 new people who know nobody else."""
+    G = nx.powerlaw_cluster_graph(2000, 3, 0.5, seed=5)
+    ring = np.arange(1000, 1012)
+    G.add_edges_from((int(ring[a]), int(ring[b])) for a, b in zip(*np.triu_indices(12, 1)))
+    closed = np.arange(2000, 2016)
+    G.add_edges_from((int(closed[a]), int(closed[b])) for a, b in zip(*np.triu_indices(16, 1)))
+    src, dst = zip(*G.edges)
+    return arrays(src, dst, n=2016), ring, closed
+
+
+def test_separate_circles_put_a_stitched_ring_before_a_closed_group() -> None:
+    # Source: planted structure, and the score written out here with NetworkX: per person,
+    # (sum_j t_ij d_j / sum_j t_ij) * (sum_j t_ij a_j / sum_j t_ij), t_ij the common
+    # neighbours of the tie, d_j = log(E_j / C N_j^alpha) above the line (else 0) and
+    # a_j = 1 when j's contacts form two or more components; divided by its maximum.
+    g, ring, closed = _stitched_and_closed()
+    shared = oddball(g, ring_score="shared-contacts")
+    r = oddball(g, ring_score="separate-circles")
+    # The closed clique is the denser group, so the shared-contacts score lists it first ...
+    assert {p.node for p in shared.near_cliques[:16]} == set(closed.tolist())
+    # ... while its members have no contact outside it: one circle each, and the ring first.
+    assert {p.node for p in r.near_cliques[:12]} == set(ring.tolist())
+    assert (r.score[closed] == 0).all()
+    plain = oddball(g)
+    assert np.array_equal(r.score[r.side != 1], plain.score[plain.side != 1])
+    fit = r.fits[0]
+    n_, e_ = r.features.neighbours.astype(float), r.features.edges.astype(float)
+    d = np.where(r.side == 1, np.log(e_ / (fit.constant * n_**fit.exponent)), 0.0)
+    G = nx.Graph(zip(g.src.tolist(), g.dst.tolist()))
+    apart = {i: float(_nx_circles(G, i) >= 2) for i in G}
+
+    def raw(k: int) -> float:
+        t = {j: len(list(nx.common_neighbors(G, k, j))) for j in G[k]}
+        total = sum(t.values())
+        if not total:
+            return 0.0
+        return (sum(t[j] * d[j] for j in t) / total) * (sum(t[j] * apart[j] for j in t) / total)
+
+    values = {k: raw(k) for k in np.flatnonzero(r.side == 1).tolist()}
+    peak = max(values.values())
+    for k in ring.tolist() + closed.tolist() + [p.node for p in r.near_cliques[12:30]]:
+        assert r.score[k] == pytest.approx(values[k] / peak, rel=1e-9, abs=1e-15)
 
 
 def test_evidence_sentence() -> None:
