@@ -281,16 +281,22 @@ def test_planted_rings_and_stars_in_email_enron() -> None:
     # Measured, precision at the number injected (90 for rings >= 20, 10, 5) and AUC:
     #   own out-line score:   rings >= 20 0.678, 0.971; ring of 10 0.000, 0.669
     #   shared-contacts:      rings >= 20 0.956, 0.978; ring of 10 0.000, 0.706
-    #   star centres (both):  0.400, 1.000 (AUC 0.99992)
-    # Seeds 2 and 3 give 0.589 / 0.633 (own) and 0.956 / 0.956 (shared-contacts) at 90.
+    #   separate-circles:     rings >= 20 0.956, 0.978; ring of 10 0.000, 0.791
+    #   star centres (all):   0.400, 1.000 (AUC 0.99992)
+    # Seeds 2 and 3 give 0.589 / 0.633 (own), 0.956 / 0.956 (shared-contacts) and
+    # 0.944 / 0.933 (separate-circles) at 90; see test_separate_circles_on_seeds_2_and_3.
     f = _planted_figures("email-Enron")
     prec, area = f["own rings>=20"]
     assert prec == pytest.approx(0.678, abs=0.001) and area == pytest.approx(0.971, abs=0.001)
     prec, area = f["shared-contacts rings>=20"]
     assert prec >= 0.9  # the goal for rings of 20 or more
     assert prec == pytest.approx(0.956, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
+    prec, area = f["separate-circles rings>=20"]
+    assert prec >= 0.9
+    assert prec == pytest.approx(0.956, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
     assert f["shared-contacts ring of 10"][1] > f["own ring of 10"][1]
-    assert f["shared-contacts stars"] == f["own stars"]
+    assert f["separate-circles ring of 10"] == pytest.approx((0.0, 0.791), abs=0.001)
+    assert f["shared-contacts stars"] == f["own stars"] == f["separate-circles stars"]
     assert f["own stars"][1] >= 0.99
 
 
@@ -301,19 +307,49 @@ def test_planted_rings_and_stars_in_ca_grqc() -> None:
     # Measured, precision at the number injected and AUC:
     #   own out-line score:   rings >= 20 0.000, 0.943; ring of 10 0.000, 0.659
     #   shared-contacts:      rings >= 20 0.000, 0.937; ring of 10 0.000, 0.644
-    #   star centres (both):  1.000, 1.000
-    # The goal is not met here, and honestly cannot be by density above the law: of the
-    # top 90 near-cliques 89 are unplanted, with median ego density 0.989 - authors of
-    # papers with 40-47 authors, real near-complete groups - while a planted ring's
-    # members have median ego density 0.61-0.78 (ties at p = 0.9 plus their own contacts).
+    #   separate-circles:     rings >= 20 0.922, 0.978; ring of 10 0.000, 0.701
+    #   star centres (all):   1.000, 1.000
+    # Density above the law cannot meet the goal here: of the top 90 near-cliques by
+    # shared-contacts 89 are unplanted, with median ego density 0.989 - authors of papers
+    # with 40-47 authors, real near-complete groups - while a planted ring's members have
+    # median ego density 0.61-0.78 (ties at p = 0.9 plus their own contacts). Those groups
+    # are closed or embedded: their members' other contacts (if any) know other members, so
+    # few have a second circle of contacts, while nearly every ring member does (their old
+    # contacts). separate-circles keeps 7 unplanted people in its top 90 (median ego
+    # density 0.761). Seeds 2 and 3: own 0.000 / 0.000, shared-contacts 0.000 / 0.000,
+    # separate-circles 0.911 / 0.922.
     f = _planted_figures("ca-GrQc")
-    assert f["own stars"] == (1.0, 1.0) and f["shared-contacts stars"] == (1.0, 1.0)
+    assert f["own stars"] == f["shared-contacts stars"] == f["separate-circles stars"] == (1.0, 1.0)
     prec, area = f["own rings>=20"]
     assert prec == 0.0 and area == pytest.approx(0.943, abs=0.001)
     prec, area = f["shared-contacts rings>=20"]
     assert prec == 0.0 and area == pytest.approx(0.937, abs=0.001)
-    unplanted, density = f["top 90 unplanted, median ego density"]
+    unplanted, density = f["shared-contacts top 90 unplanted, median ego density"]
     assert unplanted == 89 and density >= 0.98
+    prec, area = f["separate-circles rings>=20"]
+    assert prec >= 0.9  # the goal for rings of 20 or more
+    assert prec == pytest.approx(0.922, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
+    assert f["separate-circles ring of 10"] == pytest.approx((0.0, 0.701), abs=0.001)
+    unplanted, density = f["separate-circles top 90 unplanted, median ego density"]
+    assert unplanted == 7 and density == pytest.approx(0.761, abs=0.001)
+
+
+@pytest.mark.shared
+@pytest.mark.slow
+@pytest.mark.parametrize("name,seed,want", [
+    ("ca-GrQc", 2, (0.911, 0.985)), ("ca-GrQc", 3, (0.922, 0.992)),
+    ("email-Enron", 2, (0.944, 0.985)), ("email-Enron", 3, (0.933, 0.985)),
+])
+def test_separate_circles_on_seeds_2_and_3(name: str, seed: int, want: tuple[float, float]) -> None:
+    # Source: planted anomalies in the open graphs, as above, with other seeds (not tuned on
+    # one seed). Measured, precision at 90 and AUC for rings >= 20 (listed in the
+    # parameters); ring of 10: ca-GrQc 0.000, 0.767 / 0.000, 0.542; email-Enron
+    # 0.000, 0.643 / 0.000, 0.500. Stars are scored as by the other ring scores.
+    f = _planted_figures(name, seed)
+    prec, area = f["separate-circles rings>=20"]
+    assert prec >= 0.9
+    assert (prec, area) == pytest.approx(want, abs=0.001)
+    assert f["separate-circles stars"] == f["own stars"]
 
 
 def test_shared_contact_mean_matches_networkx() -> None:
