@@ -198,6 +198,7 @@ from .events import (
 
 from .integrity import (
     COLUMN_WEIGHTINGS,
+    contact_circles,
     DenseGroup,
     ego_features,
     EgoFeatures,
@@ -249,6 +250,7 @@ __all__ = [
     "compare_reach",
     "ComputationFailed",
     "constraint",
+    "contact_circles",
     "coreness",
     "CORRECTIONS",
     "Csr",

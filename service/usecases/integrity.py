@@ -67,10 +67,13 @@ class OddNeighbourhoodsParams(BaseModel):
         description="Fewest people with at least `min_contacts` contacts needed to fit the laws.")
     fit: Literal["robust", "least_squares"] = Field(
         default="robust", description="Line fit on log scales: robust (Huber) or plain least squares.")
-    ring_score: Literal["shared_contacts", "own"] = Field(
+    ring_score: Literal["shared_contacts", "separate_circles", "own"] = Field(
         default="shared_contacts",
-        description="Near-cliques ranked by how far above the law their close contacts lie "
-                    "(`shared_contacts`, so a whole ring rises together) or by their own distance (`own`).")
+        description="Near-cliques ranked by how far above the law their close contacts lie (`shared_contacts`, "
+                    "so a whole ring rises together); by that, counting only close contacts who also have "
+                    "other contacts who know nobody in the group (`separate_circles`: a ring of people with "
+                    "nothing else in common, for graphs full of real tight groups; it does not raise a closed "
+                    "group of accounts who know nobody else); or by their own distance (`own`).")
     local_outlier: bool = Field(
         default=False, description="Add the local outlier factor (Breunig et al. 2000) to the distance.")
 
@@ -170,7 +173,7 @@ def find_odd_neighbourhoods(
         res = oddball(g, method="huber" if params.fit == "robust" else "least-squares",
                       min_neighbours=params.min_contacts, min_egos=params.min_people,
                       lof=params.local_outlier, top=params.top,
-                      ring_score="shared-contacts" if params.ring_score == "shared_contacts" else "own",
+                      ring_score=params.ring_score.replace("_", "-"),
                       progress=progress)
     except InvalidParameter as exc:
         law = exc.data.get("field")

@@ -12,6 +12,7 @@ from service.analytics import (
     GraphArrays,
     InvalidParameter,
     auc,
+    contact_circles,
     ego_features,
     lof_scores,
     oddball,
@@ -243,31 +244,32 @@ def _rank(scores: np.ndarray, members: np.ndarray) -> tuple[float, float]:
     return precision_at_k(scores[m], scores[~m], int(m.sum())), auc(scores[m], scores[~m])
 
 
-def _planted_figures(name: str) -> dict[str, tuple[float, float]]:
-    """(precision at the number injected, AUC) of each score on one planted graph (seed 1)."""
+def _planted_figures(name: str, seed: int = 1) -> dict[str, tuple[float, float]]:
+    """(precision at the number injected, AUC) of each score on one planted graph."""
     g0, _ = snap_graph(name, directed=False)
-    g, rings, centres = plant(g0, np.random.default_rng(1), [10, 20, 30, 40], 5, 150)
+    g, rings, centres = plant(g0, np.random.default_rng(seed), [10, 20, 30, 40], 5, 150)
     out: dict[str, tuple[float, float]] = {}
-    for ring_score in ("own", "shared-contacts"):
+    for ring_score in ("own", "shared-contacts", "separate-circles"):
         r = oddball(g, ring_score=ring_score)
         up = np.where(r.side == 1, r.score, 0.0)
         down = np.where(r.side == -1, r.score, 0.0)
         out[f"{ring_score} rings>=20"] = _rank(up, np.concatenate(rings[1:]))
         out[f"{ring_score} ring of 10"] = _rank(up, rings[0])
         out[f"{ring_score} stars"] = _rank(down, centres)
-        if ring_score == "shared-contacts":
+        if ring_score != "own":
             planted = np.zeros(g.n, bool)
             planted[np.concatenate(rings)] = True
             top = np.argsort(-up, kind="stable")[:90]
             n_, e_ = r.features.neighbours[top], r.features.edges[top]
             density = (e_ - n_) / np.maximum(n_ * (n_ - 1) / 2, 1)
-            out["top 90 unplanted, median ego density"] = (float((~planted[top]).sum()),
-                                                            float(np.median(density)))
+            out[f"{ring_score} top 90 unplanted, median ego density"] = (
+                float((~planted[top]).sum()), float(np.median(density)))
     for key, (a, b) in out.items():
-        if key.startswith("top"):
-            print(f"{name} top 90 near-cliques: {a:.0f} unplanted, median ego density {b:.3f}")
+        if "top 90" in key:
+            print(f"{name} seed {seed} {key.split(' top')[0]} top 90 near-cliques: {a:.0f} unplanted, "
+                  f"median ego density {b:.3f}")
         else:
-            print(f"{name} {key}: precision {a:.3f}, AUC {b:.3f}")
+            print(f"{name} seed {seed} {key}: precision {a:.3f}, AUC {b:.3f}")
     return out
 
 
@@ -279,16 +281,22 @@ def test_planted_rings_and_stars_in_email_enron() -> None:
     # Measured, precision at the number injected (90 for rings >= 20, 10, 5) and AUC:
     #   own out-line score:   rings >= 20 0.678, 0.971; ring of 10 0.000, 0.669
     #   shared-contacts:      rings >= 20 0.956, 0.978; ring of 10 0.000, 0.706
-    #   star centres (both):  0.400, 1.000 (AUC 0.99992)
-    # Seeds 2 and 3 give 0.589 / 0.633 (own) and 0.956 / 0.956 (shared-contacts) at 90.
+    #   separate-circles:     rings >= 20 0.956, 0.978; ring of 10 0.000, 0.791
+    #   star centres (all):   0.400, 1.000 (AUC 0.99992)
+    # Seeds 2 and 3 give 0.589 / 0.633 (own), 0.956 / 0.956 (shared-contacts) and
+    # 0.944 / 0.933 (separate-circles) at 90; see test_separate_circles_on_seeds_2_and_3.
     f = _planted_figures("email-Enron")
     prec, area = f["own rings>=20"]
     assert prec == pytest.approx(0.678, abs=0.001) and area == pytest.approx(0.971, abs=0.001)
     prec, area = f["shared-contacts rings>=20"]
     assert prec >= 0.9  # the goal for rings of 20 or more
     assert prec == pytest.approx(0.956, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
+    prec, area = f["separate-circles rings>=20"]
+    assert prec >= 0.9
+    assert prec == pytest.approx(0.956, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
     assert f["shared-contacts ring of 10"][1] > f["own ring of 10"][1]
-    assert f["shared-contacts stars"] == f["own stars"]
+    assert f["separate-circles ring of 10"] == pytest.approx((0.0, 0.791), abs=0.001)
+    assert f["shared-contacts stars"] == f["own stars"] == f["separate-circles stars"]
     assert f["own stars"][1] >= 0.99
 
 
@@ -299,19 +307,49 @@ def test_planted_rings_and_stars_in_ca_grqc() -> None:
     # Measured, precision at the number injected and AUC:
     #   own out-line score:   rings >= 20 0.000, 0.943; ring of 10 0.000, 0.659
     #   shared-contacts:      rings >= 20 0.000, 0.937; ring of 10 0.000, 0.644
-    #   star centres (both):  1.000, 1.000
-    # The goal is not met here, and honestly cannot be by density above the law: of the
-    # top 90 near-cliques 89 are unplanted, with median ego density 0.989 - authors of
-    # papers with 40-47 authors, real near-complete groups - while a planted ring's
-    # members have median ego density 0.61-0.78 (ties at p = 0.9 plus their own contacts).
+    #   separate-circles:     rings >= 20 0.922, 0.978; ring of 10 0.000, 0.701
+    #   star centres (all):   1.000, 1.000
+    # Density above the law cannot meet the goal here: of the top 90 near-cliques by
+    # shared-contacts 89 are unplanted, with median ego density 0.989 - authors of papers
+    # with 40-47 authors, real near-complete groups - while a planted ring's members have
+    # median ego density 0.61-0.78 (ties at p = 0.9 plus their own contacts). Those groups
+    # are closed or embedded: their members' other contacts (if any) know other members, so
+    # few have a second circle of contacts, while nearly every ring member does (their old
+    # contacts). separate-circles keeps 7 unplanted people in its top 90 (median ego
+    # density 0.761). Seeds 2 and 3: own 0.000 / 0.000, shared-contacts 0.000 / 0.000,
+    # separate-circles 0.911 / 0.922.
     f = _planted_figures("ca-GrQc")
-    assert f["own stars"] == (1.0, 1.0) and f["shared-contacts stars"] == (1.0, 1.0)
+    assert f["own stars"] == f["shared-contacts stars"] == f["separate-circles stars"] == (1.0, 1.0)
     prec, area = f["own rings>=20"]
     assert prec == 0.0 and area == pytest.approx(0.943, abs=0.001)
     prec, area = f["shared-contacts rings>=20"]
     assert prec == 0.0 and area == pytest.approx(0.937, abs=0.001)
-    unplanted, density = f["top 90 unplanted, median ego density"]
+    unplanted, density = f["shared-contacts top 90 unplanted, median ego density"]
     assert unplanted == 89 and density >= 0.98
+    prec, area = f["separate-circles rings>=20"]
+    assert prec >= 0.9  # the goal for rings of 20 or more
+    assert prec == pytest.approx(0.922, abs=0.001) and area == pytest.approx(0.978, abs=0.001)
+    assert f["separate-circles ring of 10"] == pytest.approx((0.0, 0.701), abs=0.001)
+    unplanted, density = f["separate-circles top 90 unplanted, median ego density"]
+    assert unplanted == 7 and density == pytest.approx(0.761, abs=0.001)
+
+
+@pytest.mark.shared
+@pytest.mark.slow
+@pytest.mark.parametrize("name,seed,want", [
+    ("ca-GrQc", 2, (0.911, 0.985)), ("ca-GrQc", 3, (0.922, 0.992)),
+    ("email-Enron", 2, (0.944, 0.985)), ("email-Enron", 3, (0.933, 0.985)),
+])
+def test_separate_circles_on_seeds_2_and_3(name: str, seed: int, want: tuple[float, float]) -> None:
+    # Source: planted anomalies in the open graphs, as above, with other seeds (not tuned on
+    # one seed). Measured, precision at 90 and AUC for rings >= 20 (listed in the
+    # parameters); ring of 10: ca-GrQc 0.000, 0.767 / 0.000, 0.542; email-Enron
+    # 0.000, 0.643 / 0.000, 0.500. Stars are scored as by the other ring scores.
+    f = _planted_figures(name, seed)
+    prec, area = f["separate-circles rings>=20"]
+    assert prec >= 0.9
+    assert (prec, area) == pytest.approx(want, abs=0.001)
+    assert f["separate-circles stars"] == f["own stars"]
 
 
 def test_shared_contact_mean_matches_networkx() -> None:
@@ -360,7 +398,79 @@ def test_ring_score_lifts_the_whole_ring_and_leaves_the_rest() -> None:
         assert r.score[k] == pytest.approx(raw[k] / peak, rel=1e-9)
     with pytest.raises(InvalidParameter) as err:
         oddball(g, ring_score="group")
-    assert err.value.data["allowed"] == ["own", "shared-contacts"]
+    assert err.value.data["allowed"] == ["own", "shared-contacts", "separate-circles"]
+
+
+def _nx_circles(G: nx.Graph, i: int) -> int:
+    return nx.number_connected_components(G.subgraph(G[i])) if G.degree(i) else 0
+
+
+@pytest.mark.parametrize("seed,p", [(0, 0.05), (1, 0.15), (2, 0.3)])
+def test_contact_circles_match_networkx(seed: int, p: float) -> None:
+    # Source: NetworkX, number_connected_components of the subgraph induced by each
+    # person's neighbours (the person left out), computed here; 0 for an isolated person.
+    G = nx.gnp_random_graph(120, p, seed=seed)
+    G.add_node(120)
+    G.add_edges_from([(121, 122), (121, 123)])  # a path: 2 circles at its middle
+    src, dst = zip(*G.edges)
+    got = contact_circles(arrays(src, dst, n=124))
+    want = np.array([_nx_circles(G, i) for i in range(124)])
+    assert np.array_equal(got, want)
+    assert got[120] == 0 and got[121] == 2
+
+
+def test_contact_circles_read_the_graph_as_simple_and_undirected() -> None:
+    # Source: NetworkX on the undirected simple graph written out by hand: both directions of
+    # 0-1 and the repeated 1-2 are one tie each, the self-loop 3-3 is dropped.
+    g = arrays([0, 1, 1, 1, 2, 3, 3, 0], [1, 0, 2, 2, 0, 3, 4, 3], directed=True)
+    G = nx.Graph([(0, 1), (1, 2), (2, 0), (3, 4), (0, 3)])
+    assert contact_circles(g).tolist() == [_nx_circles(G, i) for i in range(5)]
+
+
+def _stitched_and_closed() -> tuple[GraphArrays, np.ndarray, np.ndarray]:
+    """The clique of 12 of _ring_graph (people with contacts of their own) and a closed
+    clique of 16 new people who know nobody else."""
+    G = nx.powerlaw_cluster_graph(2000, 3, 0.5, seed=5)
+    ring = np.arange(1000, 1012)
+    G.add_edges_from((int(ring[a]), int(ring[b])) for a, b in zip(*np.triu_indices(12, 1)))
+    closed = np.arange(2000, 2016)
+    G.add_edges_from((int(closed[a]), int(closed[b])) for a, b in zip(*np.triu_indices(16, 1)))
+    src, dst = zip(*G.edges)
+    return arrays(src, dst, n=2016), ring, closed
+
+
+def test_separate_circles_put_a_stitched_ring_before_a_closed_group() -> None:
+    # Source: planted structure, and the score written out here with NetworkX: per person,
+    # (sum_j t_ij d_j / sum_j t_ij) * (sum_j t_ij a_j / sum_j t_ij), t_ij the common
+    # neighbours of the tie, d_j = log(E_j / C N_j^alpha) above the line (else 0) and
+    # a_j = 1 when j's contacts form two or more components; divided by its maximum.
+    g, ring, closed = _stitched_and_closed()
+    shared = oddball(g, ring_score="shared-contacts")
+    r = oddball(g, ring_score="separate-circles")
+    # The closed clique is the denser group, so the shared-contacts score lists it first ...
+    assert {p.node for p in shared.near_cliques[:16]} == set(closed.tolist())
+    # ... while its members have no contact outside it: one circle each, and the ring first.
+    assert {p.node for p in r.near_cliques[:12]} == set(ring.tolist())
+    assert (r.score[closed] == 0).all()
+    plain = oddball(g)
+    assert np.array_equal(r.score[r.side != 1], plain.score[plain.side != 1])
+    fit = r.fits[0]
+    n_, e_ = r.features.neighbours.astype(float), r.features.edges.astype(float)
+    d = np.where(r.side == 1, np.log(e_ / (fit.constant * n_**fit.exponent)), 0.0)
+    G = nx.Graph(zip(g.src.tolist(), g.dst.tolist()))
+    apart = {i: float(_nx_circles(G, i) >= 2) for i in G}
+
+    def raw(k: int) -> float:
+        t = {j: len(list(nx.common_neighbors(G, k, j))) for j in G[k]}
+        total = sum(t.values())
+        if not total:
+            return 0.0
+        return (sum(t[j] * d[j] for j in t) / total) * (sum(t[j] * apart[j] for j in t) / total)
+
+    values = {k: raw(k) for k in np.flatnonzero(r.side == 1).tolist()}
+    peak = max(values.values())
+    for k in ring.tolist() + closed.tolist() + [p.node for p in r.near_cliques[12:30]]:
+        assert r.score[k] == pytest.approx(values[k] / peak, rel=1e-9, abs=1e-15)
 
 
 def test_evidence_sentence() -> None:

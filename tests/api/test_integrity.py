@@ -82,6 +82,20 @@ async def test_odd_neighbourhoods_over_http(client: Any) -> None:
     assert "Neighbourhoods against the graph" in r.text
 
 
+async def test_ring_score_is_chosen_over_http(client: Any) -> None:
+    # Source: planted structure; the job echoes the ring score it used, and an unknown one is
+    # refused naming the field. Two of the ring's members have a contact outside it (p5, p17),
+    # which gives the ring its place under separate_circles in this graph without tight groups.
+    gid = await graph(client)
+    jid = await run(client, gid, "odd_neighbourhoods", {"top": 10, "ring_score": "separate_circles"})
+    body = (await client.get(f"/v1/jobs/{jid}/result")).json()
+    assert body["params"]["ring_score"] == "separate_circles"
+    assert len({p["node_id"] for p in body["near_cliques"]} & set(RING)) >= 9
+    r = await client.post(f"/v1/graphs/{gid}/jobs", json={"kind": "odd_neighbourhoods",
+                                                         "params": {"ring_score": "circles"}})
+    assert r.status_code == 422 and "ring_score" in r.text
+
+
 async def test_dense_groups_over_http(client: Any) -> None:
     gid = await graph(client)
     jid = await run(client, gid, "dense_groups", {"attributes": ["address"], "time_column": "signed_up",

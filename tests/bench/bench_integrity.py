@@ -8,6 +8,10 @@ Run:  python -m tests.bench.bench_integrity [--repeats 3]
    the same neighbourhood sizes and ego edge counts in one run
    (``neighborhood_size`` and ``transitivity_local_undirected``, triangles
    recovered as ``c * d (d - 1) / 2``). The two answers are checked equal.
+   Alongside, the circles among every person's contacts
+   (:func:`service.analytics.contact_circles`, the extra pass of the ring score
+   ``separate-circles``), checked against igraph's connected components of
+   the neighbourhoods of the 200 busiest people.
 2. soc-Slashdot0902 (read as undirected): one densest block by
    :func:`service.analytics.fraudar` (log weights) against one pass over the
    edges (the weighted degree of every node by ``numpy.bincount``, the least
@@ -26,7 +30,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from service.analytics import ego_features, fraudar, to_igraph
+from service.analytics import contact_circles, ego_features, fraudar, to_igraph
 from tests.datasets import DATASETS, snap_graph
 
 
@@ -55,13 +59,20 @@ def bench_ego(repeats: int) -> None:
     ours = ego_features(g, eigenvalues=False)
     ref_n, ref_e = igraph_counts()
     assert (ours.neighbours == ref_n).all() and (ours.edges == ref_e).all(), "counts differ"
+    circles = contact_circles(g)
+    busiest = np.argsort(-ours.neighbours, kind="stable")[:200]
+    for i in busiest.tolist():
+        sub = ig.induced_subgraph(ig.neighbors(i))
+        assert circles[i] == len(sub.connected_components()), f"circles of {i} differ"
     t = median_times({
         "igraph": igraph_counts,
         "ours N, E, W": lambda: ego_features(g, eigenvalues=False),
         "ours N, E, W, lambda": lambda: ego_features(g),
+        "ours contact circles": lambda: contact_circles(g),
     }, repeats)
     full = ego_features(g)
-    print(f"\ncom-DBLP: n={g.n:,}, edges={g.m:,}; {repeats} alternating repeats; counts equal to igraph")
+    print(f"\ncom-DBLP: n={g.n:,}, edges={g.m:,}; {repeats} alternating repeats; counts equal to igraph"
+          "\n  (circles of the 200 busiest people equal to igraph's components of their neighbourhoods)")
     for label, sec in t.items():
         print(f"  {label:24s} median {sec:8.3f} s   ratio to igraph {sec / t['igraph']:6.2f}")
     print(f"  eigenvalue iterations capped (not converged): {int((~full.converged).sum()):,} egos "

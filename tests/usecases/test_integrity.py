@@ -119,6 +119,20 @@ def test_odd_neighbourhoods_find_the_ring_and_the_star(stored: Any) -> None:
     assert sum(pts["people"]) == d["people_fitted"] == int((deg >= 2).sum())
 
 
+def test_separate_circles_find_the_ring_of_people_with_contacts_of_their_own(stored: Any) -> None:
+    # Source: planted structure. The ring's 12 members were ordinary members of the
+    # preferential-attachment graph, so each keeps contacts who know nobody in the ring
+    # (NetworkX: two or more components among the member's neighbours; 10 of the 12 here,
+    # the other two have contacts who also know ring members).
+    G, v = stored
+    assert sum(nx.number_connected_components(G.subgraph(G[i])) >= 2 for i in RING) == 10
+    params = OddNeighbourhoodsParams(top=12, ring_score="separate_circles")
+    out = find_odd_neighbourhoods(v, params, progress=_noop)
+    assert len({p["node_id"] for p in out.data["near_cliques"]} & ids(RING)) >= 11
+    shared = find_odd_neighbourhoods(v, OddNeighbourhoodsParams(top=12), progress=_noop).data
+    assert out.data["near_stars"] == shared["near_stars"]
+
+
 def test_plain_fit_is_numpy_polyfit_on_the_log_scales(stored: Any) -> None:
     G, v = stored
     d = find_odd_neighbourhoods(v, OddNeighbourhoodsParams(fit="least_squares", ring_score="own"),

@@ -17,6 +17,7 @@ from .dense_groups import (
 )
 
 from .egonet import (
+    contact_circles,
     ego_features,
     EgoFeatures,
     FIT_METHODS,
@@ -42,6 +43,7 @@ __all__ = [
     "OddballResult",
     "OddPerson",
     "RING_SCORES",
+    "contact_circles",
     "ego_features",
     "lof_scores",
     "oddball",

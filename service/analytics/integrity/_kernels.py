@@ -19,7 +19,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-__all__ = ["ego_triangles", "ego_eigenvalues", "peel", "symmetric_csr"]
+__all__ = ["contact_components", "ego_triangles", "ego_eigenvalues", "peel", "symmetric_csr", "tie_triangle_mean"]
 
 
 @njit(cache=True, nogil=True)
@@ -84,7 +84,7 @@ def ego_triangles(n, out_ptr, out_idx, out_w):  # type: ignore[no-untyped-def]
 
 @njit(cache=True, nogil=True)
 def tie_triangle_mean(n, out_ptr, out_idx, values):  # type: ignore[no-untyped-def]
-    """Per node, ``sum_j t_ij values[j]`` and ``sum_j t_ij`` over its ties ``i - j``.
+    """Per node, ``sum_j t_ij values[j, c]`` (each column ``c``) and ``sum_j t_ij`` over its ties ``i - j``.
 
     ``t_ij`` is the number of triangles on the tie (common contacts of ``i``
     and ``j``), counted by the forward algorithm over ``(out_ptr, out_idx)``
@@ -105,7 +105,8 @@ def tie_triangle_mean(n, out_ptr, out_idx, values):  # type: ignore[no-untyped-d
                     ties[p] += 1
                     ties[q] += 1
                     ties[where[x]] += 1
-    mass = np.zeros(n, np.float64)
+    cols = values.shape[1]
+    mass = np.zeros((n, cols), np.float64)
     total = np.zeros(n, np.float64)
     for u in range(n):
         for p in range(out_ptr[u], out_ptr[u + 1]):
@@ -113,8 +114,9 @@ def tie_triangle_mean(n, out_ptr, out_idx, values):  # type: ignore[no-untyped-d
             t = ties[p]
             total[u] += t
             total[v] += t
-            mass[u] += t * values[v]
-            mass[v] += t * values[u]
+            for c in range(cols):
+                mass[u, c] += t * values[v, c]
+                mass[v, c] += t * values[u, c]
     return mass, total
 
 
@@ -302,3 +304,73 @@ def peel(n, indptr, indices, data, alive):  # type: ignore[no-untyped-def]
                 prio[v] -= data[p]
                 size = _heap_push(keys, vals, size, prio[v], v)
     return order, mass
+
+
+
+@njit(cache=True, nogil=True)
+def _find(parent, a):  # type: ignore[no-untyped-def]
+    """Root of ``a`` in the union-find forest ``parent``, halving the path on the way."""
+    while parent[a] != a:
+        parent[a] = parent[parent[a]]
+        a = parent[a]
+    return a
+
+
+@njit(cache=True, nogil=True)
+def _slot(indptr, indices, row, col):  # type: ignore[no-untyped-def]
+    """Position of ``col`` in the sorted row ``row`` of a symmetric CSR."""
+    lo = indptr[row]
+    return lo + np.searchsorted(indices[lo:indptr[row + 1]], col)
+
+
+@njit(cache=True, nogil=True)
+def contact_components(n, indptr, indices, out_ptr, out_idx):  # type: ignore[no-untyped-def]
+    """Connected components of every person's contact graph, in one pass over the triangles.
+
+    The contact graph of ``i`` holds ``i``'s contacts and the ties among
+    them (``i`` left out). Slot ``s`` of row ``i`` of the symmetric CSR
+    ``(indptr, indices)`` stands for one contact of ``i``; each triangle
+    ``(u, v, x)``, found once from its lowest node by the forward algorithm
+    over ``(out_ptr, out_idx)`` [1]_, ties ``v`` to ``x`` among ``u``'s
+    contacts, ``u`` to ``x`` among ``v``'s and ``u`` to ``v`` among ``x``'s.
+    Union-find over the slots counts the merges per person; the components
+    number the contacts less the merges. O(m^1.5) like the triangle count,
+    plus a binary search per tie.
+    """
+    parent = np.arange(indptr[n])
+    merges = np.zeros(n, np.int64)
+    fwd = np.empty(out_idx.shape[0], np.int64)  # slot of the forward tie p in its lower row
+    rev = np.empty(out_idx.shape[0], np.int64)  # and in its upper row
+    for u in range(n):
+        for p in range(out_ptr[u], out_ptr[u + 1]):
+            fwd[p] = _slot(indptr, indices, u, out_idx[p])
+            rev[p] = _slot(indptr, indices, out_idx[p], u)
+    stamp = np.full(n, -1, np.int64)
+    where = np.zeros(n, np.int64)
+    for u in range(n):
+        for p in range(out_ptr[u], out_ptr[u + 1]):
+            stamp[out_idx[p]] = u
+            where[out_idx[p]] = p
+        for p in range(out_ptr[u], out_ptr[u + 1]):
+            v = out_idx[p]
+            for q in range(out_ptr[v], out_ptr[v + 1]):
+                x = out_idx[q]
+                if stamp[x] != u:
+                    continue
+                r = where[x]
+                for k in range(3):
+                    if k == 0:  # at u: v and x
+                        ego, a, b = u, fwd[p], fwd[r]
+                    elif k == 1:  # at v: u and x
+                        ego, a, b = v, rev[p], fwd[q]
+                    else:  # at x: u and v
+                        ego, a, b = x, rev[r], rev[q]
+                    ra = _find(parent, a)
+                    rb = _find(parent, b)
+                    if ra != rb:
+                        parent[rb] = ra
+                        merges[ego] += 1
+    out = np.empty(n, np.int64)
+    for i in range(n):
+        out[i] = indptr[i + 1] - indptr[i] - merges[i]
+    return out
