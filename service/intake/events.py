@@ -296,6 +296,16 @@ def read_events_csv(fh: BinaryIO, people: Interner, events: Interner, *, columns
 def _read_fast(fh: BinaryIO, people: Interner, events: Interner, cols: EventColumns, limits: SizeLimits,
                delimiter: str, threads: int) -> EventRows | None:
     """The rows by Arrow's reader (:mod:`.arrow_csv`); None when the exact reader must decide."""
+    try:
+        return _rows_fast(fh, people, events, cols, limits, delimiter, threads)
+    finally:
+        # Arrow's allocator keeps freed blocks for reuse: hand them back, the job that
+        # follows an upload needs the memory more.
+        pa.default_memory_pool().release_unused()
+
+
+def _rows_fast(fh: BinaryIO, people: Interner, events: Interner, cols: EventColumns, limits: SizeLimits,
+               delimiter: str, threads: int) -> EventRows | None:
     tc, wc = cols.time_column, cols.weight_column
     got = arrow_csv.read_string_columns(fh, delimiter, [cols.person, cols.event, tc, wc], threads=threads)
     if got is None:
