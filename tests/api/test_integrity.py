@@ -8,7 +8,9 @@ preferential-attachment graph from NetworkX.
 from __future__ import annotations
 
 import csv
+import html
 import io
+import json
 from pathlib import Path
 from typing import Any
 
@@ -95,6 +97,21 @@ async def test_dense_groups_over_http(client: Any) -> None:
     table = list(csv.reader(io.StringIO((await client.get(f"/v1/jobs/{jid}/result.csv")).text)))
     assert table[0] == ["group", "found_in", "people", "density", "node_id", "label", "evidence"]
     assert len(table) - 1 == sum(g["people"] for g in body["groups"])
+    # The whole table's share of possible ties: NetworkX's density of the same graph (nx.density).
+    G = nx.parse_edgelist(edges_csv().splitlines()[1:], delimiter=",")
+    share = {t["found_in"]: t["share_at_random"] for t in body["searched"]}
+    assert share["ties"] == pytest.approx(nx.density(G), rel=1e-3)  # rounded in the answer
+    # Addresses: 210 people, 201 distinct addresses, one each (nodes_csv): 210 links of 210 x 201.
+    assert share["address"] == pytest.approx(210 / (210 * 201), rel=1e-3)
+    r = await client.get(f"/v1/jobs/{jid}/plots/group_density.svg")
+    assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
+    chart = json.loads(html.unescape(r.text.split('<desc id="chart-data">')[1].split("</desc>")[0]))
+    drawn = {g["found_in"]: g for g in chart["groups"]}
+    assert drawn.keys() == by.keys() and drawn["address"]["evidence_kind"] == "sharing address"
+    assert drawn["ties"]["share_present"] == 1.0 and set(drawn["ties"]["members"]) == set(RING)
+    for g in body["groups"]:  # every group is named on the picture
+        assert f"group {g['rank']}: {g['people']} people" in r.text
+    assert "Flags are leads for a person to review, not verdicts." in r.text
 
 
 async def test_refusals_at_job_creation(client: Any) -> None:
