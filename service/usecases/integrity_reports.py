@@ -130,7 +130,7 @@ def _evidence_kind(found_in: str) -> str:
         return "tied to each other"
     if found_in == "sign-up times":
         return "joined together"
-    return f"sharing {found_in}"
+    return f"sharing {found_in.replace('_', ' ')}"
 
 
 def _times_denser(share: float, base: float | None) -> str:
@@ -190,4 +190,4 @@ def group_density(data: dict[str, Any]) -> str:
     series = [{"group": g["rank"], "found_in": g["found_in"], "evidence_kind": _evidence_kind(g["found_in"]),
                "people": g["people"], "share_present": round(s, 4), "share_at_random": b,
                "members": g["members"], "evidence": g["evidence"]} for g, s, b in zip(groups, shares, at_random)]
-    return plots._svg(fig, title, {"groups": series})
+    return plots._svg(fig, title, {"series": series})

@@ -109,7 +109,7 @@ async def test_dense_groups_over_http(client: Any) -> None:
     r = await client.get(f"/v1/jobs/{jid}/plots/group_density.svg")
     assert r.status_code == 200 and r.headers["content-type"].startswith("image/svg+xml")
     chart = json.loads(html.unescape(r.text.split('<desc id="chart-data">')[1].split("</desc>")[0]))
-    drawn = {g["found_in"]: g for g in chart["groups"]}
+    drawn = {g["found_in"]: g for g in chart["series"]}
     assert drawn.keys() == by.keys() and drawn["address"]["evidence_kind"] == "sharing address"
     assert drawn["ties"]["share_present"] == 1.0 and set(drawn["ties"]["members"]) == set(RING)
     for g in body["groups"]:  # every group is named on the picture
@@ -235,6 +235,10 @@ async def test_schedules_read_the_flagging_job_each_time_they_fire(client: Any) 
     pending = r.json()["id"]
     waiting = await schedule({**shortlist, "exclude_flagged": {"job": pending}})
     following = await schedule({**shortlist, "exclude_flagged": {"job": dense}})
+    r = await client.post("/v1/schedules", json={"graph_id": gid, "cron": "0 * * * *", "timezone": "UTC", "job": {
+        "kind": "referral_asks", "params": {"adopters": ["r0", "p5", "p17"], "strict": False,
+                                            "exclude_flagged": {"job": dense}}}})
+    asking = r.json()["id"]
     clock.set(datetime(2030, 3, 1, 10, 0, 1, tzinfo=UTC))
     await asyncio.to_thread(worker.housekeep, purge=False)
     [failed] = (await client.get("/v1/jobs", params={"schedule_id": waiting})).json()["items"]
@@ -248,6 +252,10 @@ async def test_schedules_read_the_flagging_job_each_time_they_fire(client: Any) 
     body = (await client.get(f"/v1/jobs/{first['id']}/result")).json()
     assert set(body["params"]["exclude_flagged"]["node_ids"]) == ring and body["version"] == v
     assert not {s["node_id"] for s in body["seeds"]} & ring
+    [asks] = (await client.get("/v1/jobs", params={"schedule_id": asking})).json()["items"]
+    assert asks["status"] == "succeeded"
+    rows = list(csv.reader(io.StringIO((await client.get(f"/v1/jobs/{asks['id']}/result.csv")).text)))[1:]
+    assert rows and not ({row[0] for row in rows} | {row[3] for row in rows}) & ring
 
     # The next version drops three ring members (and their ties); the schedules follow it.
     gone = RING[:3]
@@ -275,5 +283,5 @@ async def test_schedules_read_the_flagging_job_each_time_they_fire(client: Any) 
     refused = (await client.get(f"/v1/jobs/{refused['id']}")).json()
     assert refused["status"] == "failed" and f"newer than version {v} " in refused["error"]["detail"], refused
     # The scheduler went on: every schedule's next run is the following hour.
-    for sid in (waiting, following, pinned, too_new):
+    for sid in (waiting, following, asking, pinned, too_new):
         assert (await client.get(f"/v1/schedules/{sid}")).json()["next_run_at"] == "2030-03-01T12:00:00Z"
