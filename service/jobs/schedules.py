@@ -158,4 +158,4 @@ def _completed(db: Session, schedule: Schedule) -> tuple[int | None, dict[str, A
                             version=version)
     except (AnalyticsError, JobsError, StorageError) as exc:
         return version, schedule.params, problem_document(exc)
-    return version, done.model_dump(mode="json"), None
+    return version, schedule.params if done is params else done.model_dump(mode="json"), None
