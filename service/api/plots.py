@@ -46,7 +46,10 @@ SVG_RESPONSE: dict[int | str, dict[str, Any]] = {
         "forecast): expected reach per segment. `adoption` (forecast): people reached by round, the "
         "average with its interval and the band holding 90% of campaigns. `outcomes` (forecast): "
         "histogram of simulated campaign outcomes. `degree_distribution` (profile): ties per person, "
-        "log-log, with the fitted power law."
+        "log-log, with the fitted power law. `neighbourhood_law` (odd_neighbourhoods): ties against "
+        "contacts of every person, the fitted law, the near-cliques and near-stars marked. `group_density` "
+        "(dense_groups): each group's share of its possible ties or shared values present, against the "
+        "whole table's, by the kind of evidence."
     ),
     response_class=Response,
     responses=SVG_RESPONSE,

@@ -12,6 +12,7 @@ from fastapi.responses import JSONResponse
 from service.jobs import queueing, registry
 from service.jobs.errors import ResultNotReady
 from service.jobs.schedules import next_run_after
+from service.usecases import integrity_rules
 from storage.repo import graphs as graph_repo
 from storage.repo import idempotency as idem_repo
 from storage.repo import jobs as job_repo
@@ -50,8 +51,13 @@ def create_schedule(
         graph_repo.get_graph(db, tenant, body.graph_id)  # an unknown graph is a 404 before anything else
         next_run = next_run_after(body.cron, body.timezone, now)
         spec = body.job
-        # A schedule without a version follows the newest; only the kind and params are checked now.
-        params = queueing.parse_job_params(registry.get_kind(spec.kind), spec.params).model_dump(mode="json")
+        # A schedule without a version follows the newest; only the kind and params are checked now, and
+        # a job named by exclude_flagged for what cannot change (it exists, flags people, on this graph).
+        parsed = queueing.parse_job_params(registry.get_kind(spec.kind), spec.params)
+        rule = getattr(parsed, "exclude_flagged", None)
+        if rule is not None:
+            integrity_rules.check_named_job(rule, db, tenant, graph_id=body.graph_id)
+        params = parsed.model_dump(mode="json")
         if spec.version is not None:
             queueing.resolve_version(db, tenant, body.graph_id, spec.version)
         schedule = schedule_repo.add_schedule(

@@ -4,7 +4,8 @@ It generates the food cooperative of :mod:`service.cli.scenario`, starts the
 embedded server on a free loopback port (or uses ``--url``/``--key``), creates
 an API key, uploads the CSV files it wrote, runs the profile, scores,
 shortlist and forecast jobs with a progress bar each, simulates a first wave
-of adopters and asks for next contacts and referral asks. It prints a
+of adopters and asks for next contacts and referral asks, then plants a ring
+gaming the sign-up bonus and finds it (``demo_integrity``). It prints a
 readable report, writes it as Markdown with the SVG plots into ``--out``, and
 ends with the cautions every user of relationship data should read.
 """
@@ -30,6 +31,7 @@ from service.settings import Settings
 
 from .demo_campaigns import campaigns_story
 from .demo_events import tasting_events
+from .demo_integrity import integrity_story
 from .scenario import STORES, generate, write_csv
 
 __all__ = ["run_demo", "CAUTIONS"]
@@ -210,8 +212,9 @@ def run_demo(settings: Settings, args: argparse.Namespace, echo: Callable[[str],
         proc, base, key = _start_server(out / "data")
     try:
         demo = Demo(base, key, out, echo)
-        _story(demo, sc, edges_csv, nodes_csv)
+        gid, shortlist = _story(demo, sc, edges_csv, nodes_csv)
         tasting_events(demo, sc, out / "upload", seed=args.seed)
+        integrity_story(demo, sc, gid, out / "upload", seed=args.seed, shortlist=shortlist)
     finally:
         if proc is not None:
             _stop(proc)
@@ -225,7 +228,8 @@ def run_demo(settings: Settings, args: argparse.Namespace, echo: Callable[[str],
     return 0
 
 
-def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
+def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> tuple[str, dict[str, Any]]:
+    """The main story on the members' graph; its id and the shortlist's params (for the integrity part)."""
     ids = sc.ids
     d.section("The scenario")
     d.say(
@@ -278,8 +282,8 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
           "minute on a small machine); later runs start at once.")
     caps = {name: CAP_PER_STORE for name, _ in STORES}
     common = {"model": "ic", "probability": {"scheme": "weighted_cascade"}, "random_seed": 11}
-    sl = d.run_job(gid, "shortlist", {"budget": KITS, "method": "imm", "epsilon": 0.2,
-                                      "max_per_segment": caps, **common}, "shortlist (IMM)")
+    shortlist = {"budget": KITS, "method": "imm", "epsilon": 0.2, "max_per_segment": caps, **common}
+    sl = d.run_job(gid, "shortlist", shortlist, "shortlist (IMM)")
     sdata = sl.get("data", sl)
     seeds = [s["node_id"] for s in sdata.get("seeds", [])]
     if sdata.get("method_note"):
@@ -416,6 +420,7 @@ def _story(d: Demo, sc: Any, edges_csv: Path, nodes_csv: Path) -> None:
               ", ".join(f"{t['node_id']} ({t['exposure']:.2f})" for t in it.get("targets", [])),
               f"{it.get('expected_referrals', 0):.1f}"] for it in ra.get("groups", [])[:5]])
     campaigns_story(d, sc, gid)
+    return gid, shortlist
 
 
 def _count_by_store(rows: list[dict[str, Any]]) -> dict[str, int]:

@@ -58,6 +58,9 @@ class Scenario:
     dst: NDArray[np.int32]
     weight: NDArray[np.float64]
     kits: int = 25
+    # The home each member shares (households of 1 to 4 people of one store); read by the
+    # demo's integrity part for delivery addresses, never uploaded with the ties' files.
+    household: NDArray[np.int32] | None = None
 
     @property
     def members(self) -> int:
@@ -85,6 +88,7 @@ def generate(members: int = 20_000, *, seed: int = 7, cross_store_share: float =
 
     # Households: consecutive members of one store share a home (sizes 1-4).
     sizes = rng.choice([1, 2, 3, 4], size=members, p=[0.35, 0.35, 0.18, 0.12])
+    household = np.arange(members, dtype=np.int32)  # alone unless a household below (no draws of its own)
     start = 0
     for size in sizes:
         if start >= members:
@@ -92,6 +96,7 @@ def generate(members: int = 20_000, *, seed: int = 7, cross_store_share: float =
         end = min(start + int(size), members)
         if end - start > 1 and store[start] == store[end - 1]:
             hh = np.arange(start, end)
+            household[start:end] = start
             a, b = np.triu_indices(len(hh), 1)
             add(hh[a], hh[b], rng.integers(20, 41, size=len(a)).astype(np.float64))
         start = end
@@ -142,6 +147,7 @@ def generate(members: int = 20_000, *, seed: int = 7, cross_store_share: float =
         src=keys[:, 0].astype(np.int32),
         dst=keys[:, 1].astype(np.int32),
         weight=weights,
+        household=household,
     )
 
 

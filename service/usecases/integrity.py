@@ -340,6 +340,21 @@ def _lockstep(version: LoadedVersion, times: NDArray[np.float64], params: DenseG
                               .replace(" target", " contact")) for grp in groups)
 
 
+def _tie_share(g: GraphArrays) -> float:
+    """Share of all possible ties between two people that the graph has (the share at random)."""
+    keep = g.src != g.dst
+    lo, hi = np.minimum(g.src[keep], g.dst[keep]).astype(np.int64), np.maximum(g.src[keep], g.dst[keep])
+    pairs = np.unique(lo * max(g.n, 1) + hi).size
+    return float(pairs / (g.n * (g.n - 1) / 2)) if g.n > 1 else 0.0
+
+
+def _link_share(person: NDArray[np.int64], value: NDArray[np.int64], values: int) -> float:
+    """Share of the possible (person, value) links a table has, among the people it names."""
+    people = np.unique(person).size
+    links = np.unique(person * max(values, 1) + value).size
+    return float(links / (people * values)) if people and values else 0.0
+
+
 def find_dense_groups(version: LoadedVersion, params: DenseGroupsParams, *, progress: Progress) -> Computed:
     """The densest groups in the person graph, in attribute tables and among people who joined together."""
     from service.analytics.integrity import fraudar, fraudar_bipartite
@@ -359,7 +374,8 @@ def find_dense_groups(version: LoadedVersion, params: DenseGroupsParams, *, prog
         groups = fraudar(version.graph, weighting=params.weighting, blocks=params.groups,
                          min_size=params.min_size, created=times, attributes=evidence_tables or None)
         found += [("ties", grp, []) for grp in groups]
-        searched.append({"found_in": "ties", "groups": len(groups), "note": None})
+        searched.append({"found_in": "ties", "groups": len(groups), "note": None,
+                         "share_at_random": _tie_share(version.graph)})
         done += 1
     for name, p, c, values in tables:
         step(f"people sharing {_plural(name)}")
@@ -367,7 +383,8 @@ def find_dense_groups(version: LoadedVersion, params: DenseGroupsParams, *, prog
                                    blocks=params.groups, min_size=params.min_size, column_label=_plural(name),
                                    created=times)
         found += [(name, grp, values) for grp in groups]
-        searched.append({"found_in": name, "groups": len(groups), "note": None})
+        searched.append({"found_in": name, "groups": len(groups), "note": None,
+                         "share_at_random": _link_share(p, c, len(values))})
         done += 1
     if times is not None:
         step("people who joined together")
@@ -377,7 +394,8 @@ def find_dense_groups(version: LoadedVersion, params: DenseGroupsParams, *, prog
         except InvalidParameter:
             groups, note = (), "no two people joined through the same contact within the window"
         found += [("sign-up times", grp, []) for grp in groups]
-        searched.append({"found_in": "sign-up times", "groups": len(groups), "note": note})
+        searched.append({"found_in": "sign-up times", "groups": len(groups), "note": note,
+                         "share_at_random": _tie_share(version.graph)})
     for entry in searched:
         if entry["groups"] == 0 and entry["note"] is None:
             entry["note"] = f"no group of at least {params.min_size} people"

@@ -4,7 +4,10 @@
   (``GET /v1/jobs/{id}/result.csv``), one row per flagged person, or per member of
   each group, with the evidence beside it;
 - :func:`neighbourhood_law`: ties against contacts on log scales, the fitted law,
-  and the near-cliques and near-stars marked (``GET /v1/jobs/{id}/plots/neighbourhood_law.svg``).
+  and the near-cliques and near-stars marked (``GET /v1/jobs/{id}/plots/neighbourhood_law.svg``);
+- :func:`group_density`: each dense group as a bar, the share of its possible ties (or
+  shared values) present against the share in the whole table, coloured by the kind of
+  evidence (``GET /v1/jobs/{id}/plots/group_density.svg``).
 """
 
 from __future__ import annotations
@@ -21,7 +24,8 @@ if TYPE_CHECKING:
 
     from .loading import LoadedVersion
 
-__all__ = ["ODD_HEADER", "GROUP_HEADER", "odd_neighbourhoods_table", "dense_groups_table", "neighbourhood_law"]
+__all__ = ["ODD_HEADER", "GROUP_HEADER", "odd_neighbourhoods_table", "dense_groups_table", "neighbourhood_law",
+           "group_density"]
 
 ODD_HEADER = ["list", "rank", "node_id", "label", "score", "contacts", "ties", "expected_ties",
               "ties_among_contacts", "possible_ties_among_contacts", "evidence"]
@@ -114,4 +118,76 @@ def neighbourhood_law(data: dict[str, Any]) -> str:
     ax.set_title(title, loc="left", fontweight="bold")
     ax.legend(loc="upper left", frameon=True, framealpha=0.92, fontsize=8.5)
     plots._note(fig, "Flags are leads for a person to review, not verdicts.")
+    return plots._svg(fig, title, {"series": series})
+
+
+GROUPS_DRAWN = 15  # bars in the group plot; every group is in the result and the CSV
+
+
+def _evidence_kind(found_in: str) -> str:
+    """Plain words for where a group was found."""
+    if found_in == "ties":
+        return "tied to each other"
+    if found_in == "sign-up times":
+        return "joined together"
+    return f"sharing {found_in.replace('_', ' ')}"
+
+
+def _times_denser(share: float, base: float | None) -> str:
+    if not base or base <= 0:
+        return ""
+    ratio = share / base
+    if ratio < 1.5:
+        return ", about as dense as the whole table"
+    return f", {ratio:,.0f}x the whole table" if ratio >= 10 else f", {ratio:.1f}x the whole table"
+
+
+def group_density(data: dict[str, Any]) -> str:
+    """Each group as a bar: the share of its possible ties (or links) present, against the whole table's."""
+    groups = (data.get("groups") or [])[:GROUPS_DRAWN]
+    if not groups:
+        raise InvalidParameter("the result has no groups to plot", field="name")
+    base = {t["found_in"]: t.get("share_at_random") for t in data.get("searched") or []}
+    kinds = list(dict.fromkeys(_evidence_kind(g["found_in"]) for g in groups))
+    colour = {k: plots.PALETTE[i % len(plots.PALETTE)] for i, k in
+              enumerate(sorted(kinds, key=lambda k: (k != "tied to each other", k == "joined together", k)))}
+    fig, ax = plots._figure()
+    fig.set_size_inches(plots.SIZE[0], max(3.2, 1.9 + 0.5 * len(groups)))
+    y = list(range(len(groups)))[::-1]
+    shares = [g["ties"] / g["possible"] if g["possible"] else 0.0 for g in groups]
+    for k in kinds:
+        idx = [i for i, g in enumerate(groups) if _evidence_kind(g["found_in"]) == k]
+        ax.barh([y[i] for i in idx], [100 * shares[i] for i in idx], height=0.62, color=colour[k], label=k)
+    at_random = [base.get(g["found_in"]) for g in groups]
+    marked = [(y[i], 100 * b) for i, b in enumerate(at_random) if b is not None]
+    if marked:
+        ax.scatter([x for _, x in marked], [yy for yy, _ in marked], marker="|", s=260, color="#222",
+                   linewidths=1.6, zorder=3, label="whole table (people picked at random)")
+    link = {"ties": "ties", "sign-up times": "links"}
+    for i, g in enumerate(groups):
+        what = link.get(g["found_in"], "links")
+        text = (f"{g['ties']:,} of {g['possible']:,} possible {what}"
+                f"{_times_denser(shares[i], at_random[i])}")
+        inside = shares[i] > 0.55
+        ax.text(100 * shares[i] + (-1.2 if inside else 1.2), y[i], text, va="center",
+                ha="right" if inside else "left", fontsize=8.5, color="white" if inside else "#333")
+    names = []
+    for g in groups:
+        who = ", ".join(g["members"][:3]) + (", ..." if g["people"] > 3 else "")
+        names.append(f"group {g['rank']}: {g['people']:,} people\n{who[:34]}")
+    ax.set_yticks(y, names, fontsize=8.5)
+    ax.set_xlim(0, 100)
+    ax.set_ylim(-0.6, len(groups) - 0.4)
+    ax.set_xlabel("share of the possible ties (or shared values) present among the members, %")
+    ax.grid(axis="y", visible=False)
+    more = len(data.get("groups") or []) - len(groups)
+    title = "Dense groups: how tightly each is knit" + (f" (the first {len(groups)}; {more:,} more in the CSV)"
+                                                         if more > 0 else "")
+    ax.set_title(title, loc="left", fontweight="bold", pad=24)
+    ax.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=len(kinds) + int(bool(marked)), frameon=False,
+              fontsize=8.5, borderaxespad=0.2, handlelength=1.4)
+    plots._note(fig, "Flags are leads for a person to review, not verdicts.")
+    series = [{"group": g["rank"], "found_in": g["found_in"], "evidence_kind": _evidence_kind(g["found_in"]),
+               "people": g["people"], "share_present": round(s, 4), "share_at_random": b,
+               "members": g["members"], "evidence": g["evidence"]} for g, s, b in zip(groups, shares, at_random)]
     return plots._svg(fig, title, {"series": series})

@@ -80,6 +80,9 @@ class SearchedTable(_Open):
     found_in: str
     groups: int
     note: str | None = None
+    share_at_random: float | None = Field(
+        default=None, description="Share of the possible ties (or person-value links) the whole table has: "
+                                  "what a group of people picked at random would show.")
 
 
 class DenseGroupsResult(Result):

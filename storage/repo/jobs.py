@@ -77,8 +77,12 @@ def add_job(
     request_hash: str | None = None,
     schedule_id: str | None = None,
     scheduled_for: datetime | None = None,
+    error: dict[str, Any] | None = None,
 ) -> tuple[Job, bool]:
     """Queue a job; return ``(job, created)``.
+
+    With ``error`` (a problem document) the job is recorded ``failed`` at once, never
+    run: a schedule's firing whose params could not be completed.
 
     With an idempotency key already used by this tenant, the existing job is
     returned (``created`` False) when ``request_hash`` matches, and
@@ -96,7 +100,9 @@ def add_job(
         version=version,
         kind=kind,
         params=params,
-        status="queued",
+        status="queued" if error is None else "failed",
+        error=error,
+        finished_at=None if error is None else now,
         priority=priority,
         attempts=0,
         max_attempts=max_attempts,

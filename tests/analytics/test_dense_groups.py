@@ -149,6 +149,16 @@ def test_shared_attributes_and_created_span_in_the_evidence() -> None:
                             "all created within 3 days")
 
 
+def test_a_wide_sign_up_span_is_left_out_of_the_evidence() -> None:
+    # Source: hand-made table as above; the 5 accounts were created over 300 days of a
+    # table spanning 400: no sign of signing up together, so the span is not quoted.
+    person = np.concatenate((np.repeat(np.arange(5), 2), np.arange(5, 35)))
+    value = np.concatenate((np.tile([900, 901], 5), np.arange(1000, 1030)))
+    created = np.concatenate((np.array([0.0, 100, 200, 250, 300]) * 86400, np.full(30, 400 * 86400.0)))
+    (grp,) = shared_attribute_groups(person, value, n_people=35, label="addresses", created=created)
+    assert grp.evidence == "5 accounts sharing 2 addresses (10 of the 10 possible links)"
+
+
 def test_person_group_evidence_reads_as_plain_words() -> None:
     # Source: hand-made case. 12 accounts with 61 of the 66 possible ties, created on days
     # 0 to 2.5, two addresses each held by several of them; 40 others on a path.

@@ -25,6 +25,7 @@ SECTIONS = [
     "## First wave",
     "## Learning from past campaigns",
     "## Ties from tasting attendance",
+    "## Referral integrity",
     "## Cautions",
 ]
 
@@ -55,8 +56,8 @@ def test_demo_report_has_every_section_and_valid_plots(tmp_path: Path) -> None:
     assert "-0 " not in report and "| -0 |" not in report
     assert str(tmp_path) not in report  # no absolute paths of the machine
     svgs = sorted(p.name for p in out.glob("*.svg"))
-    assert svgs == ["adoption.svg", "backtest.svg", "degree_distribution.svg", "outcomes.svg", "reach_curve.svg",
-                    "segment_reach.svg"]
+    assert svgs == ["adoption.svg", "backtest.svg", "degree_distribution.svg", "group_density.svg",
+                    "neighbourhood_law.svg", "outcomes.svg", "reach_curve.svg", "segment_reach.svg"]
     for p in out.glob("*.svg"):
         root = ET.fromstring(p.read_text())  # valid XML
         desc = root.find("{http://www.w3.org/2000/svg}desc")
@@ -73,6 +74,20 @@ def test_demo_report_has_every_section_and_valid_plots(tmp_path: Path) -> None:
     learning = report[report.index("## Learning from past campaigns"):report.index("## Cautions")]
     assert "hidden truth" in learning and "The learned model's forecasts were off by" in learning
     assert (out / "upload" / "edges.csv").exists() and (out / "upload" / "members.csv").exists()
+    # Referral integrity: the planted ring (signup_ring.csv, all of its members tied to each other) is
+    # listed among the near-cliques and shows among the dense groups; the shortlist leaves flagged people out.
+    ring = sorted({p for line in (out / "upload" / "signup_ring.csv").read_text().splitlines()[1:]
+                   for p in line.split(",")[:2]})
+    assert len(ring) == 8
+    integrity = report[report.index("## Referral integrity"):report.index("## Cautions")]
+    assert "8 of the 8 in the sign-up ring" in integrity
+    rows = [r.split("|")[1:-1] for r in integrity.splitlines() if re.match(r"\| \d+ \| ", r)]
+    in_ring = {r[1].strip(): max(int(x[3]) for x in rows if x[1] == r[1]) for r in rows}
+    # The 7 new accounts opened within 2 days (RING_DAYS) join through the same contacts.
+    assert in_ring["sign-up times"] >= 7 and "The sign-up ring is in group" in integrity
+    assert "stands out most from its table" in integrity
+    assert "not verdicts" in integrity and "were left out" in integrity
+    assert "![dense groups](group_density.svg)" in integrity
 
 
 def test_scenario_has_the_claimed_properties(tmp_path: Path) -> None:
@@ -84,6 +99,15 @@ def test_scenario_has_the_claimed_properties(tmp_path: Path) -> None:
     stores = [set(np.flatnonzero(sc.store == s).tolist()) for s in range(len(STORES))]
     # Community structure: modularity of the store partition (Newman 2006, NetworkX).
     assert nx.community.modularity(G, stores) > 0.3
+    # Households (the demo's shared delivery addresses): 1 to 4 people of one store, each a clique
+    # of ties (NetworkX's subgraph density is 1 for a complete graph).
+    homes: dict[int, list[int]] = {}
+    for i, h in enumerate(sc.household.tolist()):  # type: ignore[union-attr]
+        homes.setdefault(h, []).append(i)
+    assert max(len(m) for m in homes.values()) == 4 and sum(len(m) > 1 for m in homes.values()) > 500
+    for m in homes.values():
+        assert len({int(sc.store[i]) for i in m}) == 1
+        assert len(m) == 1 or nx.density(G.subgraph(m)) == 1.0
     # Consent share about 70%.
     assert 0.66 < sc.consent.mean() < 0.74
     # Heavy tail: the largest degree is far above an Erdos-Renyi graph's of the same density.

@@ -189,6 +189,34 @@ def test_dense_groups_in_ties_attributes_and_sign_up_times(stored: Any) -> None:
     assert len(table) == sum(g["people"] for g in d["groups"]) and len(table[0]) == len(header)
 
 
+def test_group_plot_draws_each_group_against_its_whole_table(stored: Any) -> None:
+    G, v = stored
+    params = DenseGroupsParams(attributes=["address", "device"], value_separator=";", time_column="signed_up",
+                               window_hours=2, groups=2)
+    d = find_dense_groups(v, params, progress=_noop).data
+    share = {t["found_in"]: t["share_at_random"] for t in d["searched"]}
+    assert share["ties"] == pytest.approx(nx.density(G))  # NetworkX's density of the same graph
+    assert share["sign-up times"] == share["ties"]
+    # Devices by hand from attributes(): the first 6 of the ring hold d-1 and d-2; 2 in 3 of the others
+    # one device of their own; links over (people with a device) x (devices).
+    others = [i for i in range(G.number_of_nodes()) if i not in RING[:6] and i % 3]
+    people, values = 6 + len(others), 2 + len(others)
+    assert share["device"] == pytest.approx((12 + len(others)) / (people * values))
+    svg = reports.group_density(d)
+    drawn = json.loads(unescape(re.search(r'<desc id="chart-data">(.*?)</desc>', svg, re.S).group(1)))  # type: ignore[union-attr]
+    assert [x["group"] for x in drawn["series"]] == [g["rank"] for g in d["groups"]]
+    ring = drawn["series"][0]
+    assert ring["found_in"] == "ties" and ring["share_present"] == 1.0 and ring["evidence_kind"] == "tied to each other"
+    assert {x["evidence_kind"] for x in drawn["series"]} == {"tied to each other", "sharing address", "sharing device",
+                                                             "joined together"}
+    assert all(x["share_at_random"] == share[x["found_in"]] for x in drawn["series"])
+    assert "group 1: 12 people" in svg and "66 of 66 possible ties" in svg and "not verdicts" in svg
+    many = {**d, "groups": [{**d["groups"][0], "rank": r} for r in range(1, 21)]}
+    assert "the first 15; 5 more in the CSV" in reports.group_density(many)
+    with pytest.raises(InvalidParameter, match="no groups to plot"):
+        reports.group_density({**d, "groups": []})
+
+
 def test_bad_input_names_what_is_wrong(stored: Any) -> None:
     _, v = stored
     cases: list[tuple[DenseGroupsParams, str, str]] = [

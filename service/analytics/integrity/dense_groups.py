@@ -93,6 +93,12 @@ def _span_text(times: NDArray[np.float64] | None, members: NDArray[np.int64]) ->
     if t.size < members.size:
         return ""
     days = float(t.max() - t.min()) / 86400.0
+    # A span is evidence only when it is tight: within a week, or within a tenth of the time
+    # the whole table spans (our choice). "All created within 2,670 days" says nothing.
+    every = times[np.isfinite(times)]
+    whole = float(every.max() - every.min()) / 86400.0 if every.size else 0.0
+    if days > 7.0 and days > 0.1 * whole:
+        return ""
     return f", all created within {max(1, int(np.ceil(days))):,} day{'s' if days > 1 else ''}"
 
 

@@ -26,6 +26,7 @@ KIND = JobKind(
     result=DenseGroupsResult,
     run=run,
     csv=integrity_reports.dense_groups_table,
+    plots={"group_density": integrity_reports.group_density},
     estimate=admission.linear_estimate,
     precheck=precheck_dense_groups,
     summary="Dense groups: people tied far more tightly than the rest, sharing devices or addresses, "
@@ -34,6 +35,6 @@ KIND = JobKind(
         "groups [{rank, found_in, people, density, ties, possible, members, shared_values, evidence}] found "
         "by greedy peeling (Charikar 2000) with the camouflage-resistant weights of Hooi et al. (2016, "
         "FRAUDAR) in the person graph, in attribute columns and among people who joined through the same "
-        "contacts within a window; searched; guarantee; caution. Leads for a person to review, not verdicts."
+        "contacts within a window; searched [{found_in, groups, note, share_at_random}]; guarantee; caution. Leads for a person to review, not verdicts."
     ),
 )
