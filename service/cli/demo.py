@@ -102,8 +102,9 @@ class Demo:
             if not job.get("progress") and job["status"] in ("queued", "running") and time.monotonic() - start > 3:
                 # The first job of each kind after an install compiles its kernels in the worker.
                 message = "compiling (first run only, about a minute)"
-            _bar(label, float(job.get("progress") or 0.0), message, self.echo)
-            if job["status"] in ("succeeded", "failed", "cancelled"):
+            final = job["status"] in ("succeeded", "failed", "cancelled")
+            _bar(label, float(job.get("progress") or 0.0), message, self.echo, final=final)
+            if final:
                 break
         self.echo("")
         if job["status"] != "succeeded":
@@ -132,7 +133,7 @@ def _numeric(s: str) -> bool:
     return s.replace(",", "").replace(".", "", 1).replace("-", "", 1).isdigit()
 
 
-def _bar(label: str, fraction: float, message: str, echo: Callable[[str], None]) -> None:
+def _bar(label: str, fraction: float, message: str, echo: Callable[[str], None], *, final: bool = False) -> None:
     n = int(round(max(0.0, min(1.0, fraction)) * 30))
     line = f"  {label:<22} [{'#' * n}{'.' * (30 - n)}] {fraction * 100:5.1f}%  {message[:44]:<44}"
     if echo is not print:
@@ -140,8 +141,8 @@ def _bar(label: str, fraction: float, message: str, echo: Callable[[str], None])
     if sys.stdout.isatty():
         sys.stdout.write("\r" + line)
         sys.stdout.flush()
-    elif fraction >= 1.0 or message in ("succeeded", "failed", "cancelled"):
-        sys.stdout.write(line.rstrip())  # a log file gets the final state only
+    elif final:
+        sys.stdout.write(line.rstrip())  # a log file gets the final state only, once
 
 
 def _free_port() -> int:

@@ -99,8 +99,14 @@ def neighbourhood_law(data: dict[str, Any]) -> str:
         ax.scatter(fx, fy, s=46, color=colour, marker=marker, edgecolors="white", linewidths=0.6, zorder=3,
                    label=f"{name}s flagged ({len(flagged):,})")
         for p in flagged[:1]:
+            # Near-cliques crowd together: their label sits above-left with a pointer and a
+            # white backing, clear of the other markers.
+            above = marker == "^"
             ax.annotate("top: " + str(p.get("label") or p["node_id"])[:24], (p["contacts"], p["ties"]), fontsize=8,
-                        xytext=(4, 3), textcoords="offset points", color=colour)
+                        xytext=(-8, 16) if above else (4, 3), textcoords="offset points", color=colour,
+                        ha="right" if above else "left",
+                        bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.85},
+                        arrowprops={"arrowstyle": "-", "color": colour, "lw": 0.7} if above else None)
         series.append({"name": f"{name}s", "x": fx, "y": fy, "node_ids": [p["node_id"] for p in flagged]})
     top = max(max(ys), *(p["ties"] for k, _ in _LISTS for p in data.get(k) or []))
     ax.set_xlim(lo / 1.4, hi * 1.4)
