@@ -22,11 +22,10 @@ from __future__ import annotations
 
 import logging
 from datetime import UTC, datetime
+from typing import Any
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 
 from croniter import CroniterError, croniter
-from typing import Any
-
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.analytics.errors import AnalyticsError

@@ -9,6 +9,7 @@ import pytest
 from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
+import tests.jobs.kinds  # noqa: F401  registers the test_graph kind the schedules fire
 from service.jobs.clock import FakeClock
 from service.jobs.errors import InvalidSchedule
 from service.jobs.schedules import check_schedule, fire_due, next_run_after
