@@ -211,3 +211,36 @@ async def test_planted_groups_survive_and_huge_event_ties_do_not(client: Any, ba
     assert same == set(ties) and len(same) >= 90, (len(same), len(ties))
     assert body["summary"]["projection"]["ties"] == 50 * 49 // 2
     assert body["summary"]["backbone"]["edge_share_kept"] <= 100 / 1225
+
+
+async def test_large_file_reader_over_http_matches_networkx_and_refuses_like_the_exact_one(
+        client: Any, monkeypatch: pytest.MonkeyPatch) -> None:
+    # The Arrow reader takes files of FAST_BYTES or more; lowered here so the Davis table takes it.
+    from service.intake import _arrow_csv
+
+    monkeypatch.setattr(_arrow_csv, "FAST_BYTES", 0)
+    calls: list[int] = []
+    real = _arrow_csv.read_string_columns
+
+    def spy(*args: Any, **kwargs: Any) -> Any:
+        calls.append(1)
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(_arrow_csv, "read_string_columns", spy)
+    gid = await _graph(client)
+    await _upload(client, gid, _csv(_davis_rows()), projection="newman", max_event_size=0)
+    assert calls  # read by the fast path
+    g = nx.davis_southern_women_graph()
+    women = [n for n, d in g.nodes(data=True) if d["bipartite"] == 0]
+    # Source: NetworkX collaboration_weighted_projected_graph (Newman 2001).
+    want = {tuple(sorted((a, b))): d["weight"]
+            for a, b, d in bipartite.collaboration_weighted_projected_graph(g, women).edges(data=True)}
+    got = _edges(client, gid)
+    assert got.keys() == want.keys() and all(abs(got[k] - want[k]) < 1e-12 for k in want)
+    # An empty person id on line 3: the fast path hands the file back, the exact reader names the line.
+    r = await client.post(f"/v1/graphs/{gid}/versions", params={"part": "events"},
+                          content="person,event\nann,t1\n,t1\n", headers=CSV)
+    problem = assert_problem(r, 422, "invalid-upload")
+    assert problem["line"] == 3 and problem["column"] == "person"
+    with client.app.state.sessionmaker() as db:
+        assert graph_repo.get_graph(db, "default", gid).latest_version == 1  # nothing stored
