@@ -24,7 +24,10 @@ it per job from its setting, as it sets :data:`memory_limit`; functions that
 take ``threads=`` fall back to it through :func:`thread_count`. Work is split
 into contiguous index ranges, one per thread, run by :func:`map_ordered` in one
 process-wide pool of threads (the compiled loops release the GIL), and the parts
-are merged in index order, so results never depend on the thread count.
+are merged in index order, so results never depend on the thread count. Where
+parts of equal size take unequal time (RR sets vary in size, and on a shared
+virtual machine one core may run slower than the other), :func:`map_shared` cuts
+the work into several pieces per thread, which the threads take in turn.
 """
 
 from __future__ import annotations
@@ -41,7 +44,7 @@ from .errors import InvalidParameter, TooExpensive
 
 __all__ = [
     "ChunkSizer", "TARGET_SECONDS", "memory_limit", "check_memory", "run_chunked",
-    "thread_limit", "usable_cores", "thread_count", "split_range", "map_ordered",
+    "thread_limit", "usable_cores", "thread_count", "split_range", "map_ordered", "map_shared",
 ]
 
 T = TypeVar("T")
@@ -197,3 +200,35 @@ def map_ordered(fn: Callable[..., T], calls: Sequence[tuple[object, ...]]) -> li
         if exc is not None:
             raise exc
     return [f.result() for f in futures] + [last]
+
+
+def map_shared(fn: Callable[..., T], calls: Sequence[tuple[object, ...]], workers: int) -> list[T]:
+    """``[fn(w, *args) for args in calls]`` run by ``workers`` threads of the shared pool,
+    each taking the next call not yet taken, results in the order of ``calls``.
+
+    ``w`` is the number (0 .. workers-1) of the thread running the call, so ``fn`` can use
+    that thread's buffers; which thread runs which call varies from run to run, so a
+    call's result must depend on its arguments only. A thread that finishes early takes
+    more calls instead of waiting for a slower one. After a call fails no new call
+    starts, and a failure is raised once all threads have stopped.
+    """
+    workers = max(1, min(workers, len(calls)))
+    out: list[T | None] = [None] * len(calls)
+    order = iter(range(len(calls)))
+    lock = threading.Lock()
+    failed: list[BaseException] = []
+
+    def worker(w: int) -> None:
+        while not failed:
+            with lock:
+                i = next(order, -1)
+            if i < 0:
+                return
+            try:
+                out[i] = fn(w, *calls[i])
+            except BaseException as exc:
+                failed.append(exc)
+                raise
+
+    map_ordered(worker, [(w,) for w in range(workers)])
+    return out  # type: ignore[return-value]  # every slot was filled: no call failed

@@ -214,6 +214,63 @@ def test_parts_run_in_order_and_nested_calls_do_not_wait_on_the_pool():
         _chunks.map_ordered(boom, [(0,), (1,), (2,)])
 
 
+def test_shared_calls_are_taken_by_free_threads_and_return_in_order():
+    import threading
+    import time
+
+    taken: dict[int, list[int]] = {}
+    lock = threading.Lock()
+
+    def call(w, i):
+        with lock:
+            taken.setdefault(w, []).append(i)
+        if i == 0:
+            time.sleep(0.3)  # one slow call: the other thread takes the rest meanwhile
+        return i * i
+
+    assert _chunks.map_shared(call, [(i,) for i in range(12)], 2) == [i * i for i in range(12)]
+    assert set(taken) <= {0, 1}
+    slow = next(w for w, calls in taken.items() if 0 in calls)
+    assert taken[slow] == [0]  # busy with the slow call while the other took all 11
+    assert sorted(taken[1 - slow]) == list(range(1, 12))
+    for calls in taken.values():
+        assert calls == sorted(calls)  # each thread takes the calls in index order
+
+    started: list[int] = []
+
+    def boom(w, i):
+        started.append(i)
+        if i == 2:
+            raise ValueError("call 2")
+        return i
+
+    with pytest.raises(ValueError, match="call 2"):
+        _chunks.map_shared(boom, [(i,) for i in range(50)], 1)
+    assert started == [0, 1, 2]  # nothing started after the failure
+
+
+def test_rr_sets_are_identical_when_one_thread_runs_slow(small_parts, monkeypatch):
+    # Which thread samples which piece depends on timing; the store must not.
+    dg = random_graph(400, 3000, seed=9)
+    key = K.stream_key(5, 1)
+    ref = RRCollection(RRSampler(dg, threads=1), key)
+    ref.extend_to(3000)
+    real = _rr_parts.call_kernel
+    import time
+
+    def slow_first_thread(fn, smp, sc, *args):
+        if sc is smp.scratch[0]:
+            time.sleep(0.002)
+        return real(fn, smp, sc, *args)
+
+    monkeypatch.setattr(_rr_parts, "call_kernel", slow_first_thread)
+    par = RRCollection(RRSampler(dg, threads=3), key)
+    par.extend_to(3000)
+    assert np.array_equal(par.nodes, ref.nodes)
+    assert np.array_equal(par.offsets, ref.offsets)
+    assert par.examined == ref.examined
+
+
 @pytest.mark.parametrize("method", ["imm", "opim"])
 def test_brute_force_guarantees_hold_with_four_threads(small_parts, method):
     # The checks of tests/jobs/test_shortlist_kind.py (exact enumeration of every

@@ -14,11 +14,11 @@ pointers and counts. Sampling with lanes (large graphs) adds per node
 per lane of queue space, of which only the pages the largest sets reach are
 ever committed.
 
-Threads. A sampler splits each batch of sets into one contiguous index range per
-thread, sampled into per-thread buffers and appended to the store in index order
-(:mod:`._rr_parts`): the store is bit-identical whatever the thread count and is
-never held twice. Coverage counts (:meth:`RRSampler.count_hits`) are split the
-same way and added.
+Threads. A sampler cuts each batch of sets into contiguous index ranges, a few per
+thread, which the threads take in turn; each is sampled into its thread's buffers and
+the ranges are appended to the store in index order (:mod:`._rr_parts`): the store is
+bit-identical whatever the thread count and is never held twice. Coverage counts
+(:meth:`RRSampler.count_hits`) are split into one range per thread and added.
 """
 
 from __future__ import annotations

@@ -1,17 +1,18 @@
-"""RR sampling over threads: per-thread buffers, one index range per thread, parts merged
-in index order.
+"""RR sampling over threads: per-thread buffers, pieces of index ranges taken by the threads
+in turn, pieces merged in index order.
 
 Private to :mod:`service.analytics.seeding._rr`, whose :class:`~._rr.RRCollection` calls
-these. A batch of sets ``count .. count+want-1`` is split into one contiguous index range
-per thread (:func:`.._chunks.split_range`); every thread samples its range into buffers of
-its own (:class:`Scratch`: visit marks, lane marks and queues, a store for that batch only)
-and the parts are appended to the collection's store in index order. Set ``j`` depends only
+these. A batch of sets ``count .. count+want-1`` is cut into contiguous index ranges, a few
+per thread (:func:`.._chunks.split_range`), which the threads take in turn
+(:func:`.._chunks.map_shared`); every thread samples its pieces into buffers of its own (:class:`Scratch`:
+visit marks, lane marks and queues, a store for that batch only) and the pieces are
+appended to the collection's store in index order. Set ``j`` depends only
 on ``(key, j)``, so the store is bit-identical whatever the thread count, and the extra
 memory is one batch of sets per thread (its share of about a quarter second of work), never
 a second copy of the store. The sampler keeps the buffers, so the next collection reuses
 their pages: first writes to fresh pages cost far more than the sampling on some machines.
 
-The inverted index (node -> sets) is built the same way (:func:`index_parallel`): thread
+The inverted index (node -> sets) is built over one range per thread (:func:`index_parallel`): thread
 ``t`` counts, then fills, the members of its range of sets into its own slots of every row,
 which start after those of the threads before it, so every row lists its sets in ascending
 order, as one thread would.
@@ -27,13 +28,14 @@ from numpy.typing import NDArray
 
 from . import _rr_kernels as K
 from . import _rr_lanes
-from .._chunks import map_ordered, split_range
+from .._chunks import map_ordered, map_shared, split_range
 
 if TYPE_CHECKING:
     from ._rr import RRSampler
 
 __all__ = [
     "PARALLEL_MIN_SETS",
+    "PIECES_PER_THREAD",
     "MARK32_LIMIT",
     "Scratch",
     "marks",
@@ -48,6 +50,12 @@ __all__ = [
 # Batches smaller than this many sets per thread run in one thread: splitting costs
 # a few buffers per thread and a copy, which pays only once each part has some work.
 PARALLEL_MIN_SETS = 64
+
+# A batch is cut into up to this many pieces per thread, taken in turn, so a thread
+# whose sets were larger, or whose core ran slower, holds the others up by one piece at
+# most. Measured on com-DBLP at 2 threads, one piece per thread: the two halves of a
+# batch took 210 and 255 ms, 124 and 159 ms, and the faster thread waited.
+PIECES_PER_THREAD = 8
 
 # Visit marks are set numbers + 1. int32 marks halve the mark array (on com-DBLP it
 # then fits in a core's L2 cache: about 15% faster sampling, measured); a collection
@@ -83,6 +91,7 @@ class Scratch:
     def __init__(self, smp: RRSampler) -> None:
         n = smp.n
         self.owner: object = None
+        self.fill = 0  # entries of the current batch in ``nodes``
         self.stamp: NDArray[np.int32] | NDArray[np.int64] = marks(n, 0)
         self.nodes = np.empty(1 << 12, dtype=np.int32)
         if smp.lanes:
@@ -132,24 +141,32 @@ def call_kernel(fn: Kernel, smp: RRSampler, sc: Scratch, key: np.uint64, first: 
 def sample_parts(fn: Kernel, smp: RRSampler, owner: object, key: np.uint64, first: int,
                  want: int, parts: int, mean: float
                  ) -> list[tuple[NDArray[np.int32], NDArray[np.int64], int]]:
-    """Sets ``first .. first+want-1``, one index range per thread, each into its thread's
-    batch store: per part, in index order, (nodes, set ends relative to the part, in-arcs
-    examined). The node arrays are views of the batch stores: copy them before the next
-    batch. ``mean`` is the expected set size (to size the batch stores)."""
-    calls = [(fn, smp, take_scratch(smp, owner, i, a + c), key, a, c, int(mean * c * 1.25))
-             for i, (a, c) in enumerate(split_range(first, want, parts))]
-    return map_ordered(_sample_part, calls)
+    """Sets ``first .. first+want-1`` over ``parts`` threads: cut into up to
+    ``PIECES_PER_THREAD`` index ranges per thread, which the threads take in turn
+    (:func:`.._chunks.map_shared`), each appended to its thread's batch store. Per piece,
+    in index order: (nodes, set ends relative to the piece, in-arcs examined). The node
+    arrays are views of the batch stores: copy them before the next batch. ``mean`` is
+    the expected set size (to size the batch stores)."""
+    scratch = [take_scratch(smp, owner, i, first + want) for i in range(parts)]
+    share = int(mean * (want / parts) * 1.25)
+    for sc in scratch:
+        sc.fill = 0
+        if sc.nodes.shape[0] < share + smp.n + 16:
+            sc.nodes = np.empty(share + smp.n + 16, dtype=np.int32)
+    pieces = max(parts, min(parts * PIECES_PER_THREAD, want // PARALLEL_MIN_SETS))
+    calls = [(fn, smp, scratch, key, a, c) for a, c in split_range(first, want, pieces)]
+    return map_shared(_sample_piece, calls, parts)
 
 
-def _sample_part(fn: Kernel, smp: RRSampler, sc: Scratch, key: np.uint64, first: int, count: int,
-                 expect: int) -> tuple[NDArray[np.int32], NDArray[np.int64], int]:
-    """Sets ``first .. first+count-1`` into ``sc``'s batch store, grown as needed (``expect``
-    entries are likely). Runs in a pool thread."""
+def _sample_piece(w: int, fn: Kernel, smp: RRSampler, scratch: list[Scratch], key: np.uint64,
+                  first: int, count: int) -> tuple[NDArray[np.int32], NDArray[np.int64], int]:
+    """Sets ``first .. first+count-1`` appended to thread ``w``'s batch store, grown as
+    needed (a view taken before a growth keeps the old array). Runs in a pool thread."""
     n = smp.n
+    sc = scratch[w]
     ends = np.empty(count, dtype=np.int64)
-    done, pos, examined = 0, 0, 0
-    if sc.nodes.shape[0] < expect + n + 16:
-        sc.nodes = np.empty(expect + n + 16, dtype=np.int32)
+    start = pos = sc.fill
+    done, examined = 0, 0
     while done < count:
         if sc.nodes.shape[0] - pos < n + 16:
             sc.nodes = grow(sc.nodes, pos + n + 16)
@@ -159,7 +176,8 @@ def _sample_part(fn: Kernel, smp: RRSampler, sc: Scratch, key: np.uint64, first:
         examined += ex
         if done < count:  # the batch store ran out of room: grow it and go on
             sc.nodes = grow(sc.nodes, sc.nodes.shape[0] + n + 16)
-    return sc.nodes[:pos], ends, examined
+    sc.fill = pos
+    return sc.nodes[start:pos], ends - start, examined
 
 
 def index_parallel(nodes: NDArray[np.int32], offsets: NDArray[np.int64], n: int, count: int,
