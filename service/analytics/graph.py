@@ -18,6 +18,7 @@ from typing import TYPE_CHECKING, Literal, NamedTuple
 import numpy as np
 from numpy.typing import NDArray
 
+from ._grouping import group_order
 from .errors import InvalidParameter
 
 if TYPE_CHECKING:
@@ -261,7 +262,7 @@ def csr(
     >>> c.indptr.tolist(), c.indices.tolist()
     ([0, 1, 1, 3], [1, 0, 1])
     """
-    order = np.argsort(rows, kind="stable")
+    order = group_order(rows, n)
     counts = np.bincount(rows, minlength=n)
     indptr = np.zeros(n + 1, dtype=np.int64)
     np.cumsum(counts, out=indptr[1:])

@@ -20,6 +20,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from .._grouping import group_order
 from .._rng import GAMMA, mix64, unit
 
 __all__ = [
@@ -334,7 +335,7 @@ def vertex_diameter_bound(
     cv = labels[out_indices].astype(np.int64)
     cross = cu != cv
     cu, cv = cu[cross], cv[cross]
-    order = np.argsort(cu, kind="stable")
+    order = group_order(cu, ncomp)
     c_indptr = np.zeros(ncomp + 1, dtype=np.int64)
     np.cumsum(np.bincount(cu, minlength=ncomp), out=c_indptr[1:])
     return int(_longest_chain(ncomp, bound, c_indptr, cv[order]))

@@ -19,6 +19,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from . import _kernels as K
+from .._grouping import group_order
 from ..errors import InvalidParameter
 from ..graph import Csr, GraphArrays, csr
 
@@ -167,7 +168,7 @@ class _Pairs:
         rows = np.concatenate((self.hi, self.lo))
         cols = np.concatenate((self.lo, self.hi))
         pid = np.concatenate((np.arange(self.count), np.arange(self.count)))
-        order = np.argsort(rows, kind="stable")
+        order = group_order(rows, n)
         indptr = np.zeros(n + 1, dtype=np.int64)
         np.cumsum(np.bincount(rows, minlength=n), out=indptr[1:])
         return indptr, np.ascontiguousarray(cols[order]), pid[order]
