@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from service.analytics.seeding import _rr
-from service.analytics.seeding import _rr_lanes
+from service.analytics.seeding import _rr_lanes, _rr_parts
 from service.analytics.seeding import _rr_kernels as K
 from service.analytics.seeding._rr import RRCollection, RRSampler
 from service.analytics.graph import GraphArrays, diffusion_graph
@@ -24,8 +24,10 @@ from service.analytics.graph import GraphArrays, diffusion_graph
 
 @pytest.fixture
 def lanes_always(monkeypatch):
-    """Make every IC sampler use the lanes, whatever the graph's size."""
+    """Make every IC sampler use the lanes, whatever the graph's size (no batch is long
+    enough to put the kernels on trial)."""
     monkeypatch.setattr(_rr, "LANES_MIN_BYTES", -1)
+    monkeypatch.setattr(_rr, "TRIAL_MIN_SECONDS", math.inf)
 
 
 def random_graph(n, m, seed, *, mixed):
@@ -89,7 +91,7 @@ def test_lanes_survive_a_full_store():
     g = GraphArrays(n, True, src, src + 1, np.ones(n - 1))
     dg = diffusion_graph(g, scheme="uniform", p=1.0)
     sampler = RRSampler(dg)
-    sampler.lanes = True
+    sampler.lanes = sampler.lanes_ok = True
     sampler.rec, sampler.recf = _rr_lanes.lane_records(sampler.indptr, sampler.mode, sampler.aux)
     sampler.pend_size = _rr_lanes.LANES * 2
     pend = np.empty(sampler.pend_size, np.int64)
@@ -179,3 +181,63 @@ def test_lt_lanes_give_the_same_sets(lanes_always, scheme, rounds, weighted):
     assert coll.examined == examined
     assert not any(sc.vis.any() for sc in coll.sampler.scratch)
     assert (np.diff(coll.offsets) > 1).any() == (rounds != 0)  # walks longer than the root
+
+
+@pytest.mark.parametrize("model", ["ic", "lt"])
+def test_kernels_on_trial_switch_mid_collection_and_keep_the_sets(monkeypatch, model):
+    # Every batch counts and one of each decides: the first batch runs the lanes, the
+    # second one set at a time, then the faster stays. The store equals the one-at-a-time
+    # kernel's whichever was kept.
+    monkeypatch.setattr(_rr, "LANES_MIN_BYTES", -1)
+    monkeypatch.setattr(_rr, "TRIAL_MIN_SECONDS", 0.0)
+    monkeypatch.setattr(_rr, "TRIAL_BATCHES", 1)
+    n = 400
+    dg = (random_graph(n, 3000, seed=31, mixed=True) if model == "ic"
+          else lt_graph(n, 2500, seed=9, scheme="normalized"))
+    used = []
+    real = _rr_parts.call_kernel
+
+    def spy(fn, smp, *args):
+        used.append(smp.lanes)
+        return real(fn, smp, *args)
+
+    monkeypatch.setattr(_rr_parts, "call_kernel", spy)
+    sampler = RRSampler(dg, threads=1)  # one kernel call per batch
+    key = K.stream_key(8, 2)
+    coll = RRCollection(sampler, key)
+    for target in (300, 600, 900, 3000):
+        coll.extend_to(target)
+    assert used[:2] == [True, False]
+    assert sampler.trial_costs is not None
+    assert set(used[2:]) == {sampler.lanes}
+    assert sampler.lanes == (sampler.trial_costs[True] <= sampler.trial_costs[False])
+    ref = RRSampler(dg)
+    ref.lanes_ok = ref.lanes = False
+    ref._trials = None
+    want = RRCollection(ref, key)
+    want.extend_to(3000)
+    assert np.array_equal(coll.nodes, want.nodes)
+    assert np.array_equal(coll.offsets, want.offsets)
+    assert coll.examined == want.examined
+
+
+def test_the_trial_keeps_the_kernel_that_took_less_time():
+    big = random_graph(40_000, 300_000, seed=2, mixed=False)
+    for lanes_time, single_time, keep_lanes in ((0.02, 0.05, True), (0.05, 0.02, False)):
+        smp = RRSampler(big)
+        assert smp.lanes_ok
+        for _ in range(_rr.TRIAL_BATCHES):
+            for seconds in (lanes_time, single_time):
+                smp.pick_kernel()
+                assert smp.lanes == (seconds == lanes_time)
+                smp.record_batch(seconds, 1000, 20_000)
+        assert smp.lanes is keep_lanes
+        smp.record_batch(1.0, 1000, 20_000)  # decided: later batches change nothing
+        smp.pick_kernel()
+        assert smp.lanes is keep_lanes
+    smp = RRSampler(big)
+    smp.pick_kernel()
+    smp.record_batch(_rr.TRIAL_MIN_SECONDS / 2, 10, 100)  # too short to count
+    smp.pick_kernel()
+    assert smp.lanes  # still the lanes' turn
+    assert not RRSampler(random_graph(100, 400, seed=1, mixed=False)).lanes_ok  # no trial

@@ -54,6 +54,15 @@ BYTES_PER_ENTRY = 8  # int32 node in the store + int32 set id in the inverted in
 # were measured on: a graph that fits there gains nothing from lanes (ca-GrQc above).
 LANES_MIN_BYTES = 1 << 20
 
+# Past that threshold the better kernel depends on the machine's caches and the thread
+# count as much as on the graph: measured on a 2-core machine with 2 MiB of L2 per core
+# and 32 MiB of L3 (one set at a time / lanes, 5 alternating runs): soc-Slashdot0902 1.12
+# on one thread and 1.19 on two, com-DBLP 0.86 and 1.08. So a sampler times both on its
+# first batches of at least TRIAL_MIN_SECONDS, TRIAL_BATCHES each, and keeps the faster.
+# The sets are the same either way; only the time differs.
+TRIAL_MIN_SECONDS = 0.01
+TRIAL_BATCHES = 2
+
 
 Progress = Callable[[float, str], None]
 
@@ -86,8 +95,14 @@ class RRSampler:
             raise InvalidParameter(f"unknown model {dg.model!r}", field="model")
         self.horizon = -1 if rounds is None else int(rounds)
         footprint = self.indices.nbytes + 16 * (self.n + 1)
-        self.lanes = footprint > LANES_MIN_BYTES
-        if self.lanes and self.model == "ic":
+        # Both kernels give the same sets. On a graph past the threshold the sampler starts
+        # with lanes and times both on its first batches (see pick_kernel / record_batch).
+        self.lanes_ok = footprint > LANES_MIN_BYTES
+        self.lanes = self.lanes_ok
+        self._trials: dict[bool, list[tuple[float, int]]] | None = (
+            {True: [], False: []} if self.lanes_ok else None)
+        self.trial_costs: dict[bool, float] | None = None  # seconds per (set + arc), once timed
+        if self.lanes_ok and self.model == "ic":
             self.rec, self.recf = _rr_lanes.lane_records(self.indptr, self.mode, self.aux)
             max_in = int(np.diff(self.indptr).max()) if self.n else 0
             self.pend_size = _rr_lanes.LANES * (max_in + 1)
@@ -98,6 +113,26 @@ class RRSampler:
         else:
             self.total_weight = float(weights.sum())
             self.accept, self.alias = K.build_alias(np.ascontiguousarray(weights, np.float64))
+
+    def pick_kernel(self) -> None:
+        """Before a batch: while the kernels are on trial, the one timed on fewer batches
+        so far (lanes first)."""
+        if self._trials is not None:
+            self.lanes = len(self._trials[True]) <= len(self._trials[False])
+
+    def record_batch(self, seconds: float, sets: int, examined: int) -> None:
+        """After a batch: while on trial, count its time (batches of at least
+        ``TRIAL_MIN_SECONDS``); once each kernel has ``TRIAL_BATCHES`` of them, keep the one
+        that took less time per set and arc examined."""
+        if self._trials is None or seconds < TRIAL_MIN_SECONDS:
+            return
+        self._trials[self.lanes].append((seconds, sets + examined))
+        if min(len(v) for v in self._trials.values()) >= TRIAL_BATCHES:
+            cost = {k: sum(s for s, _ in v) / max(sum(w for _, w in v), 1)
+                    for k, v in self._trials.items()}
+            self.lanes = cost[True] <= cost[False]
+            self.trial_costs = cost
+            self._trials = None
 
     def _args(self) -> tuple[object, ...]:
         return (self.indptr, self.indices, self.mode, self.aux, self.arc, self.accept, self.alias)
@@ -189,6 +224,7 @@ class RRCollection:
                 # so a long run copies the store only a few times.
                 whole = self.entries + int(mean * (target - self.count) * 1.1) + n + 16
                 self._nodes = P.grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
+            self.sampler.pick_kernel()
             t0 = time.perf_counter()
             parts = self.sampler._parts(want)
             if parts > 1:
@@ -196,6 +232,7 @@ class RRCollection:
             else:
                 done, pos, examined = self._sample(fn, want)
             dt = time.perf_counter() - t0
+            self.sampler.record_batch(dt, int(done), int(examined))
             self.seconds += dt
             self.count += int(done)
             self.entries = int(pos)

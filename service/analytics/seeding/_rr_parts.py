@@ -94,7 +94,7 @@ class Scratch:
         self.fill = 0  # entries of the current batch in ``nodes``
         self.stamp: NDArray[np.int32] | NDArray[np.int64] = marks(n, 0)
         self.nodes = np.empty(1 << 12, dtype=np.int32)
-        if smp.lanes:
+        if smp.lanes_ok:
             self.vis = np.zeros(n, dtype=np.uint16)
             # Pages are only committed as lanes write to them (see sample_ic_lanes).
             self.queues = np.empty(_rr_lanes.LANES * max(n, 1), dtype=np.int32)
