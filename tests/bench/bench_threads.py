@@ -115,6 +115,7 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
     method, _ = BS.fastest_method(exe, name, directed, seconds)
     c_rates: list[float] = []
     ours: dict[int, list[float]] = {t: [] for t in counts}
+    kept: dict[int, list[str]] = {t: [] for t in counts}  # the kernel each new sampler kept
     same = True
     batch = 0  # largest per-thread batch store (bytes)
     for rep in range(repeats):
@@ -124,6 +125,10 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
         for t in counts:
             rate, coll = rr_rate(dg, t, seconds, rep + 1, hint)
             ours[t].append(rate)
+            smp = coll.sampler
+            kept[t].append(("lanes" if smp.lanes else "one set at a time")
+                           + ("" if smp.trial_costs is not None else
+                              " (no trial: small graph)" if not smp.lanes_ok else " (trial unfinished)"))
             if t > 1:
                 batch = max([batch] + [sc.nodes.nbytes for sc in coll.sampler.scratch])
             cut = min(coll.count, 20_000)  # the first sets, compared bit for bit
@@ -142,7 +147,8 @@ def bench_rr(exe: Path, name: str, directed: bool, counts: list[int], seconds: f
         eff = med[t] / (t * med[1])
         print(f"    ours {t} thread{'s' if t > 1 else ' '} {med[t]:.4g} edges/s (rounds "
               f"{', '.join(f'{x:.4g}' for x in ours[t])}); ours/C = {med[t] / c_med:.2f}, "
-              f"per core {med[t] / c_med / t:.2f}; parallel efficiency {eff:.2f}")
+              f"per core {med[t] / c_med / t:.2f}; parallel efficiency {eff:.2f}; kernel kept: "
+              f"{', '.join(kept[t])}")
     print(cpu_line("CPU accounting"))
     top = counts[-1]
     ratio = med[top] / c_med
