@@ -223,21 +223,29 @@ def test_kernels_on_trial_switch_mid_collection_and_keep_the_sets(monkeypatch, m
 
 def test_the_trial_keeps_the_kernel_that_took_less_time():
     big = random_graph(40_000, 300_000, seed=2, mixed=False)
-    for lanes_time, single_time, keep_lanes in ((0.02, 0.05, True), (0.05, 0.02, False)):
+    # (lanes batch times, one-at-a-time batch times, lanes kept); the best batch of each
+    # decides, so the first case keeps the lanes despite one slow batch.
+    for lanes_s, single_s, keep_lanes in (((0.2, 0.02), (0.03, 0.03), True),
+                                          ((0.05, 0.04), (0.02, 0.025), False)):
         smp = RRSampler(big)
-        assert smp.lanes_ok
-        for _ in range(_rr.TRIAL_BATCHES):
-            for seconds in (lanes_time, single_time):
-                smp.pick_kernel()
-                assert smp.lanes == (seconds == lanes_time)
+        assert smp.lanes_ok and smp.lanes
+        sizes = []
+        for lanes_t, single_t in zip(lanes_s, single_s):
+            for expect_lanes, seconds in ((True, lanes_t), (False, single_t)):
+                sizes.append(smp.pick_kernel(50_000))
+                assert smp.lanes is expect_lanes  # they take turns, lanes first
                 smp.record_batch(seconds, 1000, 20_000)
+        # The first batch as asked, then about TRIAL_SECONDS at the last batch's pace.
+        assert sizes == [50_000] + [int(1000 / t * _rr.TRIAL_SECONDS)
+                                    for t in (lanes_s[0], single_s[0], lanes_s[1])]
+        assert smp.trial_costs is not None
         assert smp.lanes is keep_lanes
         smp.record_batch(1.0, 1000, 20_000)  # decided: later batches change nothing
-        smp.pick_kernel()
+        assert smp.pick_kernel(50_000) == 50_000
         assert smp.lanes is keep_lanes
     smp = RRSampler(big)
-    smp.pick_kernel()
+    smp.pick_kernel(10)
     smp.record_batch(_rr.TRIAL_MIN_SECONDS / 2, 10, 100)  # too short to count
-    smp.pick_kernel()
+    assert smp.pick_kernel(40) == 40
     assert smp.lanes  # still the lanes' turn
     assert not RRSampler(random_graph(100, 400, seed=1, mixed=False)).lanes_ok  # no trial

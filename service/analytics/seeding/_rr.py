@@ -58,8 +58,10 @@ LANES_MIN_BYTES = 1 << 20
 # count as much as on the graph: measured on a 2-core machine with 2 MiB of L2 per core
 # and 32 MiB of L3 (one set at a time / lanes, 5 alternating runs): soc-Slashdot0902 1.12
 # on one thread and 1.19 on two, com-DBLP 0.86 and 1.08. So a sampler times both on its
-# first batches of at least TRIAL_MIN_SECONDS, TRIAL_BATCHES each, and keeps the faster.
-# The sets are the same either way; only the time differs.
+# first batches (about TRIAL_SECONDS each; those of at least TRIAL_MIN_SECONDS count),
+# TRIAL_BATCHES each, and keeps the faster. The sets are the same either way; only the
+# time differs.
+TRIAL_SECONDS = 0.03
 TRIAL_MIN_SECONDS = 0.01
 TRIAL_BATCHES = 2
 
@@ -99,9 +101,10 @@ class RRSampler:
         # with lanes and times both on its first batches (see pick_kernel / record_batch).
         self.lanes_ok = footprint > LANES_MIN_BYTES
         self.lanes = self.lanes_ok
-        self._trials: dict[bool, list[tuple[float, int]]] | None = (
+        self._trials: dict[bool, list[float]] | None = (  # seconds per (set + arc)
             {True: [], False: []} if self.lanes_ok else None)
         self.trial_costs: dict[bool, float] | None = None  # seconds per (set + arc), once timed
+        self._trial_pace = 0.0  # sets per second of the last batch while on trial
         if self.lanes_ok and self.model == "ic":
             self.rec, self.recf = _rr_lanes.lane_records(self.indptr, self.mode, self.aux)
             max_in = int(np.diff(self.indptr).max()) if self.n else 0
@@ -114,22 +117,30 @@ class RRSampler:
             self.total_weight = float(weights.sum())
             self.accept, self.alias = K.build_alias(np.ascontiguousarray(weights, np.float64))
 
-    def pick_kernel(self) -> None:
-        """Before a batch: while the kernels are on trial, the one timed on fewer batches
-        so far (lanes first)."""
-        if self._trials is not None:
-            self.lanes = len(self._trials[True]) <= len(self._trials[False])
+    def pick_kernel(self, want: int) -> int:
+        """Before a batch of ``want`` sets: while the kernels are on trial, the one timed on
+        fewer batches so far (lanes first), and a batch of about ``TRIAL_SECONDS`` at the
+        last batch's pace, so the slower kernel costs little. Returns the batch size."""
+        if self._trials is None:
+            return want
+        self.lanes = len(self._trials[True]) <= len(self._trials[False])
+        if self._trial_pace > 0.0:
+            return max(1, min(want, int(self._trial_pace * TRIAL_SECONDS)))
+        return want
 
     def record_batch(self, seconds: float, sets: int, examined: int) -> None:
-        """After a batch: while on trial, count its time (batches of at least
-        ``TRIAL_MIN_SECONDS``); once each kernel has ``TRIAL_BATCHES`` of them, keep the one
-        that took less time per set and arc examined."""
-        if self._trials is None or seconds < TRIAL_MIN_SECONDS:
+        """After a batch: while on trial, time it (batches of at least
+        ``TRIAL_MIN_SECONDS`` count); once each kernel has ``TRIAL_BATCHES`` of them, keep
+        the one whose best batch took less time per set and arc examined (the best, so that
+        one batch slowed by something else does not decide)."""
+        if self._trials is None or seconds <= 0.0:
             return
-        self._trials[self.lanes].append((seconds, sets + examined))
+        self._trial_pace = sets / seconds
+        if seconds < TRIAL_MIN_SECONDS:
+            return
+        self._trials[self.lanes].append(seconds / max(sets + examined, 1))
         if min(len(v) for v in self._trials.values()) >= TRIAL_BATCHES:
-            cost = {k: sum(s for s, _ in v) / max(sum(w for _, w in v), 1)
-                    for k, v in self._trials.items()}
+            cost = {k: min(v) for k, v in self._trials.items()}
             self.lanes = cost[True] <= cost[False]
             self.trial_costs = cost
             self._trials = None
@@ -208,7 +219,7 @@ class RRCollection:
         start_count = self.count
         sizer = self._sizer  # kept across calls: IMM's estimation rounds need no new ramp-up
         while self.count < target:
-            want = sizer.next(target - self.count)
+            want = self.sampler.pick_kernel(sizer.next(target - self.count))
             if self.count >= 256:  # the mean set size is known: check the whole target's store
                 mean_now = self.entries / self.count
                 check_memory((self.entries + mean_now * (target - self.count)) * BYTES_PER_ENTRY
@@ -224,7 +235,6 @@ class RRCollection:
                 # so a long run copies the store only a few times.
                 whole = self.entries + int(mean * (target - self.count) * 1.1) + n + 16
                 self._nodes = P.grow(self._nodes, max(need, whole if self.count >= 1000 else 0))
-            self.sampler.pick_kernel()
             t0 = time.perf_counter()
             parts = self.sampler._parts(want)
             if parts > 1:
