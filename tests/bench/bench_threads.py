@@ -237,7 +237,7 @@ def bench_imm(exe: Path, name: str, directed: bool, repeats: int) -> dict[str, A
     imm_seeds(dg, SeedRules.build(dg.n, budget=2), epsilon=0.5, forecast_runs=0)  # compile / load the caches
     method, _ = BS.fastest_method(exe, name, directed, 1.0)
     rounds = []  # (ours, C) per round, C run right after ours: the machine's speed drifts
-    for r in range(repeats):
+    for _ in range(repeats):
         t0 = time.perf_counter()
         sl = imm_seeds(dg, SeedRules.build(dg.n, budget=50), epsilon=0.1, l=1.0, forecast_runs=0)
         wall = time.perf_counter() - t0

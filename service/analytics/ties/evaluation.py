@@ -17,6 +17,7 @@ from numpy.typing import NDArray
 
 from . import _kernels as K
 from .._chunks import run_chunked
+from .._grouping import group_order
 from ..errors import InfeasibleRequest, InvalidParameter
 from ..graph import GraphArrays
 from .recommend import DEFAULT_TOLERANCE, LINK_METHODS, _check_ppr, _pair_method
@@ -90,7 +91,7 @@ def _ppr_pairs(
     src = np.concatenate((u, v))
     partner = np.concatenate((v, u)).astype(np.int32)
     pair = np.concatenate((np.arange(u.shape[0]), np.arange(u.shape[0]))).astype(np.int64)
-    order = np.argsort(src, kind="stable")
+    order = group_order(src, index.n)
     src, partner, pair = src[order], partner[order], pair[order]
     starts = np.flatnonzero(np.r_[True, src[1:] != src[:-1]]) if src.size else np.zeros(0, int)
     ptr = np.r_[starts, src.shape[0]].astype(np.int64)

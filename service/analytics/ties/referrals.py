@@ -17,6 +17,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from . import _kernels as K
+from .._grouping import group_order
 from ..errors import InvalidParameter, UnknownNode
 from ..graph import DiffusionGraph
 from .strength import NeighbourIndex
@@ -88,7 +89,7 @@ class _Exposure:
             dg.out_indptr, dg.out_indices, dg.out_prob, a, is_adopter,
             elig if elig is not None else np.ones(0, bool), elig is not None, total,
         )
-        order = np.argsort(tgt, kind="stable")
+        order = group_order(tgt, n)
         tgt, src, prob = tgt[order], src[order], prob[order]
         if index is None:
             tie = prob
